@@ -1,0 +1,214 @@
+// Package stream holds plumb's mergeable accumulators: the centered
+// cross-product accumulator (Moments) and the QR accumulator (QR), with the
+// Block type that carries rows to them and their binary encoding.
+//
+// Rows arrive a block at a time. A row with NULL, NaN or ±Inf in any used
+// column is dropped (listwise deletion) and counted against each offending
+// column. Accumulators merge with the pairwise formulas of Chan, Golub &
+// LeVeque (1979), so partitions, time buckets and windows combine in any
+// order.
+package stream
+
+import (
+	"fmt"
+	"math"
+)
+
+// DefaultBlockRows is the block height that connectors use when they have no
+// better figure: large enough that BLAS level-3 updates dominate, small
+// enough that a block of 200 columns stays within a few megabytes.
+const DefaultBlockRows = 1024
+
+// Block is a row-major batch of rows for the accumulators.
+//
+// Data holds Rows×P values. Null, when not nil, marks NULL cells (true =
+// NULL); a NaN or ±Inf value is treated as missing whether or not it is
+// marked. Weight, when not nil, holds one non-negative weight per row; a row
+// with a negative, NaN or infinite weight is dropped and counted in
+// BadWeights.
+type Block struct {
+	P      int
+	Rows   int
+	Data   []float64
+	Null   []bool
+	Weight []float64
+}
+
+// NewBlock returns an empty block for p columns with room for capRows rows.
+// weighted allocates the Weight slice.
+func NewBlock(p, capRows int, weighted bool) *Block {
+	if p <= 0 || capRows <= 0 {
+		panic(fmt.Sprintf("stream: NewBlock(%d, %d): sizes must be positive", p, capRows))
+	}
+	b := &Block{
+		P:    p,
+		Data: make([]float64, 0, p*capRows),
+		Null: make([]bool, 0, p*capRows),
+	}
+	if weighted {
+		b.Weight = make([]float64, 0, capRows)
+	}
+	return b
+}
+
+// Cap returns the number of rows the block holds before it must grow.
+func (b *Block) Cap() int { return cap(b.Data) / b.P }
+
+// Full reports whether the block is at capacity.
+func (b *Block) Full() bool { return b.Rows >= b.Cap() }
+
+// Reset empties the block, keeping its storage.
+func (b *Block) Reset() {
+	b.Rows = 0
+	b.Data = b.Data[:0]
+	b.Null = b.Null[:0]
+	if b.Weight != nil {
+		b.Weight = b.Weight[:0]
+	}
+}
+
+// AppendRow extends the block by one row and returns the row's value and
+// NULL slots for the caller to fill. Both slices are zeroed (no NULLs). When
+// the block is weighted the row's weight is set to 1; use SetWeight to change
+// it.
+func (b *Block) AppendRow() (vals []float64, nulls []bool) {
+	n := len(b.Data)
+	if n+b.P > cap(b.Data) {
+		b.grow()
+	}
+	b.Data = b.Data[:n+b.P]
+	b.Null = b.Null[:n+b.P]
+	vals, nulls = b.Data[n:n+b.P], b.Null[n:n+b.P]
+	clear(vals)
+	clear(nulls)
+	if b.Weight != nil {
+		b.Weight = append(b.Weight, 1)
+	}
+	b.Rows++
+	return vals, nulls
+}
+
+// SetWeight sets the weight of the last appended row.
+func (b *Block) SetWeight(w float64) {
+	if b.Weight == nil {
+		panic("stream: SetWeight on an unweighted block")
+	}
+	b.Weight[b.Rows-1] = w
+}
+
+func (b *Block) grow() {
+	c := 2*cap(b.Data) + b.P
+	d := make([]float64, len(b.Data), c)
+	copy(d, b.Data)
+	nl := make([]bool, len(b.Null), c)
+	copy(nl, b.Null)
+	b.Data, b.Null = d, nl
+}
+
+func (b *Block) check(p int) {
+	if b.P != p {
+		panic(fmt.Sprintf("stream: block has %d columns, accumulator %d", b.P, p))
+	}
+	if len(b.Data) < b.Rows*b.P || (b.Null != nil && len(b.Null) < b.Rows*b.P) ||
+		(b.Weight != nil && len(b.Weight) < b.Rows) {
+		panic(fmt.Sprintf("stream: block of %d rows has short slices", b.Rows))
+	}
+}
+
+// Counts records what listwise deletion did: rows used, rows dropped, and
+// per column the number of rows in which that column was NULL, NaN or ±Inf.
+// A dropped row with several bad columns counts once against each of them.
+type Counts struct {
+	Used       int64   // rows folded into the accumulator
+	SumWeights float64 // sum of the used rows' weights (= Used when unweighted)
+	Dropped    int64   // rows dropped for a missing value or a bad weight
+	Null       []int64 // per column: rows where the column was NULL
+	NaN        []int64 // per column: rows where the column was NaN
+	Inf        []int64 // per column: rows where the column was ±Inf
+	BadWeights int64   // rows dropped for a negative, NaN or infinite weight
+}
+
+func newCounts(p int) Counts {
+	return Counts{Null: make([]int64, p), NaN: make([]int64, p), Inf: make([]int64, p)}
+}
+
+// Missing returns, per column, the rows dropped on account of that column.
+func (c *Counts) Missing(dst []int64) []int64 {
+	if dst == nil {
+		dst = make([]int64, len(c.Null))
+	}
+	for j := range c.Null {
+		dst[j] = c.Null[j] + c.NaN[j] + c.Inf[j]
+	}
+	return dst
+}
+
+func (c *Counts) add(o *Counts) {
+	c.Used += o.Used
+	c.SumWeights += o.SumWeights
+	c.Dropped += o.Dropped
+	c.BadWeights += o.BadWeights
+	for j := range c.Null {
+		c.Null[j] += o.Null[j]
+		c.NaN[j] += o.NaN[j]
+		c.Inf[j] += o.Inf[j]
+	}
+}
+
+func (c *Counts) clone() Counts {
+	d := *c
+	d.Null = append([]int64(nil), c.Null...)
+	d.NaN = append([]int64(nil), c.NaN...)
+	d.Inf = append([]int64(nil), c.Inf...)
+	return d
+}
+
+// compact copies the valid rows of b into dst (row-major, p columns), their
+// weights into w (when b is weighted), updates the counts and returns the
+// number of rows kept. dst must hold b.Rows*p values and w b.Rows values.
+func compact(b *Block, c *Counts, dst, w []float64) int {
+	p := b.P
+	k := 0
+	for i := 0; i < b.Rows; i++ {
+		row := b.Data[i*p : i*p+p]
+		bad := false
+		if b.Null != nil {
+			for _, isNull := range b.Null[i*p : i*p+p] {
+				bad = bad || isNull
+			}
+		}
+		for _, v := range row {
+			// v-v is NaN exactly when v is NaN or ±Inf: one test for both.
+			bad = bad || v-v != 0
+		}
+		weight := 1.0
+		if b.Weight != nil {
+			weight = b.Weight[i]
+			if !(weight >= 0) || math.IsInf(weight, 1) {
+				c.BadWeights++
+				c.Dropped++
+				continue
+			}
+		}
+		if bad {
+			c.Dropped++
+			for j, v := range row {
+				switch {
+				case b.Null != nil && b.Null[i*p+j]:
+					c.Null[j]++
+				case math.IsNaN(v):
+					c.NaN[j]++
+				case math.IsInf(v, 0):
+					c.Inf[j]++
+				}
+			}
+			continue
+		}
+		copy(dst[k*p:k*p+p], row)
+		if b.Weight != nil {
+			w[k] = weight
+		}
+		k++
+	}
+	return k
+}
