@@ -1,0 +1,195 @@
+// Package connectors defines how plumb reads a database: the Source
+// interface, the request that names a table or query and its columns, column
+// discovery and the accumulated result. Implementations live in
+// connectors/postgres and connectors/sqlite and register themselves by URL
+// scheme; optional fast paths (pushdown, partitioned scans) are discovered by
+// type assertion.
+package connectors
+
+import (
+	"context"
+	"fmt"
+	"sort"
+	"strings"
+	"sync"
+	"time"
+
+	"plumb/stream"
+)
+
+// Kind classifies a column's database type for plumb.
+type Kind int
+
+const (
+	KindOther   Kind = iota // not usable (text, json, bytea, …)
+	KindNumeric             // integers, floats, numeric/decimal
+	KindBool                // booleans, read as 0/1
+	KindTime                // date, timestamp, timestamptz, or SQLite time text / unix seconds
+)
+
+func (k Kind) String() string {
+	switch k {
+	case KindNumeric:
+		return "numeric"
+	case KindBool:
+		return "boolean"
+	case KindTime:
+		return "time"
+	}
+	return "other"
+}
+
+// Column describes one column of a table or query result.
+type Column struct {
+	Name string
+	Type string // the database's own type name, e.g. "double precision", "INTEGER"
+	Kind Kind
+}
+
+// Request says what to read.
+type Request struct {
+	Table   string   // "name" or "schema.name"; exclusive with Query
+	Query   string   // a SELECT run as given inside a read-only transaction
+	Where   string   // optional filter, appended as WHERE (…)
+	Columns []string // the columns to accumulate, in order (a target last)
+	Weight  string   // optional weight column
+
+	TimeColumn  string        // optional; with Bucket, one accumulator per bucket
+	Bucket      string        // hour, day, week, month
+	Location    *time.Location // bucket boundaries; nil means UTC
+	Segment     string        // optional segment column: one accumulator per value
+	MaxSegments int           // bound on distinct segments; 0 means DefaultMaxSegments
+
+	SamplePct float64 // 0 or 100 means every row
+	Seed      int64
+
+	QR bool // accumulate the QR factor as well as the moments
+
+	// Progress, when set, is called from the scanning goroutine now and then
+	// with the rows read so far and the total expected (0 when unknown).
+	Progress func(read, total int64)
+}
+
+// DefaultMaxSegments bounds the distinct values of a segment column.
+const DefaultMaxSegments = 1000
+
+// Key names one accumulator of a result: a bucket start (zero without
+// bucketing) and a segment value ("" without segmenting).
+type Key struct {
+	Bucket  time.Time
+	Segment string
+}
+
+// Group is the accumulated data of one key.
+type Group struct {
+	Key     Key
+	Moments *stream.Moments
+	QR      *stream.QR // nil unless Request.QR
+}
+
+// Result is what a scan produced.
+type Result struct {
+	Columns []string // the accumulated columns, in request order
+	Groups  []Group  // sorted by bucket, then segment
+	Read    int64    // rows read from the database
+	Sampled bool     // rows were sampled (SamplePct)
+	Inexact []int64  // per column: values that did not fit float64 exactly
+}
+
+// Merged returns one group holding all groups merged (the whole table).
+func (r *Result) Merged() Group {
+	g := Group{Moments: stream.NewMoments(r.Columns)}
+	for _, x := range r.Groups {
+		g.Moments.Merge(x.Moments)
+		if x.QR != nil {
+			if g.QR == nil {
+				g.QR = stream.NewQR(r.Columns)
+			}
+			g.QR.Merge(x.QR)
+		}
+	}
+	return g
+}
+
+// SortGroups orders groups by bucket, then segment.
+func SortGroups(gs []Group) {
+	sort.Slice(gs, func(i, j int) bool {
+		if !gs[i].Key.Bucket.Equal(gs[j].Key.Bucket) {
+			return gs[i].Key.Bucket.Before(gs[j].Key.Bucket)
+		}
+		return gs[i].Key.Segment < gs[j].Key.Segment
+	})
+}
+
+// Source is a database plumb can read.
+type Source interface {
+	// Describe lists the columns of the request's table or query.
+	Describe(ctx context.Context, req Request) ([]Column, error)
+	// Scan reads the requested columns and accumulates them.
+	Scan(ctx context.Context, req Request) (*Result, error)
+	// Close releases the connection(s).
+	Close() error
+}
+
+// Opener opens a Source from a URL.
+type Opener func(ctx context.Context, url string, opts Options) (Source, error)
+
+// Options are connection settings shared by every source.
+type Options struct {
+	StatementTimeout time.Duration // 0 means the source's default
+	Parallel         int           // partitions scanned at once, where supported
+	Pushdown         bool          // compute the aggregate in the database, where supported
+	AppName          string        // application name reported to the server; "" means "plumb"
+}
+
+var (
+	regMu   sync.RWMutex
+	openers = map[string]Opener{}
+)
+
+// Register makes an opener available for a URL scheme ("sqlite",
+// "postgres"). It panics when the scheme is taken.
+func Register(scheme string, o Opener) {
+	regMu.Lock()
+	defer regMu.Unlock()
+	if _, dup := openers[scheme]; dup {
+		panic("connectors: scheme registered twice: " + scheme)
+	}
+	openers[scheme] = o
+}
+
+// Open opens the source named by url, choosing the connector by scheme
+// ("sqlite:PATH", "postgres://…", "postgresql://…").
+func Open(ctx context.Context, url string, opts Options) (Source, error) {
+	scheme, _, ok := strings.Cut(url, ":")
+	if !ok {
+		return nil, fmt.Errorf("database %q: want sqlite:PATH or postgres://…", Redact(url))
+	}
+	if scheme == "postgresql" {
+		scheme = "postgres"
+	}
+	regMu.RLock()
+	o := openers[scheme]
+	regMu.RUnlock()
+	if o == nil {
+		return nil, fmt.Errorf("database %q: no connector for scheme %q (want sqlite or postgres)", Redact(url), scheme)
+	}
+	return o(ctx, url, opts)
+}
+
+// Redact returns url with any password replaced by "xxxxx", for messages.
+func Redact(url string) string {
+	scheme, rest, ok := strings.Cut(url, "://")
+	if !ok {
+		return url
+	}
+	auth, host, ok := strings.Cut(rest, "@")
+	if !ok {
+		return url
+	}
+	user, _, hasPass := strings.Cut(auth, ":")
+	if !hasPass {
+		return url
+	}
+	return scheme + "://" + user + ":xxxxx@" + host
+}
