@@ -1,0 +1,190 @@
+// Package demo generates plumb's own scenario: a water utility's daily
+// demand feature table per supply district. The data are invented, drawn
+// from a fixed seed, and carry three stories that plumb should notice:
+//
+//   - metered and billed volume converge as smart meters roll out, so their
+//     VIFs drift upward day after day;
+//   - from ChangeDay on, an upstream change writes total_connections as the
+//     exact sum of residential and commercial connections (before it, the
+//     total also counted a varying number of other connections);
+//   - the pressure sensor of one district sticks from StuckDay on.
+package demo
+
+import (
+	"context"
+	"database/sql"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"time"
+
+	_ "modernc.org/sqlite" // the one SQLite driver of the process
+)
+
+// Table is the name of the generated feature table.
+const Table = "district_daily"
+
+// Target is the table's response column, the water put into supply.
+const Target = "demand_m3"
+
+// Scenario fixes the shape of the generated data.
+type Scenario struct {
+	Seed          uint64
+	Start         time.Time // first day (UTC)
+	Days          int
+	Districts     []string
+	ChangeDay     int // day index from which total_connections is an exact sum
+	StuckDay      int // day index from which StuckDistrict's pressure is constant
+	StuckDistrict string
+}
+
+// Default is the scenario of plumb's demo and built-in sample.
+var Default = Scenario{
+	Seed:          20260601,
+	Start:         time.Date(2026, 6, 1, 0, 0, 0, 0, time.UTC),
+	Days:          120,
+	Districts:     []string{"harbour", "hillside", "northfield", "riverside"},
+	ChangeDay:     70,
+	StuckDay:      85,
+	StuckDistrict: "hillside",
+}
+
+// Row is one district-day.
+type Row struct {
+	Day                    time.Time
+	District               string
+	TemperatureC           float64
+	RainfallMM             float64
+	PopulationServed       int64
+	ResidentialConnections int64
+	CommercialConnections  int64
+	TotalConnections       int64
+	PipeAgeYears           float64
+	PressureBar            float64
+	MeteredVolumeM3        float64
+	BilledVolumeM3         float64
+	DemandM3               float64
+}
+
+// Rows generates the scenario's rows, day by day, districts in order.
+func (s Scenario) Rows() []Row {
+	rng := rand.New(rand.NewPCG(s.Seed, s.Seed^0x9e3779b97f4a7c15))
+	type district struct {
+		pop, growth, resPer, com, age, pressure float64
+	}
+	ds := make([]district, len(s.Districts))
+	for i := range ds {
+		ds[i] = district{
+			pop:      18000 + 9000*rng.Float64(),
+			growth:   2 + 4*rng.Float64(),
+			resPer:   2.2 + 0.4*rng.Float64(),
+			com:      300 + 400*rng.Float64(),
+			age:      15 + 30*rng.Float64(),
+			pressure: 3.2 + 0.8*rng.Float64(),
+		}
+	}
+	round1 := func(x float64) float64 { return math.Round(x*10) / 10 }
+	round3 := func(x float64) float64 { return math.Round(x*1000) / 1000 }
+	var rows []Row
+	rain := 0.0
+	for d := 0; d < s.Days; d++ {
+		day := s.Start.AddDate(0, 0, d)
+		season := math.Sin(2 * math.Pi * (float64(d) + 20) / 365)
+		baseTemp := 17 + 9*season + 2.5*rng.NormFloat64()
+		// Rain comes in spells: a wet day makes the next one likelier.
+		if rng.Float64() < 0.25+0.3*math.Min(rain, 1) {
+			rain = rng.ExpFloat64() * 6
+		} else {
+			rain = 0
+		}
+		// Smart meters roll out over the period: the share of accounts
+		// billed on a real reading rather than an estimate.
+		rollout := 0.25 + 0.74/(1+math.Exp(-(float64(d)-60)/14))
+		for i, name := range s.Districts {
+			x := &ds[i]
+			pop := x.pop + x.growth*float64(d) + 40*rng.NormFloat64()
+			res := math.Round(pop/x.resPer + 25*rng.NormFloat64())
+			com := math.Round(x.com + 0.4*float64(d) + 8*rng.NormFloat64())
+			total := res + com
+			if d < s.ChangeDay {
+				total += math.Round(60 + 25*rng.Float64()) // other connections, no longer counted after the change
+			}
+			temp := round1(baseTemp + 0.8*rng.NormFloat64())
+			rainfall := round1(math.Max(0, rain*(0.7+0.6*rng.Float64())))
+			pressure := round3(x.pressure + 0.12*rng.NormFloat64())
+			if name == s.StuckDistrict && d >= s.StuckDay {
+				pressure = 3.415
+			}
+			metered := pop*0.145 + 95*(temp-15) - 22*rainfall + 180*rng.NormFloat64()
+			estimate := metered*(0.9+0.15*rng.NormFloat64()) + 400*rng.NormFloat64()
+			billed := rollout*metered*(1+0.01*rng.NormFloat64()) + (1-rollout)*estimate
+			age := x.age + float64(d)/365
+			leak := 18*age + 260*(pressure-3.5)
+			demand := metered + leak + 150*rng.NormFloat64()
+			rows = append(rows, Row{
+				Day: day, District: name,
+				TemperatureC: temp, RainfallMM: rainfall,
+				PopulationServed:       int64(math.Round(pop)),
+				ResidentialConnections: int64(res),
+				CommercialConnections:  int64(com),
+				TotalConnections:       int64(total),
+				PipeAgeYears:           round3(age),
+				PressureBar:            pressure,
+				MeteredVolumeM3:        round1(metered),
+				BilledVolumeM3:         round1(billed),
+				DemandM3:               round1(demand),
+			})
+		}
+	}
+	return rows
+}
+
+// WriteSQLite creates path (which must not exist) holding the scenario's
+// table.
+func (s Scenario) WriteSQLite(ctx context.Context, path string) error {
+	db, err := sql.Open("sqlite", "file:"+path+"?mode=rwc")
+	if err != nil {
+		return fmt.Errorf("demo database %s: %w", path, err)
+	}
+	defer db.Close()
+	tx, err := db.BeginTx(ctx, nil)
+	if err != nil {
+		return fmt.Errorf("demo database %s: %w", path, err)
+	}
+	defer tx.Rollback()
+	if _, err := tx.ExecContext(ctx, `CREATE TABLE `+Table+` (
+		day TEXT NOT NULL,
+		district TEXT NOT NULL,
+		temperature_c REAL,
+		rainfall_mm REAL,
+		population_served INTEGER,
+		residential_connections INTEGER,
+		commercial_connections INTEGER,
+		total_connections INTEGER,
+		pipe_age_years REAL,
+		pressure_bar REAL,
+		metered_volume_m3 REAL,
+		billed_volume_m3 REAL,
+		demand_m3 REAL,
+		PRIMARY KEY (day, district)
+	)`); err != nil {
+		return fmt.Errorf("demo database %s: %w", path, err)
+	}
+	stmt, err := tx.PrepareContext(ctx, `INSERT INTO `+Table+` VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?)`)
+	if err != nil {
+		return fmt.Errorf("demo database %s: %w", path, err)
+	}
+	defer stmt.Close()
+	for _, r := range s.Rows() {
+		if _, err := stmt.ExecContext(ctx, r.Day.Format(time.DateOnly), r.District,
+			r.TemperatureC, r.RainfallMM, r.PopulationServed,
+			r.ResidentialConnections, r.CommercialConnections, r.TotalConnections,
+			r.PipeAgeYears, r.PressureBar, r.MeteredVolumeM3, r.BilledVolumeM3, r.DemandM3); err != nil {
+			return fmt.Errorf("demo database %s: %w", path, err)
+		}
+	}
+	if err := tx.Commit(); err != nil {
+		return fmt.Errorf("demo database %s: %w", path, err)
+	}
+	return nil
+}

@@ -1,0 +1,90 @@
+// Command plumb watches the numeric feature columns of PostgreSQL and SQLite
+// tables for multicollinearity and for drift toward it.
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"os"
+	"os/signal"
+	"syscall"
+
+	"github.com/spf13/cobra"
+
+	_ "plumb/connectors/sqlite"
+)
+
+// Exit codes. 0, 1 and 2 are reserved for verdicts (ok, warning,
+// critical) of the commands that judge; errors use the codes below.
+const (
+	exitError = 3  // the job could not be done: bad data, unreachable source, …
+	exitUsage = 64 // the command line is wrong
+)
+
+// usageError marks errors in the command line itself.
+type usageError struct{ err error }
+
+func (e usageError) Error() string { return e.err.Error() }
+func (e usageError) Unwrap() error { return e.err }
+
+func usagef(format string, args ...any) error {
+	return usageError{fmt.Errorf(format, args...)}
+}
+
+// exitCoder lets a command choose its exit status (verdict commands).
+type exitCoder interface{ ExitCode() int }
+
+func main() {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	os.Exit(run(ctx, os.Args[1:]))
+}
+
+func run(ctx context.Context, args []string) int {
+	root := newRoot()
+	root.SetArgs(args)
+	err := root.ExecuteContext(ctx)
+	if err == nil {
+		return 0
+	}
+	var ec exitCoder
+	if errors.As(err, &ec) {
+		if msg := err.Error(); msg != "" {
+			fmt.Fprintln(os.Stderr, "plumb:", msg)
+		}
+		return ec.ExitCode()
+	}
+	fmt.Fprintln(os.Stderr, "plumb:", err)
+	var ue usageError
+	if errors.As(err, &ue) {
+		fmt.Fprintln(os.Stderr, "Run 'plumb --help' for usage.")
+		return exitUsage
+	}
+	return exitError
+}
+
+func newRoot() *cobra.Command {
+	root := &cobra.Command{
+		Use:   "plumb",
+		Short: "Watch feature tables for multicollinearity and drift toward it",
+		Long: `plumb reads the numeric feature columns of PostgreSQL and SQLite tables without
+loading them into memory and reports how redundant they are: variance inflation
+factors (VIF), condition indices with variance-decomposition proportions, exact
+linear dependencies written as equations, and, with a target, how much each
+coefficient's variance is inflated and why.
+
+It only reads: every statement runs in a read-only transaction.
+
+Diagnostics describe the data, not causality. Dropping a relevant column trades
+variance for omitted-variable bias; where results feed decisions about people,
+defer to the model's governance.`,
+		SilenceUsage:  true,
+		SilenceErrors: true,
+	}
+	root.SetFlagErrorFunc(func(c *cobra.Command, err error) error {
+		return usageError{err}
+	})
+	root.AddCommand(newScanCmd())
+	return root
+}

@@ -1,0 +1,414 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"strings"
+
+	"github.com/spf13/cobra"
+
+	"plumb/connectors"
+	"plumb/diagnostics"
+)
+
+// scanFlags are the flags of `plumb scan`.
+type scanFlags struct {
+	db, table, query, where string
+	columns                 []string
+	target, weight          string
+	groups                  []string
+	format                  string
+	precision               string
+	vifLimit, condLimit     float64
+	timeColumn, bucket      string
+	timeZone                string
+	segment                 string
+	maxSegments             int
+	samplePct               float64
+	seed                    int64
+	parallel                int
+	pushdown                bool
+	quiet                   bool
+}
+
+func newScanCmd() *cobra.Command {
+	var f scanFlags
+	cmd := &cobra.Command{
+		Use:   "scan [--db URL] (--table NAME | --query SQL) [flags]",
+		Short: "Read a table once and report its multicollinearity diagnostics",
+		Long: `scan streams the chosen numeric columns of one table or query and prints a
+report: per column VIF, tolerance, R² against the other columns and the factor
+by which its standard error is inflated; condition indices with
+variance-decomposition proportions (Belsley-Kuh-Welsch) in two conventions;
+near and exact linear dependencies, the exact ones as equations in the
+columns' own units; generalized VIFs of declared groups; what dropping each
+column would do. With --target it also fits OLS and splits each coefficient's
+variance into its three causes (poor fit, too little variation, redundancy).
+
+Without --columns every numeric column (integers, floats, numeric, booleans
+as 0/1) except the target is used; the others are listed as skipped.
+Rows with NULL, NaN or ±Inf in any used column are dropped and counted.
+
+Without --db, scan reads plumb's built-in sample: a water utility's daily
+demand features per supply district, generated from a fixed seed.
+
+Rules of thumb (common practice): VIF above 5 is worth a look, above 10 is
+serious; a condition index above 30 marks a strong near dependency.`,
+		Example: `  plumb scan
+  plumb scan --db sqlite:districts.db --table district_daily --target demand_m3
+  plumb scan --db postgres://reader@db/features --table ops.district_daily \
+      --columns temperature_c,rainfall_mm,metered_volume_m3,billed_volume_m3 --format json
+  plumb scan --db sqlite:districts.db --table district_daily \
+      --group connections=residential_connections,commercial_connections`,
+		Args: cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, args []string) error {
+			return runScan(cmd.Context(), cmd.OutOrStdout(), cmd.ErrOrStderr(), &f)
+		},
+	}
+	fl := cmd.Flags()
+	fl.StringVar(&f.db, "db", "", "database URL: sqlite:PATH or postgres://user@host/db (default: the built-in sample)")
+	fl.StringVar(&f.table, "table", "", "table to read, NAME or SCHEMA.NAME")
+	fl.StringVar(&f.query, "query", "", "SELECT to read instead of a table (runs in a read-only transaction)")
+	fl.StringVar(&f.where, "where", "", "filter rows with this SQL condition")
+	fl.StringSliceVar(&f.columns, "columns", nil, "regressor columns, comma-separated (default: every numeric column but the target)")
+	fl.StringVar(&f.target, "target", "", "response column: fit OLS and attribute each coefficient's variance")
+	fl.StringVar(&f.weight, "weight", "", "column of non-negative row weights")
+	fl.StringArrayVar(&f.groups, "group", nil, "column group for generalized VIF, NAME=a,b,c (repeatable)")
+	fl.StringVar(&f.format, "format", "text", "output format: text or json")
+	fl.StringVar(&f.precision, "precision", "auto", "auto (cross-products, QR when they cannot be trusted), fast (cross-products only) or exact (QR always)")
+	fl.Float64Var(&f.vifLimit, "vif-limit", 10, "VIF above which a column counts as redundant")
+	fl.Float64Var(&f.condLimit, "condition-limit", 30, "condition index above which a near dependency is reported")
+	fl.StringVar(&f.timeColumn, "time-column", "", "time column for --bucket")
+	fl.StringVar(&f.bucket, "bucket", "", "report per time bucket: hour, day, week or month (needs --time-column)")
+	fl.StringVar(&f.timeZone, "time-zone", "UTC", "time zone of bucket boundaries (IANA name)")
+	fl.StringVar(&f.segment, "segment", "", "report per value of this column as well as overall")
+	fl.IntVar(&f.maxSegments, "max-segments", connectors.DefaultMaxSegments, "most distinct segment values accepted")
+	fl.Float64Var(&f.samplePct, "sample", 0, "read about this percentage of rows (0 < PCT < 100), chosen by --seed")
+	fl.Int64Var(&f.seed, "seed", 1, "seed for --sample")
+	fl.IntVar(&f.parallel, "parallel", 1, "partitions read at once on separate connections (PostgreSQL)")
+	fl.BoolVar(&f.pushdown, "pushdown", false, "compute the cross-products inside the database (PostgreSQL)")
+	fl.BoolVarP(&f.quiet, "quiet", "q", false, "no progress bar")
+	return cmd
+}
+
+// scanOutput is the JSON document of `plumb scan`: the overall report with
+// the scan's facts beside it.
+type scanOutput struct {
+	Source  string `json:"source"`
+	Table   string `json:"table,omitempty"`
+	Query   string `json:"query,omitempty"`
+	Target  string `json:"target,omitempty"`
+	Sampled bool   `json:"sampled"`
+	Read    int64  `json:"rows_read"`
+	*diagnostics.Report
+	Skipped []skippedColumn `json:"skipped_columns"`
+	Inexact map[string]int64 `json:"inexact_values,omitempty"`
+	Groups  []groupOutput    `json:"by_group,omitempty"`
+	Limits  limits           `json:"limits"`
+	Caution string           `json:"caution"`
+}
+
+type limits struct {
+	VIF       float64 `json:"vif"`
+	Condition float64 `json:"condition"`
+}
+
+type skippedColumn struct {
+	Name string `json:"name"`
+	Type string `json:"type"`
+}
+
+type groupOutput struct {
+	Bucket  string              `json:"bucket,omitempty"`
+	Segment string              `json:"segment,omitempty"`
+	Error   string              `json:"error,omitempty"`
+	Report  *diagnostics.Report `json:"report,omitempty"`
+}
+
+// caution is printed with every report.
+const caution = "Diagnostics describe the data, not causality. Dropping a relevant column trades variance for omitted-variable bias; where results feed decisions about people (credit, health, hiring), defer to the model's governance."
+
+func (f *scanFlags) validate() error {
+	switch f.format {
+	case "text", "json":
+	default:
+		return usagef("--format %q: want text or json", f.format)
+	}
+	switch f.precision {
+	case "auto", "fast", "exact":
+	default:
+		return usagef("--precision %q: want auto, fast or exact", f.precision)
+	}
+	if (f.table == "") == (f.query == "") && f.db != "" {
+		return usagef("give one of --table or --query")
+	}
+	if f.bucket != "" && f.timeColumn == "" {
+		return usagef("--bucket needs --time-column")
+	}
+	switch f.bucket {
+	case "", "hour", "day", "week", "month":
+	default:
+		return usagef("--bucket %q: want hour, day, week or month", f.bucket)
+	}
+	if f.samplePct < 0 || f.samplePct > 100 {
+		return usagef("--sample %v: want a percentage between 0 and 100", f.samplePct)
+	}
+	if f.parallel < 1 {
+		return usagef("--parallel %d: want 1 or more", f.parallel)
+	}
+	if !(f.vifLimit > 1) {
+		return usagef("--vif-limit %v: want a number above 1", f.vifLimit)
+	}
+	if !(f.condLimit > 1) {
+		return usagef("--condition-limit %v: want a number above 1", f.condLimit)
+	}
+	return nil
+}
+
+func parseGroups(specs []string) (map[string][]string, error) {
+	if len(specs) == 0 {
+		return nil, nil
+	}
+	g := make(map[string][]string, len(specs))
+	for _, s := range specs {
+		name, cols, ok := strings.Cut(s, "=")
+		name = strings.TrimSpace(name)
+		if !ok || name == "" || cols == "" {
+			return nil, usagef("--group %q: want NAME=col1,col2", s)
+		}
+		if _, dup := g[name]; dup {
+			return nil, usagef("--group %q given twice", name)
+		}
+		for _, c := range strings.Split(cols, ",") {
+			if c = strings.TrimSpace(c); c != "" {
+				g[name] = append(g[name], c)
+			}
+		}
+		if len(g[name]) == 0 {
+			return nil, usagef("--group %q names no columns", name)
+		}
+	}
+	return g, nil
+}
+
+func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error {
+	if err := f.validate(); err != nil {
+		return err
+	}
+	groups, err := parseGroups(f.groups)
+	if err != nil {
+		return err
+	}
+	if f.db == "" {
+		path, cleanup, err := writeBuiltinSample()
+		if err != nil {
+			return err
+		}
+		defer cleanup()
+		f.db = "sqlite:" + path
+		if f.table == "" && f.query == "" {
+			f.table = sampleTable
+		}
+		if f.target == "" && f.table == sampleTable && len(f.columns) == 0 {
+			f.target = sampleTarget
+		}
+	}
+	loc, err := loadLocation(f.timeZone)
+	if err != nil {
+		return err
+	}
+	src, err := connectors.Open(ctx, f.db, connectors.Options{Parallel: f.parallel, Pushdown: f.pushdown})
+	if err != nil {
+		return err
+	}
+	defer src.Close()
+
+	req := connectors.Request{
+		Table: f.table, Query: f.query, Where: f.where,
+		Weight:     f.weight,
+		TimeColumn: f.timeColumn, Bucket: f.bucket, Location: loc,
+		Segment: f.segment, MaxSegments: f.maxSegments,
+		SamplePct: f.samplePct, Seed: f.seed,
+	}
+	what := f.table
+	if what == "" {
+		what = "query"
+	}
+	described, err := src.Describe(ctx, req)
+	if err != nil {
+		return err
+	}
+	cols, skipped, err := chooseColumns(what, described, f)
+	if err != nil {
+		return err
+	}
+	req.Columns = cols
+	req.QR = f.precision == "exact"
+
+	opt := diagnostics.Options{
+		Target: f.target, Columns: cols[:len(cols)-boolInt(f.target != "")], Groups: groups,
+		VIFLimit: f.vifLimit, CondLimit: f.condLimit,
+	}
+	res, rep, err := scanAndAnalyze(ctx, src, req, opt, f, stderr)
+	if err != nil {
+		return fmt.Errorf("%s: %w", what, err)
+	}
+	out := scanOutput{
+		Source: connectors.Redact(f.db), Table: f.table, Query: f.query, Target: f.target,
+		Sampled: res.Sampled, Read: res.Read, Report: rep, Skipped: skipped, Caution: caution,
+		Limits: limits{VIF: f.vifLimit, Condition: f.condLimit},
+	}
+	for j, n := range res.Inexact {
+		if n > 0 {
+			if out.Inexact == nil {
+				out.Inexact = map[string]int64{}
+			}
+			out.Inexact[res.Columns[j]] = n
+		}
+	}
+	if f.segment != "" || f.bucket != "" {
+		for _, g := range res.Groups {
+			gout := groupOutput{Segment: g.Key.Segment}
+			if !g.Key.Bucket.IsZero() {
+				gout.Bucket = g.Key.Bucket.Format("2006-01-02T15:04:05Z07:00")
+			}
+			r, err := diagnostics.Analyze(g.Moments, g.QR, opt)
+			if err != nil {
+				gout.Error = err.Error()
+			} else {
+				gout.Report = r
+			}
+			out.Groups = append(out.Groups, gout)
+		}
+	}
+	if f.format == "json" {
+		enc := json.NewEncoder(stdout)
+		enc.SetIndent("", "  ")
+		return enc.Encode(&out)
+	}
+	return writeText(stdout, &out)
+}
+
+// scanAndAnalyze runs the scan and the diagnostics; in auto precision a
+// cross-product result that cannot be trusted is redone on the QR path.
+func scanAndAnalyze(ctx context.Context, src connectors.Source, req connectors.Request, opt diagnostics.Options, f *scanFlags, stderr io.Writer) (*connectors.Result, *diagnostics.Report, error) {
+	for {
+		bar := newProgress(stderr, f.quiet, req.QR)
+		req.Progress = bar.update
+		res, err := src.Scan(ctx, req)
+		bar.finish()
+		if err != nil {
+			return nil, nil, err
+		}
+		all := res.Merged()
+		rep, err := diagnostics.Analyze(all.Moments, all.QR, opt)
+		if err != nil {
+			return nil, nil, err
+		}
+		if rep.Trust.Trustworthy || req.QR || f.precision == "fast" {
+			return res, rep, nil
+		}
+		if !f.quiet {
+			fmt.Fprintf(stderr, "plumb: cross-products cannot be trusted here (%s); reading again on the QR path\n", rep.Trust.Reason)
+		}
+		req.QR = true
+	}
+}
+
+func boolInt(b bool) int {
+	if b {
+		return 1
+	}
+	return 0
+}
+
+// chooseColumns returns the columns to accumulate (regressors, then the
+// target) and the numeric-less columns that were skipped.
+func chooseColumns(what string, described []connectors.Column, f *scanFlags) ([]string, []skippedColumn, error) {
+	byName := make(map[string]connectors.Column, len(described))
+	for _, c := range described {
+		byName[c.Name] = c
+	}
+	usable := func(c connectors.Column) bool {
+		return c.Kind == connectors.KindNumeric || c.Kind == connectors.KindBool
+	}
+	need := func(role, name string) error {
+		c, ok := byName[name]
+		if !ok {
+			return fmt.Errorf("%s: %scolumn %q does not exist; columns are %s", what, role, name, columnList(described))
+		}
+		if !usable(c) {
+			return fmt.Errorf("%s: %scolumn %q is %s (type %s); pick numeric columns", what, role, name, c.Kind, c.Type)
+		}
+		return nil
+	}
+	if f.target != "" {
+		if err := need("target ", f.target); err != nil {
+			return nil, nil, err
+		}
+	}
+	if f.weight != "" {
+		if err := need("weight ", f.weight); err != nil {
+			return nil, nil, err
+		}
+	}
+	for _, name := range []string{f.timeColumn, f.segment} {
+		if name != "" {
+			if _, ok := byName[name]; !ok {
+				return nil, nil, fmt.Errorf("%s: column %q does not exist; columns are %s", what, name, columnList(described))
+			}
+		}
+	}
+	var cols []string
+	var skipped []skippedColumn
+	if len(f.columns) > 0 {
+		seen := map[string]bool{}
+		for _, name := range f.columns {
+			name = strings.TrimSpace(name)
+			if name == "" {
+				continue
+			}
+			if seen[name] {
+				return nil, nil, usagef("--columns names %q twice", name)
+			}
+			seen[name] = true
+			if name == f.target {
+				return nil, nil, usagef("column %q is the target; leave it out of --columns", name)
+			}
+			if err := need("", name); err != nil {
+				return nil, nil, err
+			}
+			cols = append(cols, name)
+		}
+	} else {
+		for _, c := range described {
+			switch {
+			case c.Name == f.target || c.Name == f.weight || c.Name == f.timeColumn || c.Name == f.segment:
+			case usable(c):
+				cols = append(cols, c.Name)
+			default:
+				skipped = append(skipped, skippedColumn{Name: c.Name, Type: c.Type})
+			}
+		}
+	}
+	if len(cols) == 0 {
+		return nil, nil, fmt.Errorf("%s: no numeric columns to examine; columns are %s", what, columnList(described))
+	}
+	if f.target != "" {
+		cols = append(cols, f.target)
+	}
+	return cols, skipped, nil
+}
+
+func columnList(cols []connectors.Column) string {
+	names := make([]string, len(cols))
+	for i, c := range cols {
+		names[i] = fmt.Sprintf("%s (%s)", c.Name, c.Type)
+	}
+	if len(names) == 0 {
+		return "none"
+	}
+	return strings.Join(names, ", ")
+}

@@ -1,0 +1,188 @@
+package main
+
+import (
+	"fmt"
+	"io"
+	"math"
+	"strings"
+	"text/tabwriter"
+
+	"plumb/diagnostics"
+)
+
+// writeText prints the scan report for a person.
+func writeText(w io.Writer, out *scanOutput) error {
+	var b strings.Builder
+	r := out.Report
+	what := out.Table
+	if what == "" {
+		what = "query"
+	}
+	fmt.Fprintf(&b, "plumb scan of %s in %s\n", what, out.Source)
+	fmt.Fprintf(&b, "rows used %d, dropped %d", r.RowsUsed, r.RowsDropped)
+	if out.Sampled {
+		b.WriteString(" (sampled)")
+	}
+	b.WriteString("\n")
+	if r.RowsDropped > 0 {
+		var parts []string
+		for _, c := range r.Columns {
+			if n := r.DroppedBy[c.Name]; n > 0 {
+				parts = append(parts, fmt.Sprintf("%s %d", c.Name, n))
+			}
+		}
+		if n := r.DroppedBy[out.Target]; out.Target != "" && n > 0 {
+			parts = append(parts, fmt.Sprintf("%s %d", out.Target, n))
+		}
+		if len(parts) > 0 {
+			fmt.Fprintf(&b, "  rows with NULL, NaN or ±Inf by column: %s\n", strings.Join(parts, ", "))
+		}
+	}
+	if len(out.Skipped) > 0 {
+		var parts []string
+		for _, s := range out.Skipped {
+			parts = append(parts, fmt.Sprintf("%s (%s)", s.Name, s.Type))
+		}
+		fmt.Fprintf(&b, "skipped non-numeric columns: %s\n", strings.Join(parts, ", "))
+	}
+	for name, n := range out.Inexact {
+		fmt.Fprintf(&b, "warning: %d values of %s have more digits than float64 holds; they were rounded\n", n, name)
+	}
+	fmt.Fprintf(&b, "numerical path: %s", r.Path)
+	if !r.Trust.Trustworthy {
+		fmt.Fprintf(&b, " (not trustworthy: %s)", r.Trust.Reason)
+	}
+	b.WriteString("\n\n")
+
+	b.WriteString("Columns\n")
+	tw := tabwriter.NewWriter(&b, 2, 4, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintln(tw, "column\tVIF\ttolerance\tR² on others\tSE ×\t\t")
+	for _, c := range r.Columns {
+		note := ""
+		switch {
+		case c.Constant:
+			note = "constant"
+		case c.NearConstant:
+			note = "nearly constant"
+		case c.Undefined != "":
+			note = c.Undefined
+		case c.VIF != nil && *c.VIF > out.Limits.VIF:
+			note = "redundant"
+		case c.VIF != nil && *c.VIF > 5:
+			note = "worth a look"
+		}
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t\n", c.Name, num(c.VIF, "%.4g"), num(c.Tolerance, "%.4g"), num(c.R2, "%.6f"), num(c.SEInflation, "%.3g"), note)
+	}
+	tw.Flush()
+
+	fmt.Fprintf(&b, "\nCondition number %.4g (intercept included, columns scaled to unit length); %.4g centered\n", r.ConditionNumber, r.CenteredConditionNumber)
+	fmt.Fprintf(&b, "rank of [1 X]: %d of %d\n", r.Rank, len(r.Columns)+1)
+
+	var exact, near []diagnostics.Dependency
+	for _, d := range r.Dependencies {
+		if d.Kind == "exact" {
+			exact = append(exact, d)
+		} else {
+			near = append(near, d)
+		}
+	}
+	if len(exact) > 0 {
+		b.WriteString("\nExact linear dependencies (X'X is singular: OLS cannot separate these columns)\n")
+		for _, d := range exact {
+			fmt.Fprintf(&b, "  %s\n", d.Equation)
+		}
+	}
+	if len(near) > 0 {
+		b.WriteString("\nNear dependencies (condition index above the limit; variance-decomposition proportions)\n")
+		for _, d := range near {
+			var parts []string
+			for _, c := range d.Columns {
+				parts = append(parts, fmt.Sprintf("%s %.2f", c, d.Proportions[c]))
+			}
+			fmt.Fprintf(&b, "  index %.4g: %s\n", d.ConditionIndex, strings.Join(parts, ", "))
+		}
+	}
+	if len(r.GVIF) > 0 {
+		b.WriteString("\nGroups (generalized VIF)\n")
+		tw = tabwriter.NewWriter(&b, 2, 4, 2, ' ', tabwriter.AlignRight)
+		fmt.Fprintln(tw, "group\tcolumns\tGVIF\tGVIF^(1/2df)\t")
+		for _, g := range r.GVIF {
+			fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t\n", g.Name, len(g.Columns), num(g.GVIF, "%.4g"), num(g.Scaled, "%.4g"))
+		}
+		tw.Flush()
+	}
+	if reg := r.Regression; reg != nil {
+		fmt.Fprintf(&b, "\nOLS of %s: R² %.6f, sigma %.6g on %d degrees of freedom\n", out.Target, reg.R2, reg.Sigma, reg.DF)
+		tw = tabwriter.NewWriter(&b, 2, 4, 2, ' ', tabwriter.AlignRight)
+		fmt.Fprintln(tw, "term\testimate\tstd error\tt\t")
+		for _, c := range reg.Coefficients {
+			fmt.Fprintf(tw, "%s\t%.6g\t%.4g\t%.3f\t\n", c.Name, c.Estimate, c.StdError, c.T)
+		}
+		tw.Flush()
+		b.WriteString("\nWhy each coefficient's variance is what it is: Var(b_j) = sigma² / (SST_j · (1 − R_j²))\n")
+		for _, s := range reg.Attribution {
+			fmt.Fprintf(&b, "  %s: mostly %s — %s\n", s.Name, s.Dominant, s.Remedy)
+		}
+	}
+	if len(r.SuggestedDrops) > 0 {
+		fmt.Fprintf(&b, "\nDropping %s would bring every VIF under %g.\n", strings.Join(r.SuggestedDrops, ", "), out.Limits.VIF)
+		if r.DropCaution != "" {
+			fmt.Fprintf(&b, "  %s\n", r.DropCaution)
+		}
+	}
+	if len(out.Groups) > 0 {
+		b.WriteString("\nBy group\n")
+		tw = tabwriter.NewWriter(&b, 2, 4, 2, ' ', 0)
+		fmt.Fprintln(tw, "bucket\tsegment\trows\tcondition\tmax VIF\trank\tnote")
+		for _, g := range out.Groups {
+			if g.Report == nil {
+				fmt.Fprintf(tw, "%s\t%s\t\t\t\t\t%s\n", g.Bucket, g.Segment, g.Error)
+				continue
+			}
+			gr := g.Report
+			fmt.Fprintf(tw, "%s\t%s\t%d\t%.4g\t%s\t%d\t%s\n", g.Bucket, g.Segment, gr.RowsUsed, gr.ConditionNumber, maxVIF(gr), gr.Rank, groupNote(gr))
+		}
+		tw.Flush()
+	}
+	fmt.Fprintf(&b, "\n%s\n", out.Caution)
+	_, err := io.WriteString(w, b.String())
+	return err
+}
+
+func num(v *float64, format string) string {
+	if v == nil {
+		return "—"
+	}
+	if math.IsInf(*v, 1) {
+		return "∞"
+	}
+	return fmt.Sprintf(format, *v)
+}
+
+func maxVIF(r *diagnostics.Report) string {
+	best := math.Inf(-1)
+	for _, c := range r.Columns {
+		if c.VIF != nil && *c.VIF > best {
+			best = *c.VIF
+		}
+	}
+	if math.IsInf(best, -1) {
+		return "—"
+	}
+	return fmt.Sprintf("%.4g", best)
+}
+
+func groupNote(r *diagnostics.Report) string {
+	var notes []string
+	for _, c := range r.Columns {
+		if c.Constant {
+			notes = append(notes, c.Name+" constant")
+		}
+	}
+	for _, d := range r.Dependencies {
+		if d.Kind == "exact" && d.Dependent != "" && len(d.Coefficients) > 0 {
+			notes = append(notes, d.Equation)
+		}
+	}
+	return strings.Join(notes, "; ")
+}
