@@ -6,6 +6,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"io"
 	"os"
 	"os/signal"
 	"syscall"
@@ -18,8 +19,9 @@ import (
 // Exit codes. 0, 1 and 2 are reserved for verdicts (ok, warning,
 // critical) of the commands that judge; errors use the codes below.
 const (
-	exitError = 3  // the job could not be done: bad data, unreachable source, …
-	exitUsage = 64 // the command line is wrong
+	exitError    = 3  // the job could not be done: bad data, unreachable source, …
+	exitUsage    = 64 // the command line is wrong
+	exitInternal = 70 // a bug in plumb
 )
 
 // usageError marks errors in the command line itself.
@@ -38,12 +40,27 @@ type exitCoder interface{ ExitCode() int }
 func main() {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
-	os.Exit(run(ctx, os.Args[1:]))
+	os.Exit(run(ctx, os.Args[1:], os.Stdout, os.Stderr))
 }
 
-func run(ctx context.Context, args []string) int {
+// run executes the command line args and returns the exit status; errors
+// are printed to stderr as one line.
+func run(ctx context.Context, args []string, stdout, stderr io.Writer) (code int) {
+	defer func() {
+		// A panic is a bug in plumb; the operator gets one line, the
+		// developer the stack with PLUMB_DEBUG=1.
+		if p := recover(); p != nil {
+			if os.Getenv("PLUMB_DEBUG") != "" {
+				panic(p)
+			}
+			fmt.Fprintf(stderr, "plumb: internal error: %v (run with PLUMB_DEBUG=1 for details and report it)\n", p)
+			code = exitInternal
+		}
+	}()
 	root := newRoot()
 	root.SetArgs(args)
+	root.SetOut(stdout)
+	root.SetErr(stderr)
 	err := root.ExecuteContext(ctx)
 	if err == nil {
 		return 0
@@ -51,14 +68,14 @@ func run(ctx context.Context, args []string) int {
 	var ec exitCoder
 	if errors.As(err, &ec) {
 		if msg := err.Error(); msg != "" {
-			fmt.Fprintln(os.Stderr, "plumb:", msg)
+			fmt.Fprintln(stderr, "plumb:", msg)
 		}
 		return ec.ExitCode()
 	}
-	fmt.Fprintln(os.Stderr, "plumb:", err)
+	fmt.Fprintln(stderr, "plumb:", err)
 	var ue usageError
 	if errors.As(err, &ue) {
-		fmt.Fprintln(os.Stderr, "Run 'plumb --help' for usage.")
+		fmt.Fprintln(stderr, "Run 'plumb --help' for usage.")
 		return exitUsage
 	}
 	return exitError

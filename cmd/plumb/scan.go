@@ -3,6 +3,7 @@ package main
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"strings"
@@ -11,6 +12,7 @@ import (
 
 	"plumb/connectors"
 	"plumb/diagnostics"
+	"plumb/stream"
 )
 
 // scanFlags are the flags of `plumb scan`.
@@ -103,7 +105,7 @@ type scanOutput struct {
 	Sampled bool   `json:"sampled"`
 	Read    int64  `json:"rows_read"`
 	*diagnostics.Report
-	Skipped []skippedColumn `json:"skipped_columns"`
+	Skipped []skippedColumn  `json:"skipped_columns"`
 	Inexact map[string]int64 `json:"inexact_values,omitempty"`
 	Groups  []groupOutput    `json:"by_group,omitempty"`
 	Limits  limits           `json:"limits"`
@@ -303,6 +305,9 @@ func scanAndAnalyze(ctx context.Context, src connectors.Source, req connectors.R
 			return nil, nil, err
 		}
 		all := res.Merged()
+		if err := checkRows(all.Moments, res.Read); err != nil {
+			return nil, nil, err
+		}
 		rep, err := diagnostics.Analyze(all.Moments, all.QR, opt)
 		if err != nil {
 			return nil, nil, err
@@ -411,4 +416,26 @@ func columnList(cols []connectors.Column) string {
 		return "none"
 	}
 	return strings.Join(names, ", ")
+}
+
+// checkRows turns an empty or too small scan into an error that says why.
+func checkRows(m *stream.Moments, read int64) error {
+	c := m.Counts()
+	p := m.P()
+	switch {
+	case read == 0 && c.Used == 0 && c.Dropped == 0:
+		return errors.New("no rows to examine (the table or query returned none)")
+	case c.Used == 0:
+		var parts []string
+		missing := c.Missing(nil)
+		for j, n := range missing {
+			if n > 0 {
+				parts = append(parts, fmt.Sprintf("%s in %d", m.Names()[j], n))
+			}
+		}
+		return fmt.Errorf("all %d rows dropped for NULL, NaN or ±Inf values (%s)", c.Dropped, strings.Join(parts, ", "))
+	case c.Used < int64(p)+1:
+		return fmt.Errorf("only %d usable rows for %d columns; at least %d are needed (%d dropped for missing values)", c.Used, p, p+1, c.Dropped)
+	}
+	return nil
 }

@@ -1,0 +1,281 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"database/sql"
+	"encoding/json"
+	"math"
+	"math/rand/v2"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"plumb/agent/demo"
+)
+
+// runCLI runs plumb with args and returns its exit code, stdout and stderr.
+func runCLI(t *testing.T, args ...string) (int, string, string) {
+	t.Helper()
+	var out, errb bytes.Buffer
+	code := run(context.Background(), args, &out, &errb)
+	return code, out.String(), errb.String()
+}
+
+// sqliteTable writes a table into a new SQLite file and returns its path.
+func sqliteTable(t *testing.T, ddl string, rows [][]any) string {
+	t.Helper()
+	path := filepath.Join(t.TempDir(), "t.db")
+	db, err := sql.Open("sqlite", "file:"+path+"?mode=rwc")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	if _, err := db.Exec(ddl); err != nil {
+		t.Fatal(err)
+	}
+	if len(rows) > 0 {
+		marks := strings.TrimSuffix(strings.Repeat("?,", len(rows[0])), ",")
+		name := strings.Fields(ddl)[2]
+		tx, err := db.Begin()
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, r := range rows {
+			if _, err := tx.Exec("INSERT INTO "+name+" VALUES ("+marks+")", r...); err != nil {
+				t.Fatal(err)
+			}
+		}
+		if err := tx.Commit(); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return path
+}
+
+type scanJSON struct {
+	RowsUsed    int64 `json:"rows_used"`
+	RowsDropped int64 `json:"rows_dropped"`
+	Columns     []struct {
+		Name      string   `json:"name"`
+		VIF       *float64 `json:"vif"`
+		Tolerance *float64 `json:"tolerance"`
+		R2        *float64 `json:"r2"`
+		Constant  bool     `json:"constant"`
+	} `json:"columns"`
+	ConditionNumber         float64   `json:"condition_number"`
+	ConditionIndices        []float64 `json:"condition_indices"`
+	CenteredConditionNumber float64   `json:"centered_condition_number"`
+	Rank                    int       `json:"rank"`
+	Dependencies            []struct {
+		Kind           string             `json:"kind"`
+		Columns        []string           `json:"columns"`
+		Dependent      string             `json:"dependent"`
+		Coefficients   map[string]float64 `json:"coefficients"`
+		Intercept      *float64           `json:"intercept"`
+		Equation       string             `json:"equation"`
+		ConditionIndex float64            `json:"condition_index"`
+		Proportions    map[string]float64 `json:"proportions"`
+	} `json:"dependencies"`
+	Regression *struct {
+		Coefficients []struct {
+			Name     string  `json:"name"`
+			Estimate float64 `json:"estimate"`
+			StdError float64 `json:"std_error"`
+			T        float64 `json:"t"`
+		} `json:"coefficients"`
+		Sigma float64 `json:"sigma"`
+		R2    float64 `json:"r2"`
+	} `json:"regression"`
+	Skipped []struct{ Name, Type string } `json:"skipped_columns"`
+}
+
+func scanJSONOf(t *testing.T, args ...string) scanJSON {
+	t.Helper()
+	code, out, errs := runCLI(t, append([]string{"scan", "--format", "json", "--quiet"}, args...)...)
+	if code != 0 {
+		t.Fatalf("plumb scan %v: exit %d: %s", args, code, errs)
+	}
+	var s scanJSON
+	if err := json.Unmarshal([]byte(out), &s); err != nil {
+		t.Fatalf("plumb scan output is not JSON: %v\n%s", err, out)
+	}
+	return s
+}
+
+func TestScanSampleText(t *testing.T) {
+	code, out, errs := runCLI(t, "scan", "--quiet")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	for _, want := range []string{"rows used 480", "billed_volume_m3", "Condition number", "OLS of demand_m3", "omitted-variable bias"} {
+		if !strings.Contains(out, want) {
+			t.Errorf("report lacks %q:\n%s", want, out)
+		}
+	}
+}
+
+func TestScanSampleJSONContract(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "d.db")
+	if err := demo.Default.WriteSQLite(context.Background(), path); err != nil {
+		t.Fatal(err)
+	}
+	s := scanJSONOf(t, "--db", "sqlite:"+path, "--table", demo.Table, "--target", demo.Target)
+	if s.RowsUsed != int64(demo.Default.Days*len(demo.Default.Districts)) || s.RowsDropped != 0 {
+		t.Errorf("rows used %d dropped %d", s.RowsUsed, s.RowsDropped)
+	}
+	// day and district are text: skipped and listed.
+	if len(s.Skipped) != 2 {
+		t.Errorf("skipped %v, want day and district", s.Skipped)
+	}
+	if len(s.Columns) != 10 {
+		t.Fatalf("%d columns, want the 10 numeric features", len(s.Columns))
+	}
+	vif := map[string]float64{}
+	for _, c := range s.Columns {
+		if c.VIF == nil {
+			t.Fatalf("column %s: VIF null on data without exact dependencies", c.Name)
+		}
+		// Tolerance is the reciprocal of VIF and R² = 1 − tolerance (definition).
+		if math.Abs(*c.Tolerance**c.VIF-1) > 1e-12 || math.Abs(*c.R2-(1-*c.Tolerance)) > 1e-12 {
+			t.Errorf("column %s: vif %v tolerance %v r2 %v inconsistent", c.Name, *c.VIF, *c.Tolerance, *c.R2)
+		}
+		vif[c.Name] = *c.VIF
+	}
+	// The scenario builds billed volume from metered volume, and the total
+	// of connections from its parts: those must be the most inflated.
+	if vif["billed_volume_m3"] < 10 || vif["metered_volume_m3"] < 10 || vif["total_connections"] < 10 {
+		t.Errorf("expected high VIFs for the scenario's near-copies: %v", vif)
+	}
+	if vif["rainfall_mm"] > 5 {
+		t.Errorf("rainfall VIF %v: rainfall is generated independently", vif["rainfall_mm"])
+	}
+	if s.Rank != 11 {
+		t.Errorf("rank %d, want 11 (full rank: the total is exact only from day %d)", s.Rank, demo.Default.ChangeDay)
+	}
+	if len(s.ConditionIndices) != 11 || s.ConditionNumber < s.CenteredConditionNumber {
+		t.Errorf("condition indices %v, number %v, centered %v", s.ConditionIndices, s.ConditionNumber, s.CenteredConditionNumber)
+	}
+	if s.Regression == nil || len(s.Regression.Coefficients) != 11 || s.Regression.Coefficients[0].Name != "(intercept)" {
+		t.Fatalf("regression %+v", s.Regression)
+	}
+}
+
+// TestScanExactDependencyEquation checks the equation of an exact total on
+// the sample's days after the upstream change, where the scenario writes
+// total_connections as the sum of its parts.
+func TestScanExactDependencyEquation(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "d.db")
+	if err := demo.Default.WriteSQLite(context.Background(), path); err != nil {
+		t.Fatal(err)
+	}
+	from := demo.Default.Start.AddDate(0, 0, demo.Default.ChangeDay).Format("2006-01-02")
+	s := scanJSONOf(t, "--db", "sqlite:"+path, "--table", demo.Table, "--where", "day >= '"+from+"'",
+		"--columns", "residential_connections,commercial_connections,total_connections,temperature_c")
+	var found bool
+	for _, d := range s.Dependencies {
+		if d.Kind != "exact" {
+			continue
+		}
+		found = true
+		if d.Dependent != "total_connections" || d.Intercept == nil || math.Abs(*d.Intercept) > 1e-6 ||
+			math.Abs(d.Coefficients["residential_connections"]-1) > 1e-9 || math.Abs(d.Coefficients["commercial_connections"]-1) > 1e-9 {
+			t.Errorf("dependency %+v, want total_connections = 1·residential + 1·commercial + 0", d)
+		}
+		if !strings.HasPrefix(d.Equation, "total_connections = 1·") {
+			t.Errorf("equation %q", d.Equation)
+		}
+	}
+	if !found || s.Rank != 4 {
+		t.Errorf("rank %d, dependencies %+v: want one exact dependency, rank 4 of 5", s.Rank, s.Dependencies)
+	}
+	for _, c := range s.Columns {
+		if c.Name == "temperature_c" && c.VIF == nil {
+			t.Errorf("temperature_c takes no part in the dependency: its VIF must be defined")
+		}
+		if c.Name == "total_connections" && c.VIF != nil {
+			t.Errorf("total_connections VIF %v, want null (exact dependency)", *c.VIF)
+		}
+	}
+}
+
+func TestScanDropsMissingRows(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 7))
+	var rows [][]any
+	for i := 0; i < 50; i++ {
+		a, b := rng.NormFloat64(), rng.NormFloat64()
+		var c any = a + b + rng.NormFloat64()
+		if i%10 == 3 {
+			c = nil
+		}
+		rows = append(rows, []any{a, b, c})
+	}
+	path := sqliteTable(t, "CREATE TABLE readings (a REAL, b REAL, c REAL)", rows)
+	s := scanJSONOf(t, "--db", "sqlite:"+path, "--table", "readings")
+	if s.RowsUsed != 45 || s.RowsDropped != 5 {
+		t.Errorf("used %d dropped %d, want 45 and 5", s.RowsUsed, s.RowsDropped)
+	}
+}
+
+func TestScanErrors(t *testing.T) {
+	good := sqliteTable(t, "CREATE TABLE district_daily (day TEXT, temperature_c REAL, rainfall_mm REAL, pressure_bar REAL)",
+		[][]any{{"2026-06-01", 14.2, 0.0, 3.4}, {"2026-06-02", 15.1, 2.5, 3.5}, {"2026-06-03", 13.0, 0.4, 3.3}})
+	nulls := sqliteTable(t, "CREATE TABLE district_daily (temperature_c REAL, rainfall_mm REAL)",
+		[][]any{{14.2, nil}, {15.1, nil}, {13.0, nil}, {12.0, nil}})
+	empty := sqliteTable(t, "CREATE TABLE district_daily (temperature_c REAL, rainfall_mm REAL)", nil)
+	for _, tc := range []struct {
+		name string
+		args []string
+		code int
+		want []string // substrings of the one error line
+	}{
+		{"missing table", []string{"--db", "sqlite:" + good, "--table", "no_such_table"}, exitError, []string{"no_such_table"}},
+		{"missing column", []string{"--db", "sqlite:" + good, "--table", "district_daily", "--columns", "temperature_c,flow"}, exitError, []string{"district_daily", `"flow"`}},
+		{"text column", []string{"--db", "sqlite:" + good, "--table", "district_daily", "--columns", "temperature_c,day"}, exitError, []string{"district_daily", `"day"`, "TEXT"}},
+		{"too few rows", []string{"--db", "sqlite:" + good, "--table", "district_daily"}, exitError, []string{"district_daily", "rows"}},
+		{"all rows dropped", []string{"--db", "sqlite:" + nulls, "--table", "district_daily"}, exitError, []string{"district_daily", "rainfall_mm"}},
+		{"zero rows", []string{"--db", "sqlite:" + empty, "--table", "district_daily"}, exitError, []string{"district_daily", "rows"}},
+		{"missing database file", []string{"--db", "sqlite:" + filepath.Join(t.TempDir(), "none.db"), "--table", "t"}, exitError, []string{"none.db"}},
+		{"quote in identifier", []string{"--db", "sqlite:" + good, "--table", `district_daily"; DROP TABLE district_daily; --`}, exitError, []string{"DROP TABLE"}},
+		{"bad format", []string{"--db", "sqlite:" + good, "--table", "district_daily", "--format", "xml"}, exitUsage, []string{"--format"}},
+		{"table and query", []string{"--db", "sqlite:" + good, "--table", "a", "--query", "SELECT 1"}, exitUsage, []string{"--table", "--query"}},
+		{"unknown scheme", []string{"--db", "mysql://x/y", "--table", "a"}, exitError, []string{"mysql"}},
+		{"bad group", []string{"--db", "sqlite:" + good, "--table", "district_daily", "--group", "nocolumns"}, exitUsage, []string{"--group"}},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			code, out, errs := runCLI(t, append([]string{"scan", "--quiet"}, tc.args...)...)
+			if code != tc.code {
+				t.Fatalf("exit %d, want %d; stderr: %s", code, tc.code, errs)
+			}
+			if out != "" {
+				t.Errorf("stdout not empty on error: %s", out)
+			}
+			first, _, _ := strings.Cut(errs, "\n")
+			for _, w := range tc.want {
+				if !strings.Contains(first, w) {
+					t.Errorf("error %q lacks %q", first, w)
+				}
+			}
+			if strings.Contains(errs, "goroutine ") || strings.Contains(errs, "panic") {
+				t.Errorf("stack trace on stderr: %s", errs)
+			}
+		})
+	}
+	// The table survives the identifier with DROP TABLE in it.
+	s := scanJSONOf(t, "--db", "sqlite:"+good, "--table", "district_daily", "--columns", "temperature_c")
+	if s.RowsUsed != 3 {
+		t.Errorf("after the hostile identifier the table has %d rows, want 3", s.RowsUsed)
+	}
+}
+
+func TestScanHelp(t *testing.T) {
+	code, out, _ := runCLI(t, "scan", "--help")
+	if code != 0 {
+		t.Fatalf("exit %d", code)
+	}
+	for _, flag := range []string{"--db", "--table", "--query", "--columns", "--target", "--group", "--format"} {
+		if !strings.Contains(out, flag) {
+			t.Errorf("help lacks %s", flag)
+		}
+	}
+}
