@@ -163,6 +163,29 @@ func (c *Counts) clone() Counts {
 	return d
 }
 
+// setOrigin sets the provisional origin from the first k rows of buf (k×p,
+// row-major): the column mean, or the column's value when it is the same in
+// every row, so that a column constant over the whole scan shifts to exact
+// zeros and its co-moments come out exactly zero.
+func setOrigin(origin, buf []float64, k, p int) {
+	clear(origin)
+	for i := 0; i < k; i++ {
+		for j, v := range buf[i*p : i*p+p] {
+			origin[j] += v
+		}
+	}
+	for j := range origin {
+		origin[j] /= float64(k)
+		first, same := buf[j], true
+		for i := 1; i < k && same; i++ {
+			same = buf[i*p+j] == first
+		}
+		if same {
+			origin[j] = first
+		}
+	}
+}
+
 // compact copies the valid rows of b into dst (row-major, p columns), their
 // weights into w (when b is weighted), updates the counts and returns the
 // number of rows kept. dst must hold b.Rows*p values and w b.Rows values.

@@ -274,8 +274,40 @@ func (d *decoder) counts(c *Counts) {
 	d.i64s(c.Null)
 	d.i64s(c.NaN)
 	d.i64s(c.Inf)
-	if d.err == nil && (c.Used < 0 || c.Dropped < 0 || c.BadWeights < 0 || !(c.SumWeights >= 0) || math.IsInf(c.SumWeights, 0)) {
-		d.err = corrupt("negative or non-finite counts")
+	if d.err != nil {
+		return
+	}
+	if c.Used < 0 || c.Dropped < 0 || c.BadWeights < 0 || c.BadWeights > c.Dropped ||
+		!(c.SumWeights >= 0) || math.IsInf(c.SumWeights, 0) || (c.Used == 0 && c.SumWeights != 0) {
+		d.err = corrupt("inconsistent row counts (used %d, weight %g, dropped %d, bad weights %d)",
+			c.Used, c.SumWeights, c.Dropped, c.BadWeights)
+		return
+	}
+	for j := range c.Null {
+		for _, v := range [3]int64{c.Null[j], c.NaN[j], c.Inf[j]} {
+			if v < 0 || v > c.Dropped {
+				d.err = corrupt("column %d: missing-value count %d outside 0..%d dropped rows", j, v, c.Dropped)
+				return
+			}
+		}
+	}
+}
+
+// state checks what the counts imply about the rest: an origin exactly when
+// rows were used, and a finite one.
+func (d *decoder) state(hasOrg bool, c *Counts, origin []float64) {
+	if d.err != nil {
+		return
+	}
+	if hasOrg != (c.Used > 0) {
+		d.err = corrupt("origin flag %v with %d rows used", hasOrg, c.Used)
+		return
+	}
+	for j, v := range origin {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			d.err = corrupt("column %d: non-finite origin %v", j, v)
+			return
+		}
 	}
 }
 
@@ -303,8 +335,19 @@ func UnmarshalMoments(b []byte) (*Moments, error) {
 	d.upper(m.co, p)
 	d.f64s(m.min)
 	d.f64s(m.max)
+	d.state(m.hasOrg, &m.counts, m.origin)
 	if d.err != nil {
 		return nil, d.err
+	}
+	for j := range m.min {
+		lo, hi := m.min[j], m.max[j]
+		if m.counts.Used == 0 {
+			if !math.IsInf(lo, 1) || !math.IsInf(hi, -1) {
+				return nil, corrupt("column %q: extremes %v, %v with no rows used", names[j], lo, hi)
+			}
+		} else if !(lo <= hi) || math.IsInf(lo, 0) || math.IsInf(hi, 0) {
+			return nil, corrupt("column %q: extremes %v, %v", names[j], lo, hi)
+		}
 	}
 	return m, nil
 }
@@ -331,6 +374,7 @@ func UnmarshalQR(b []byte) (*QR, error) {
 	d.counts(&q.counts)
 	d.f64s(q.origin)
 	d.upper(q.r, n)
+	d.state(q.hasOrg, &q.counts, q.origin)
 	if d.err != nil {
 		return nil, d.err
 	}

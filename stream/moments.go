@@ -171,14 +171,7 @@ func (m *Moments) Add(b *Block) {
 	}
 	buf = buf[:k*p]
 	if !m.hasOrg {
-		for i := 0; i < k; i++ {
-			for j, v := range buf[i*p : i*p+p] {
-				m.origin[j] += v
-			}
-		}
-		for j := range m.origin {
-			m.origin[j] /= float64(k)
-		}
+		setOrigin(m.origin, buf, k, p)
 		m.hasOrg = true
 	}
 
@@ -289,11 +282,11 @@ func (m *Moments) Merge(o *Moments) {
 	m.counts.add(&o.counts)
 	m.counts.SumWeights = sw
 	m.counts.Used = used + o.counts.Used
+	if o.hasOrg && !m.hasOrg {
+		copy(m.origin, o.origin)
+		m.hasOrg = true
+	}
 	if o.counts.SumWeights > 0 {
-		if !m.hasOrg {
-			copy(m.origin, o.origin)
-			m.hasOrg = true
-		}
 		// o's mean in m's frame; the origins are close, so their
 		// difference is exact.
 		for j := range m.bmean {

@@ -109,14 +109,7 @@ func (q *QR) Add(b *Block) {
 	}
 	q.counts.Used += int64(k)
 	if !q.hasOrg {
-		for i := 0; i < k; i++ {
-			for j := 0; j < p; j++ {
-				q.origin[j] += buf[i*p+j]
-			}
-		}
-		for j := range q.origin {
-			q.origin[j] /= float64(k)
-		}
+		setOrigin(q.origin, buf, k, p)
 		q.hasOrg = true
 	}
 	rows := n + k
@@ -125,21 +118,25 @@ func (q *QR) Add(b *Block) {
 	}
 	st := q.stack[:rows*n]
 	copy(st[:n*n], q.r)
+	bw := float64(k)
+	if w != nil {
+		bw = 0
+		for _, wi := range w[:k] {
+			bw += wi
+		}
+	}
+	q.counts.SumWeights += bw
 	for i := 0; i < k; i++ {
 		row := st[(n+i)*n : (n+i+1)*n]
 		s := 1.0
 		if w != nil {
 			s = math.Sqrt(w[i])
-			q.counts.SumWeights += w[i]
 		}
 		row[0] = s
 		src := buf[i*p : i*p+p]
 		for j := 0; j < p; j++ {
 			row[j+1] = (src[j] - q.origin[j]) * s
 		}
-	}
-	if w == nil {
-		q.counts.SumWeights += float64(k)
 	}
 	q.refactor(st, rows)
 }
