@@ -1,0 +1,118 @@
+// Package diagnostics computes plumb's multicollinearity diagnostics from
+// the stream accumulators: correlation matrix, VIF, tolerance, R_j² and
+// √VIF per column; eigenvalues and principal components of the
+// correlation matrix; Belsley–Kuh–Welsch condition indices and
+// variance-decomposition proportions in two conventions; exact and near
+// dependencies; generalized VIFs for column groups (Fox & Monette 1992);
+// OLS with the split of each coefficient's variance into its three
+// factors; what-if drops; and a numerical-trust verdict.
+//
+// # Two paths
+//
+// Analyze works from a factor f of the centered co-moment matrix of the
+// chosen columns (fᵀf = Σ w (x − x̄)(x − x̄)ᵀ). On the QR path (q != nil)
+// f is the trailing block of the R factor of [1 X y], re-factored for the
+// chosen columns, so nothing is squared: VIFs are squared row norms of the
+// inverse of the column-scaled R, condition indices come from singular
+// values of the scaled R, and OLS is back substitution. On the
+// cross-product path (q == nil) f is a Cholesky factor of the correlation
+// matrix built from stream.Moments (the eigendecomposition when it is not
+// positive definite), which squares the condition number; the trust
+// verdict says when that costs the requested accuracy.
+//
+// # Constant columns and the correlation matrix
+//
+// A column whose minimum equals its maximum is constant; a column whose
+// root-mean-square deviation is at most 100·eps times its largest
+// magnitude is near constant (its centered values are rounding). Both get
+// a null VIF with the reason, are reported as an exact dependency
+// "col = value", and are left out of the centered analyses: the
+// correlation matrix gives them 1 on the diagonal and 0 elsewhere, the
+// eigenvalues, principal components and convention (b) omit them. The
+// rank counts them as dependent on the intercept.
+//
+// # Rank and exact dependencies
+//
+// The numerical rank of [1 X] is 1 plus the rank of the centered varying
+// columns, each scaled to unit length (S, with SᵀS the correlation
+// matrix). That is offset-invariant: a column with mean 1e9 and spread 1 is
+// not mistaken for the intercept. The tolerance differs by path:
+//
+//   - QR path: singular value σ_k of S counts as zero when
+//     σ_k ≤ 1000·p·eps·σ₁ (p varying columns; about 2.2e-12·σ₁ for p = 10):
+//     the factor is backward stable, so its singular values are good to a
+//     small multiple of p·eps·σ₁.
+//   - Cross-product path: eigenvalue λ_k = σ_k² of the correlation matrix
+//     counts as zero when λ_k ≤ 1000·p·eps·λ₁, i.e. σ_k ≤ √(1000·p·eps)·σ₁
+//     (about 1.5e-6·σ₁ for p = 10): rounding of the cross-products leaves
+//     eigenvalues uncertain by a small multiple of p·eps·λ₁.
+//
+// Report.RankTolerance is the relative singular-value tolerance used.
+// The null space (trailing right singular vectors of S) is reduced by
+// Gauss–Jordan elimination with complete pivoting: each equation's
+// dependent column is the one with the largest remaining standardized
+// component, expressed by columns that are not dependents, so that several
+// independent dependencies are reported separately. Standardized
+// coefficients below 1e-6 are dropped; the rest are refined by least
+// squares of the dependent column on its terms and converted to original
+// units, with the intercept x̄_d − Σ b_j x̄_j (set to 0 when below 1e-9 of
+// the magnitude of the terms it balances). Columns of an exact dependency
+// get a null VIF ("exact dependency"); the other columns' VIFs are
+// computed on the maximal independent subset (the columns that are not
+// dependents), which spans the same space.
+//
+// # Condition indices
+//
+// Convention (a) is the uncentered design [1 X], each column scaled to unit
+// length, built as [[√W, √W·x̄ᵀ], [0, f]]; the headline ConditionNumber is
+// its largest index. Convention (b) is S. Singular values are floored at
+// σ₁·eps, so a singular design reports an index of 1/eps, never +Inf.
+// Near dependencies are the indices of (a) above CondLimit, other than the
+// (p + 1 − rank) largest which are the exact dependencies, with at least
+// two proportions above PropLimit ("(intercept)" can be one of them).
+//
+// # What-if drops
+//
+// Dropping a column k outside every exact dependency updates the other
+// VIFs by the Schur-complement identity on P = (SᵀS)⁻¹: VIF_j becomes
+// P_jj − P_jk²/P_kk (relative rounding about eps·P_jj/result). Dropping a
+// column of an exact dependency reruns the analysis without it. The
+// suggested drops are greedy: constant columns, then, while an exact
+// dependency remains, the column of one whose removal leaves the fewest
+// undefined and over-limit VIFs and the smallest largest VIF, then the same
+// for VIFs over the limit. Every suggestion carries the omitted-variable
+// bias caution.
+//
+// # Variance split
+//
+// With a target, Var(b_j) = σ²/(SST_j·(1 − R_j²)). Each factor is compared
+// with a reference and given a severity that is 1 at its alarm level:
+//
+//   - poor fit: (σ²/Var(y)) / 0.5, i.e. half of the target's variance left
+//     unexplained;
+//   - little variation: (0.01/(sd_j/scale_j))², scale_j = max(|min_j|,
+//     |max_j|): a column whose spread is 1% of its own magnitude (the
+//     square, because SST_j enters the variance squared in the spread);
+//   - redundancy: VIF_j/VIFLimit.
+//
+// The largest severity names the dominant cause and its remedy (add the
+// missing explanatory variables; widen the sample so that the column
+// varies; drop or combine the redundant columns, with the omitted-variable
+// bias caution). These levels are the package's own rule, not a published
+// one. Without an intercept SST_j and R_j² are uncentered.
+//
+// # Numerical trust
+//
+// With κ the 2-norm condition number of the scaled centered regressors
+// (independent subset) and κ_y that of the regressors with the target:
+//
+//   - cross-product path: the estimated condition of the scaled XᵀX is
+//     max(κ, κ_y)², and the expected relative error of coefficients,
+//     standard errors, residual SD and VIFs is that times eps;
+//   - QR path: the estimated condition is κ, and the expected relative
+//     error eps·(κ + κ²·tanθ) (Wedin's bound for least squares,
+//     tanθ = ‖r‖/‖ŷ‖), or κ·eps without a target.
+//
+// The verdict is trustworthy when −log10 of the expected error is at least
+// RequiredDigits (7).
+package diagnostics

@@ -1,0 +1,185 @@
+package diagnostics
+
+import (
+	"fmt"
+	"math"
+)
+
+// Reference levels of the dominant-cause rule (see the package
+// documentation). Each severity is 1 at its alarm level.
+const (
+	fitAlarm       = 0.5  // σ² at half the target's variance
+	variationAlarm = 0.01 // spread at 1% of the column's magnitude
+)
+
+// regression fits the target on the estimable regressors by back
+// substitution in the R factor of [X y] (centered, or uncentered without
+// an intercept), never forming XᵀX.
+func (rep *Report) regression(d *design, c *collin, opt Options) {
+	y := d.k
+	tname := d.names[y]
+	if d.constant[y] || d.nearConst[y] {
+		rep.Notes = append(rep.Notes, fmt.Sprintf("target %q does not vary: no regression fitted", tname))
+		return
+	}
+	fit := c.indep
+	reg := &Regression{Target: tname, Intercept: !opt.NoIntercept, Coefficients: []Coefficient{}, Attribution: []VarianceSplit{}}
+	inFit := map[int]bool{}
+	for _, j := range fit {
+		inFit[j] = true
+	}
+	for _, j := range c.cols {
+		if !inFit[j] {
+			reg.NotEstimable = append(reg.NotEstimable, d.names[j])
+		}
+	}
+	p := len(fit)
+	cols := append(append([]int(nil), fit...), y)
+	var t dense
+	var sst []float64 // per fit column: the sum of squares the variance divides by
+	var syy float64
+	if opt.NoIntercept {
+		// The uncentered factor [[√W, √W·x̄ᵀ], [0, f]] without its first
+		// column, re-factored: the R factor of [X y].
+		g := newDense(d.f.r+1, len(cols))
+		for a, j := range cols {
+			g.set(0, a, d.row0[j])
+			for i := 0; i < d.f.r; i++ {
+				g.set(i+1, a, d.f.at(i, j))
+			}
+		}
+		t = qrR(g)
+		for a := range cols {
+			nrm := g.colNorm(a)
+			if a < p {
+				sst = append(sst, nrm*nrm)
+				if t.at(a, a) <= d.rankTol(p)*nrm {
+					rep.Notes = append(rep.Notes, fmt.Sprintf("without an intercept the columns are rank deficient at %q: no regression fitted", d.names[fit[a]]))
+					return
+				}
+			} else {
+				syy = nrm * nrm
+			}
+		}
+	} else {
+		t = qrR(d.f.cols(cols, nil))
+		for _, j := range fit {
+			sst = append(sst, d.sst[j])
+		}
+		syy = d.sst[y]
+	}
+	tx := newDense(p, p)
+	rhs := make([]float64, p)
+	for i := 0; i < p; i++ {
+		rhs[i] = t.at(i, p)
+		for j := i; j < p; j++ {
+			tx.set(i, j, t.at(i, j))
+		}
+	}
+	b := backSolve(tx, rhs)
+	ssr := t.at(p, p) * t.at(p, p)
+	df := int(d.n) - p
+	if !opt.NoIntercept {
+		df--
+	}
+	reg.DF = df
+	reg.Sigma2 = ssr / float64(df)
+	reg.Sigma = math.Sqrt(reg.Sigma2)
+	reg.R2 = 1 - ssr/syy
+	tinv := triInv(tx)
+	if !opt.NoIntercept {
+		// b₀ = ȳ − Σ b_j x̄_j; Var(b₀) = σ²(1/W + ‖T⁻ᵀx̄‖²), a sum of
+		// positive terms.
+		b0 := d.mean[y]
+		z := make([]float64, p)
+		for a, j := range fit {
+			b0 -= b[a] * d.mean[j]
+			for i := a; i < p; i++ {
+				z[i] += tinv.at(a, i) * d.mean[j] // (T⁻ᵀx̄)_i
+			}
+		}
+		v0 := 1 / d.w
+		for _, zi := range z {
+			v0 += zi * zi
+		}
+		se := reg.Sigma * math.Sqrt(v0)
+		reg.Coefficients = append(reg.Coefficients, Coefficient{Name: InterceptName, Estimate: b0, StdError: se, T: tstat(b0, se)})
+	}
+	varY := d.sd(y) * d.sd(y)
+	for a, j := range fit {
+		inv := tinv.rowNorm2(a)
+		se := reg.Sigma * math.Sqrt(inv)
+		reg.Coefficients = append(reg.Coefficients, Coefficient{Name: d.names[j], Estimate: b[a], StdError: se, T: tstat(b[a], se)})
+		reg.Attribution = append(reg.Attribution, splitVariance(d, c, j, reg.Sigma2, sst[a], inv, varY, opt))
+	}
+	rep.Regression = reg
+}
+
+func tstat(b, se float64) float64 {
+	if se == 0 {
+		return 0
+	}
+	return b / se
+}
+
+// splitVariance names the dominant cause of Var(b_j) = σ²·inv, where
+// inv = 1/(SST_j·(1 − R_j²)).
+func splitVariance(d *design, c *collin, j int, sigma2, sst, inv, varY float64, opt Options) VarianceSplit {
+	name := d.names[j]
+	omr := 1 / (sst * inv)
+	vs := VarianceSplit{
+		Name: name, Sigma2: sigma2, SST: sst, OneMinusR2: omr,
+		Variance: sigma2 * inv, VIF: 1 / omr,
+	}
+	if varY > 0 {
+		vs.FitSeverity = sigma2 / varY / fitAlarm
+	}
+	scale := math.Max(math.Abs(d.min[j]), math.Abs(d.max[j]))
+	rel := d.sd(j) / scale
+	vs.VariationSeverity = (variationAlarm / rel) * (variationAlarm / rel)
+	vs.RedundancySeverity = vs.VIF / opt.VIFLimit
+	switch {
+	case vs.RedundancySeverity >= vs.VariationSeverity && vs.RedundancySeverity >= vs.FitSeverity:
+		vs.Dominant = CauseRedundancy
+		vs.Remedy = fmt.Sprintf("VIF %.3g: %s largely repeats other columns (R² %.4g on them%s); drop or combine the columns that measure the same thing, or replace the correlated block by its principal components",
+			vs.VIF, name, 1-omr, closest(d, c, j))
+		vs.Caution = DropCaution
+	case vs.VariationSeverity >= vs.FitSeverity:
+		vs.Dominant = CauseLittleVariation
+		vs.Remedy = fmt.Sprintf("%s varies by only %.3g%% of its magnitude: widen the sample (more districts, seasons or operating conditions) so that it varies", name, 100*rel)
+	default:
+		vs.Dominant = CausePoorFit
+		vs.Remedy = fmt.Sprintf("σ² is %.3g of the target's variance: add the relevant explanatory variables that are missing", vs.FitSeverity*fitAlarm)
+	}
+	return vs
+}
+
+// closest names the varying column most correlated with j.
+func closest(d *design, c *collin, j int) string {
+	a := -1
+	for i, v := range c.vary {
+		if v == j {
+			a = i
+		}
+	}
+	if a < 0 {
+		return ""
+	}
+	best, br := -1, 0.0
+	for b, v := range c.vary {
+		if v == j {
+			continue
+		}
+		r := 0.0
+		for t := 0; t < c.s.r; t++ {
+			r += c.s.at(t, a) * c.s.at(t, b)
+		}
+		if math.Abs(r) > math.Abs(br) {
+			best, br = b, r
+		}
+	}
+	if best < 0 {
+		return ""
+	}
+	return fmt.Sprintf("; most correlated with %s, r = %.4f", d.names[c.vary[best]], br)
+}

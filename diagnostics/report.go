@@ -1,0 +1,238 @@
+package diagnostics
+
+// Options selects the columns to analyze and the limits used to flag them.
+type Options struct {
+	// Target is the name of the target column ("" = none). It must be a
+	// column of the accumulators.
+	Target string
+	// Columns are the regressors, in order; nil means every accumulator
+	// column except Target.
+	Columns []string
+	// Groups are declared column groups for the generalized VIF
+	// (group name -> columns).
+	Groups map[string][]string
+	// VIFLimit flags a VIF at or above it (default 10, common practice).
+	VIFLimit float64
+	// CondLimit flags a condition index above it (default 30, common
+	// practice after Belsley, Kuh & Welsch).
+	CondLimit float64
+	// PropLimit is the variance-decomposition proportion above which a
+	// column takes part in a near dependency (default 0.5, BKW).
+	PropLimit float64
+	// NoIntercept fits the regression without an intercept. The
+	// collinearity diagnostics still describe the design [1 X].
+	NoIntercept bool
+}
+
+// Default limits (common practice).
+const (
+	DefaultVIFLimit  = 10
+	DefaultCondLimit = 30
+	DefaultPropLimit = 0.5
+)
+
+// InterceptName names the intercept in proportions and coefficients.
+const InterceptName = "(intercept)"
+
+// Path names.
+const (
+	PathCrossProduct = "cross-product"
+	PathQR           = "qr"
+)
+
+// Reasons a VIF is undefined (ColumnReport.Undefined).
+const (
+	UndefinedConstant     = "constant"
+	UndefinedNearConstant = "near constant"
+	UndefinedExact        = "exact dependency"
+)
+
+// Dominant causes of a large coefficient variance (VarianceSplit.Dominant).
+const (
+	CausePoorFit         = "poor fit"
+	CauseLittleVariation = "little variation"
+	CauseRedundancy      = "redundancy"
+)
+
+// Report is the result of Analyze. Its JSON form is an outside contract.
+type Report struct {
+	RowsUsed    int64            `json:"rows_used"`
+	RowsDropped int64            `json:"rows_dropped"`
+	DroppedBy   map[string]int64 `json:"dropped_by_column"`
+	Path        string           `json:"path"`
+	Trust       Trust            `json:"numerical_trust"`
+	Columns     []ColumnReport   `json:"columns"`
+
+	// Correlation is the correlation matrix of the regressors in the
+	// order of Columns. A constant or near-constant column has 1 on the
+	// diagonal and 0 elsewhere in its row and column (its correlations
+	// are undefined; the entry is never null or NaN).
+	Correlation [][]float64 `json:"correlation"`
+	// Eigenvalues of the correlation matrix of the columns that vary
+	// (EigenNames), in descending order.
+	Eigenvalues []float64   `json:"eigenvalues"`
+	EigenNames  []string    `json:"eigen_names"`
+	Components  []Component `json:"principal_components"`
+
+	// Convention (a): the uncentered design [1 X], each column scaled to
+	// unit length.
+	ConditionNumber  float64     `json:"condition_number"`
+	ConditionIndices []float64   `json:"condition_indices"` // ascending
+	Proportions      [][]float64 `json:"proportions"`       // [dimension][variable], dimensions as ConditionIndices
+	ProportionNames  []string    `json:"proportion_names"`  // "(intercept)" first
+	// Convention (b): the centered columns that vary, scaled to unit
+	// length, no intercept.
+	CenteredConditionNumber  float64     `json:"centered_condition_number"`
+	CenteredConditionIndices []float64   `json:"centered_condition_indices"`
+	CenteredProportions      [][]float64 `json:"centered_proportions"`
+	CenteredProportionNames  []string    `json:"centered_proportion_names"`
+
+	Rank          int          `json:"rank"` // numerical rank of [1 X]
+	RankTolerance float64      `json:"rank_tolerance"`
+	Dependencies  []Dependency `json:"dependencies"`
+
+	GVIF           []GroupReport `json:"groups,omitempty"`
+	WhatIf         []DropReport  `json:"what_if"`
+	SuggestedDrops []string      `json:"suggested_drops"`
+	DropCaution    string        `json:"drop_caution,omitempty"`
+
+	Regression *Regression `json:"regression,omitempty"`
+
+	// Notes are remarks that did not stop the analysis (a constant
+	// target, a regression that could not be fitted).
+	Notes []string `json:"notes,omitempty"`
+}
+
+// Trust is the numerical-trust verdict of the path used.
+type Trust struct {
+	Trustworthy bool `json:"trustworthy"`
+	// EstimatedCondition is the 2-norm condition number the verdict rests
+	// on: of the scaled centered cross-product matrix on the
+	// cross-product path, of the scaled centered design on the QR path.
+	EstimatedCondition float64 `json:"estimated_condition"`
+	// ExpectedDigits is the number of correct significant digits the
+	// path can promise for coefficients and VIFs: −log10(cond·eps).
+	ExpectedDigits float64 `json:"expected_digits"`
+	Reason         string  `json:"reason"`
+}
+
+// ColumnReport describes one regressor.
+type ColumnReport struct {
+	Name         string   `json:"name"`
+	VIF          *float64 `json:"vif"`
+	Tolerance    *float64 `json:"tolerance"`
+	R2           *float64 `json:"r2"`
+	SEInflation  *float64 `json:"se_inflation"` // √VIF
+	Constant     bool     `json:"constant"`
+	NearConstant bool     `json:"near_constant"`
+	Undefined    string   `json:"vif_undefined,omitempty"`
+	Mean         float64  `json:"mean"`
+	SD           float64  `json:"sd"`
+	Min          float64  `json:"min"`
+	Max          float64  `json:"max"`
+	Dropped      int64    `json:"dropped"`
+	OverLimit    bool     `json:"over_limit"` // VIF ≥ VIFLimit, or undefined
+}
+
+// Component is one principal component of the correlation matrix.
+type Component struct {
+	Eigenvalue    float64   `json:"eigenvalue"`
+	VarianceShare float64   `json:"variance_share"`
+	Cumulative    float64   `json:"cumulative"`
+	Names         []string  `json:"names"`
+	Loadings      []float64 `json:"loadings"` // unit eigenvector; largest |entry| positive
+}
+
+// Dependency is an exact or a near linear dependency among the columns.
+type Dependency struct {
+	Kind    string   `json:"kind"` // "exact" or "near"
+	Columns []string `json:"columns"`
+
+	// Exact: Dependent = Σ Coefficients[c]·c + Intercept, original units.
+	Dependent    string             `json:"dependent,omitempty"`
+	Coefficients map[string]float64 `json:"coefficients,omitempty"`
+	Intercept    *float64           `json:"intercept,omitempty"`
+	Equation     string             `json:"equation,omitempty"`
+
+	// Near: a condition index of convention (a) above the limit and the
+	// proportions above PropLimit.
+	ConditionIndex float64            `json:"condition_index,omitempty"`
+	Proportions    map[string]float64 `json:"proportions,omitempty"`
+}
+
+// Dependency kinds.
+const (
+	KindExact = "exact"
+	KindNear  = "near"
+)
+
+// GroupReport is the generalized VIF of a declared group of columns.
+type GroupReport struct {
+	Name    string   `json:"name"`
+	Columns []string `json:"columns"`
+	DF      int      `json:"df"`
+	GVIF    *float64 `json:"gvif"`
+	// GVIFAdjusted is GVIF^(1/(2·df)), comparable with √VIF.
+	GVIFAdjusted *float64 `json:"gvif_adjusted"`
+	Undefined    string   `json:"gvif_undefined,omitempty"`
+}
+
+// DropReport gives the VIFs of the other columns after one column is
+// dropped.
+type DropReport struct {
+	Dropped string    `json:"dropped"`
+	Columns []DropVIF `json:"columns"`
+	MaxVIF  *float64  `json:"max_vif"`         // over the defined VIFs; null when none
+	AllOK   bool      `json:"all_below_limit"` // every VIF defined and below VIFLimit
+}
+
+// DropVIF is one column's VIF in a what-if.
+type DropVIF struct {
+	Name      string   `json:"name"`
+	VIF       *float64 `json:"vif"`
+	Undefined string   `json:"vif_undefined,omitempty"`
+}
+
+// Regression is the OLS fit of the target on the regressors.
+type Regression struct {
+	Target       string        `json:"target"`
+	Intercept    bool          `json:"intercept"`
+	Coefficients []Coefficient `json:"coefficients"` // intercept first, named "(intercept)"
+	// NotEstimable lists regressors left out of the fit because they are
+	// constant or the dependent column of an exact dependency.
+	NotEstimable []string        `json:"not_estimable,omitempty"`
+	Sigma        float64         `json:"sigma"`
+	Sigma2       float64         `json:"sigma2"`
+	R2           float64         `json:"r2"` // uncentered without an intercept
+	DF           int             `json:"df"`
+	Attribution  []VarianceSplit `json:"variance_split"`
+}
+
+// Coefficient is one estimated coefficient.
+type Coefficient struct {
+	Name     string  `json:"name"`
+	Estimate float64 `json:"estimate"`
+	StdError float64 `json:"std_error"`
+	T        float64 `json:"t"`
+}
+
+// VarianceSplit splits Var(b_j) = σ² / (SST_j·(1 − R_j²)) into its three
+// factors and names the dominant one (see the package documentation for
+// the rule).
+type VarianceSplit struct {
+	Name       string  `json:"name"`
+	Sigma2     float64 `json:"sigma2"`
+	SST        float64 `json:"sst"`
+	OneMinusR2 float64 `json:"one_minus_r2"`
+	Variance   float64 `json:"variance"`
+	VIF        float64 `json:"vif"`
+
+	// The three severities the rule compares; 1 is the alarm level.
+	FitSeverity        float64 `json:"fit_severity"`        // (σ²/Var(y)) / 0.5
+	VariationSeverity  float64 `json:"variation_severity"`  // (0.01 / (sd_j/scale_j))²
+	RedundancySeverity float64 `json:"redundancy_severity"` // VIF_j / VIFLimit
+
+	Dominant string `json:"dominant"`
+	Remedy   string `json:"remedy"`
+	Caution  string `json:"caution,omitempty"`
+}

@@ -1,0 +1,156 @@
+package diagnostics
+
+import "math"
+
+// DropCaution is the omitted-variable-bias caution attached to every drop
+// suggestion.
+const DropCaution = "dropping a column that belongs in the model biases the coefficients of the " +
+	"columns correlated with it (omitted-variable bias): drop only columns that are redundant by " +
+	"construction (a total beside its parts, a copy, a rescaling) or by domain knowledge, or " +
+	"combine them instead"
+
+// whatIf fills the one-column drops and the greedy drop suggestion.
+func (rep *Report) whatIf(d *design, c *collin, opt Options) {
+	rep.WhatIf = []DropReport{}
+	for _, k := range c.cols {
+		res := c.dropVIF(k)
+		dr := DropReport{Dropped: d.names[k], Columns: []DropVIF{}, AllOK: true}
+		maxv := math.Inf(-1)
+		for _, j := range c.cols {
+			if j == k {
+				continue
+			}
+			r := res[j]
+			dv := DropVIF{Name: d.names[j], Undefined: r.why}
+			if r.why == "" {
+				dv.VIF = fptr(r.vif)
+				maxv = math.Max(maxv, r.vif)
+				if r.vif >= opt.VIFLimit {
+					dr.AllOK = false
+				}
+			} else {
+				dr.AllOK = false
+			}
+			dr.Columns = append(dr.Columns, dv)
+		}
+		if !math.IsInf(maxv, -1) {
+			dr.MaxVIF = fptr(maxv)
+		}
+		rep.WhatIf = append(rep.WhatIf, dr)
+	}
+	rep.SuggestedDrops = []string{}
+	for _, j := range greedyDrops(d, c, opt.VIFLimit) {
+		rep.SuggestedDrops = append(rep.SuggestedDrops, d.names[j])
+	}
+	if len(rep.SuggestedDrops) > 0 {
+		rep.DropCaution = DropCaution
+	}
+}
+
+// score ranks an outcome: fewer undefined VIFs, then fewer VIFs over the
+// limit, then a smaller largest VIF.
+type score struct {
+	undefined, over int
+	maxVIF          float64
+}
+
+func (a score) less(b score) bool {
+	if a.undefined != b.undefined {
+		return a.undefined < b.undefined
+	}
+	if a.over != b.over {
+		return a.over < b.over
+	}
+	return a.maxVIF < b.maxVIF
+}
+
+func scoreOf(res map[int]vifResult, limit float64) score {
+	var s score
+	for _, r := range res {
+		switch {
+		case r.why != "":
+			s.undefined++
+		case r.vif >= limit:
+			s.over++
+			s.maxVIF = math.Max(s.maxVIF, r.vif)
+		default:
+			s.maxVIF = math.Max(s.maxVIF, r.vif)
+		}
+	}
+	return s
+}
+
+func (c *collin) all() map[int]vifResult {
+	out := map[int]vifResult{}
+	for _, j := range c.cols {
+		v, why := c.vifOf(j)
+		out[j] = vifResult{v, why}
+	}
+	return out
+}
+
+// greedyDrops returns a small set of columns whose removal leaves every VIF
+// defined and below limit: constant columns first, then, while an exact
+// dependency remains, the column of a dependency whose removal gives the
+// best outcome (each candidate is re-analyzed), then, while a VIF is over
+// the limit, the column whose removal gives the best outcome by the
+// Schur-complement update. Greedy: small, not guaranteed smallest.
+func greedyDrops(d *design, c *collin, limit float64) []int {
+	var drops []int
+	cur := c
+	for len(cur.cols) > 0 {
+		s := scoreOf(cur.all(), limit)
+		if s.undefined == 0 && s.over == 0 {
+			break
+		}
+		var consts []int
+		for _, j := range cur.cols {
+			if d.constant[j] || d.nearConst[j] {
+				consts = append(consts, j)
+			}
+		}
+		if len(consts) > 0 {
+			rest := cur.cols
+			for _, j := range consts {
+				rest = without(rest, j)
+			}
+			drops = append(drops, consts...)
+			cur = analyzeSet(d, rest)
+			continue
+		}
+		best, bestScore := -1, score{}
+		var bestSet *collin
+		if len(cur.deps) > 0 {
+			// Dependents first, so that ties favour them.
+			var cand []int
+			for _, e := range cur.deps {
+				cand = append(cand, e.dep)
+			}
+			for _, j := range cur.cols {
+				if cur.inv[j] && !cur.isDep[j] {
+					cand = append(cand, j)
+				}
+			}
+			for _, j := range cand {
+				o := analyzeSet(d, without(cur.cols, j))
+				sc := scoreOf(o.all(), limit)
+				if best < 0 || sc.less(bestScore) {
+					best, bestScore, bestSet = j, sc, o
+				}
+			}
+		} else {
+			for _, j := range cur.cols {
+				sc := scoreOf(cur.dropVIF(j), limit)
+				if best < 0 || sc.less(bestScore) {
+					best, bestScore = j, sc
+				}
+			}
+		}
+		drops = append(drops, best)
+		if bestSet == nil {
+			bestSet = analyzeSet(d, without(cur.cols, best))
+		}
+		cur = bestSet
+	}
+	return drops
+}
