@@ -1,0 +1,98 @@
+package migrations
+
+import (
+	"context"
+	"database/sql"
+	"errors"
+	"path/filepath"
+	"slices"
+	"strings"
+	"testing"
+
+	_ "modernc.org/sqlite"
+)
+
+func openSQLite(t *testing.T) *sql.DB {
+	t.Helper()
+	path := filepath.Join(t.TempDir(), "state.db")
+	db, err := sql.Open("sqlite", "file:"+path+"?_pragma=busy_timeout(5000)&_pragma=foreign_keys(1)")
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { db.Close() })
+	return db
+}
+
+func TestVariantsHaveTheSameVersions(t *testing.T) {
+	names := func(d Dialect) []string {
+		vs, err := filesOf(d)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return vs
+	}
+	s, p := names(SQLite), names(Postgres)
+	if !slices.Equal(s, p) || len(s) == 0 {
+		t.Fatalf("sqlite migrations %v, postgres %v: want the same files", s, p)
+	}
+	if Latest(SQLite) != Latest(Postgres) || Latest(SQLite) < 1 {
+		t.Fatalf("latest: sqlite %d, postgres %d", Latest(SQLite), Latest(Postgres))
+	}
+}
+
+func TestUpSQLite(t *testing.T) {
+	ctx := context.Background()
+	db := openSQLite(t)
+	testUp(t, ctx, SQLite, db)
+}
+
+// testUp migrates an empty store, checks the tables, migrates again (a
+// no-op), then makes the store look newer than the binary and checks that
+// it is refused.
+func testUp(t *testing.T, ctx context.Context, d Dialect, db *sql.DB) {
+	t.Helper()
+	if err := Check(ctx, d, db); err == nil || !strings.Contains(err.Error(), "plumb migrate") {
+		t.Fatalf("Check on an empty store: %v; want a hint to run plumb migrate", err)
+	}
+	applied, err := Up(ctx, d, db, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(applied) != int(Latest(d)) {
+		t.Fatalf("applied %v, want %d versions", applied, Latest(d))
+	}
+	for _, table := range []string{"plumb_runs", "plumb_points", "plumb_point_columns", "plumb_buckets",
+		"plumb_alerts", "plumb_outbox", "plumb_watch_state", "plumb_lock"} {
+		var n int
+		if err := db.QueryRowContext(ctx, "SELECT count(*) FROM "+table).Scan(&n); err != nil {
+			t.Errorf("table %s: %v", table, err)
+		}
+	}
+	if err := Check(ctx, d, db); err != nil {
+		t.Fatalf("Check after Up: %v", err)
+	}
+	again, err := Up(ctx, d, db, nil)
+	if err != nil || len(again) != 0 {
+		t.Fatalf("second Up applied %v, %v; want nothing", again, err)
+	}
+	// A newer plumb migrated this store.
+	newer := Latest(d) + 1
+	q := "INSERT INTO " + VersionTable + " (version_id, is_applied) VALUES (?, ?)"
+	if d == Postgres {
+		q = "INSERT INTO " + VersionTable + " (version_id, is_applied) VALUES ($1, $2)"
+	}
+	if _, err := db.ExecContext(ctx, q, newer, true); err != nil {
+		t.Fatal(err)
+	}
+	_, err = Up(ctx, d, db, nil)
+	var tooNew *ErrStoreNewer
+	if !errors.As(err, &tooNew) || tooNew.Store != newer || tooNew.Binary != Latest(d) {
+		t.Fatalf("Up on a newer store: %v; want ErrStoreNewer", err)
+	}
+	if !strings.Contains(err.Error(), "newer plumb") {
+		t.Errorf("message %q does not say what happened", err)
+	}
+	if err := Check(ctx, d, db); !errors.As(err, &tooNew) {
+		t.Fatalf("Check on a newer store: %v", err)
+	}
+}
