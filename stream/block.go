@@ -163,55 +163,51 @@ func (c *Counts) clone() Counts {
 	return d
 }
 
-// setOrigin sets the provisional origin from the first k rows of buf (k×p,
-// row-major): the column mean, or the column's value when it is the same in
-// every row, so that a column constant over the whole scan shifts to exact
-// zeros and its co-moments come out exactly zero.
-func setOrigin(origin, buf []float64, k, p int) {
-	clear(origin)
-	for i := 0; i < k; i++ {
-		for j, v := range buf[i*p : i*p+p] {
-			origin[j] += v
-		}
-	}
-	for j := range origin {
-		origin[j] /= float64(k)
-		first, same := buf[j], true
-		for i := 1; i < k && same; i++ {
-			same = buf[i*p+j] == first
-		}
-		if same {
-			origin[j] = first
-		}
-	}
-}
+// expMask selects the exponent bits of a float64; they are all ones exactly
+// for NaN and ±Inf.
+const expMask = 0x7ff0000000000000
 
-// compact copies the valid rows of b into dst (row-major, p columns), their
-// weights into w (when b is weighted), updates the counts and returns the
-// number of rows kept. dst must hold b.Rows*p values and w b.Rows values.
-func compact(b *Block, c *Counts, dst, w []float64) int {
+// gather copies the valid rows of b into the column-major buffer dst: column
+// j of the copy (j = 0..p−1) is dst[(off+j)*ld : (off+j)*ld+k], holding
+// x − origin[j]. It records listwise deletion in c, copies the valid rows'
+// weights into w (when b is weighted), widens lo and hi to the extremes of
+// the raw values (when they are not nil) and returns k, the number of valid
+// rows. dst must hold (off+p)*ld values with ld ≥ b.Rows, and w b.Rows.
+//
+// Writing the columns contiguously lets the accumulators work on whole
+// columns: rank-k updates as dot products, Householder reflections as
+// vector operations.
+func gather(b *Block, c *Counts, origin []float64, dst []float64, ld, off int, w, lo, hi []float64) int {
 	p := b.P
 	k := 0
+	dst = dst[off*ld : (off+p)*ld]
+	origin = origin[:p]
 	for i := 0; i < b.Rows; i++ {
 		row := b.Data[i*p : i*p+p]
-		bad := false
-		if b.Null != nil {
+		// Adding 1 to the exponent field carries into the sign bit
+		// exactly when the field is all ones (NaN or ±Inf): one test for
+		// the whole row, without branches.
+		var acc uint64
+		for _, v := range row {
+			acc |= math.Float64bits(v)&expMask + 1<<52
+		}
+		bad := acc>>63 != 0
+		if b.Null != nil && !bad {
 			for _, isNull := range b.Null[i*p : i*p+p] {
-				bad = bad || isNull
+				if isNull {
+					bad = true
+					break
+				}
 			}
 		}
-		for _, v := range row {
-			// v-v is NaN exactly when v is NaN or ±Inf: one test for both.
-			bad = bad || v-v != 0
-		}
-		weight := 1.0
 		if b.Weight != nil {
-			weight = b.Weight[i]
+			weight := b.Weight[i]
 			if !(weight >= 0) || math.IsInf(weight, 1) {
 				c.BadWeights++
 				c.Dropped++
 				continue
 			}
+			w[k] = weight
 		}
 		if bad {
 			c.Dropped++
@@ -227,11 +223,53 @@ func compact(b *Block, c *Counts, dst, w []float64) int {
 			}
 			continue
 		}
-		copy(dst[k*p:k*p+p], row)
-		if b.Weight != nil {
-			w[k] = weight
+		d := dst[k:]
+		for j, v := range row {
+			d[j*ld] = v - origin[j]
+		}
+		if lo != nil {
+			lo, hi := lo[:p], hi[:p]
+			for j, v := range row {
+				if v < lo[j] {
+					lo[j] = v
+				}
+				if v > hi[j] {
+					hi[j] = v
+				}
+			}
 		}
 		k++
 	}
 	return k
+}
+
+// leading returns the column stride for a column-major copy of rows rows:
+// a whole number of cache lines plus one, so that the columns of a block
+// of 1024 rows do not all map to the same level-1 cache set (a stride of
+// 8 KiB would) when gather writes a row across them.
+func leading(rows int) int { return (rows+7)&^7 + 8 }
+
+// setOrigin sets the provisional origin from the k valid rows held in the
+// column-major buffer (column j at buf[(off+j)*ld:], unshifted): the column
+// mean, or the column's value when it is the same in every row, so that a
+// column constant over the whole scan shifts to exact zeros and its
+// co-moments come out exactly zero. It then shifts the buffer by the
+// origin.
+func setOrigin(origin, buf []float64, ld, off, k int) {
+	for j := range origin {
+		col := buf[(off+j)*ld : (off+j)*ld+k]
+		var s float64
+		same := true
+		for _, v := range col {
+			s += v
+			same = same && v == col[0]
+		}
+		origin[j] = s / float64(k)
+		if same {
+			origin[j] = col[0]
+		}
+		for i := range col {
+			col[i] -= origin[j]
+		}
+	}
 }

@@ -304,8 +304,8 @@ func (d *decoder) state(hasOrg bool, c *Counts, origin []float64) {
 		return
 	}
 	for j, v := range origin {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			d.err = corrupt("column %d: non-finite origin %v", j, v)
+		if math.IsNaN(v) || math.IsInf(v, 0) || (!hasOrg && v != 0) {
+			d.err = corrupt("column %d: origin %v (set %v)", j, v, hasOrg)
 			return
 		}
 	}

@@ -6,6 +6,7 @@ import (
 
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas64"
+	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
 )
 
@@ -153,84 +154,62 @@ func (m *Moments) Reset() {
 // block is taller than any block seen before.
 func (m *Moments) Add(b *Block) {
 	b.check(m.p)
-	p := m.p
-	if cap(m.buf) < b.Rows*p {
-		m.buf = make([]float64, b.Rows*p)
+	p, ld := m.p, leading(b.Rows)
+	if cap(m.buf) < p*ld {
+		m.buf = make([]float64, p*ld)
 	}
-	buf := m.buf[:b.Rows*p]
+	buf := m.buf[:p*ld]
 	var w []float64
 	if b.Weight != nil {
-		if cap(m.w) < b.Rows {
-			m.w = make([]float64, b.Rows)
+		if cap(m.w) < 2*ld {
+			m.w = make([]float64, 2*ld)
 		}
-		w = m.w[:b.Rows]
+		w = m.w[:ld]
 	}
-	k := compact(b, &m.counts, buf, w)
+	if !m.hasOrg {
+		clear(m.origin)
+	}
+	k := gather(b, &m.counts, m.origin, buf, ld, 0, w, m.min, m.max)
 	if k == 0 {
 		return
 	}
-	buf = buf[:k*p]
 	if !m.hasOrg {
-		setOrigin(m.origin, buf, k, p)
+		setOrigin(m.origin, buf, ld, 0, k)
 		m.hasOrg = true
 	}
+	m.counts.Used += int64(k)
 
-	// Block weight and mean.
+	// Block weight, mean and centering, column by column; rows are scaled
+	// by √w so that the rank-k update weights them.
 	bw := float64(k)
+	var sw []float64
 	if w != nil {
-		bw = 0
-		for _, wi := range w[:k] {
-			bw += wi
+		w = w[:k]
+		bw = floats.Sum(w)
+		if bw == 0 {
+			// Rows of weight zero are counted but carry no information.
+			return
+		}
+		sw = m.w[ld : ld+k]
+		for i, wi := range w {
+			sw[i] = math.Sqrt(wi)
 		}
 	}
 	bmean := m.bmean
-	clear(bmean)
-	for i := 0; i < k; i++ {
-		row := buf[i*p : i*p+p]
-		wi := 1.0
-		if w != nil {
-			wi = w[i]
-		}
-		for j, v := range row {
-			if v < m.min[j] {
-				m.min[j] = v
+	for j := 0; j < p; j++ {
+		col := buf[j*ld : j*ld+k]
+		if w == nil {
+			bmean[j] = floats.Sum(col) / bw
+			floats.AddConst(-bmean[j], col)
+		} else {
+			bmean[j] = floats.Dot(w, col) / bw
+			for i, v := range col {
+				col[i] = (v - bmean[j]) * sw[i]
 			}
-			if v > m.max[j] {
-				m.max[j] = v
-			}
-			v -= m.origin[j]
-			row[j] = v
-			bmean[j] += wi * v
 		}
 	}
-	m.counts.Used += int64(k)
-	if bw == 0 {
-		// Rows of weight zero are counted but carry no information.
-		return
-	}
-	for j := range bmean {
-		bmean[j] /= bw
-	}
-	// Center on the block mean and scale by √w.
-	for i := 0; i < k; i++ {
-		row := buf[i*p : i*p+p]
-		s := 1.0
-		if w != nil {
-			s = math.Sqrt(w[i])
-		}
-		for j := range row {
-			row[j] = (row[j] - bmean[j]) * s
-		}
-	}
-	m.foldCentered(buf, k, bw, bmean)
-}
-
-// foldCentered adds the k×p centered block c (weight bw, mean bmean) to the
-// accumulator by the pairwise formula.
-func (m *Moments) foldCentered(c []float64, k int, bw float64, bmean []float64) {
-	p := m.p
 	cs := blas64.Symmetric{Uplo: blas.Upper, N: p, Stride: p, Data: m.co}
-	blas64.Syrk(blas.Trans, 1, blas64.General{Rows: k, Cols: p, Stride: p, Data: c}, 1, cs)
+	blas64.Syrk(blas.NoTrans, 1, blas64.General{Rows: p, Cols: k, Stride: ld, Data: buf}, 1, cs)
 	m.mergeMean(bw, bmean)
 }
 

@@ -4,8 +4,8 @@ import (
 	"fmt"
 	"math"
 
-	"gonum.org/v1/gonum/blas/blas64"
-	"gonum.org/v1/gonum/lapack/lapack64"
+	"gonum.org/v1/gonum/floats"
+	lapackgonum "gonum.org/v1/gonum/lapack/gonum"
 	"gonum.org/v1/gonum/mat"
 )
 
@@ -28,12 +28,9 @@ type QR struct {
 	hasOrg bool
 	r      []float64 // n×n row-major upper triangular
 
-	// scratch
-	buf   []float64
-	w     []float64
-	stack []float64
-	tau   []float64
-	work  []float64
+	// scratch: the block's columns, its weights
+	buf []float64
+	w   []float64
 }
 
 // NewQR returns an empty QR accumulator for the named columns.
@@ -50,7 +47,6 @@ func NewQR(names []string) *QR {
 		counts: newCounts(p),
 		origin: make([]float64, p),
 		r:      make([]float64, n*n),
-		tau:    make([]float64, n),
 	}
 }
 
@@ -91,78 +87,96 @@ func (q *QR) R(dst *mat.TriDense) *mat.TriDense {
 // Add folds a block of rows into the factor.
 func (q *QR) Add(b *Block) {
 	b.check(q.p)
-	p, n := q.p, q.n
-	if cap(q.buf) < b.Rows*p {
-		q.buf = make([]float64, b.Rows*p)
+	n, ld := q.n, leading(b.Rows)
+	if cap(q.buf) < n*ld {
+		q.buf = make([]float64, n*ld)
 	}
-	buf := q.buf[:b.Rows*p]
+	buf := q.buf[:n*ld]
 	var w []float64
 	if b.Weight != nil {
-		if cap(q.w) < b.Rows {
-			q.w = make([]float64, b.Rows)
+		if cap(q.w) < ld {
+			q.w = make([]float64, ld)
 		}
-		w = q.w[:b.Rows]
+		w = q.w[:ld]
 	}
-	k := compact(b, &q.counts, buf, w)
+	if !q.hasOrg {
+		clear(q.origin)
+	}
+	k := gather(b, &q.counts, q.origin, buf, ld, 1, w, nil, nil)
 	if k == 0 {
 		return
 	}
-	q.counts.Used += int64(k)
 	if !q.hasOrg {
-		setOrigin(q.origin, buf, k, p)
+		setOrigin(q.origin, buf, ld, 1, k)
 		q.hasOrg = true
 	}
-	rows := n + k
-	if cap(q.stack) < rows*n {
-		q.stack = make([]float64, rows*n)
-	}
-	st := q.stack[:rows*n]
-	copy(st[:n*n], q.r)
-	bw := float64(k)
-	if w != nil {
-		bw = 0
-		for _, wi := range w[:k] {
-			bw += wi
+	q.counts.Used += int64(k)
+	// Column 0 is the intercept; rows are scaled by √w.
+	one := buf[:k]
+	if w == nil {
+		q.counts.SumWeights += float64(k)
+		for i := range one {
+			one[i] = 1
+		}
+	} else {
+		w = w[:k]
+		q.counts.SumWeights += floats.Sum(w)
+		for i, wi := range w {
+			one[i] = math.Sqrt(wi)
+		}
+		for j := 1; j < n; j++ {
+			floats.Mul(buf[j*ld:j*ld+k], one)
 		}
 	}
-	q.counts.SumWeights += bw
-	for i := 0; i < k; i++ {
-		row := st[(n+i)*n : (n+i+1)*n]
-		s := 1.0
-		if w != nil {
-			s = math.Sqrt(w[i])
-		}
-		row[0] = s
-		src := buf[i*p : i*p+p]
-		for j := 0; j < p; j++ {
-			row[j+1] = (src[j] - q.origin[j]) * s
-		}
+	// Fold the rows in by chunks whose columns stay in cache together.
+	chunk := max(qrChunkBytes/(8*n), 32)
+	for r0 := 0; r0 < k; r0 += chunk {
+		tsqr(q.r, n, buf[r0:], ld, min(chunk, k-r0), false)
 	}
-	q.refactor(st, rows)
+	positiveDiagonal(q.r, n)
 }
 
-// refactor computes the QR factorization of the rows×n matrix st (whose
-// first n rows may be an earlier R) and stores its R, with a non-negative
-// diagonal, in q.r.
-func (q *QR) refactor(st []float64, rows int) {
-	n := q.n
-	a := blas64.General{Rows: rows, Cols: n, Stride: n, Data: st}
-	if q.work == nil {
-		var wq [1]float64
-		lapack64.Geqrf(a, q.tau, wq[:], -1)
-		q.work = make([]float64, max(int(wq[0]), n))
+// qrChunkBytes bounds the block columns that one pass of reflections sweeps,
+// so that they stay in a core's level-2 cache.
+const qrChunkBytes = 256 << 10
+
+var lapackImpl lapackgonum.Implementation
+
+// tsqr overwrites the n×n upper triangular r (row-major) with the R factor
+// of the stacked matrix [r; B], where B has k rows and n columns stored
+// column-major (column j at b[j*ld : j*ld+k]) and is overwritten. The
+// reflections exploit the structure: the one for column j touches row j of
+// r and the rows of B only, so the stacked factorization costs 2·k·n² flops
+// instead of the 2·(n+k)·n² − ⅔n³ of a dense one. With tri, B is itself
+// upper triangular (k = n) and column j reads its rows 0..j only (n³·⅔).
+func tsqr(r []float64, n int, b []float64, ld, k int, tri bool) {
+	for j := 0; j < n; j++ {
+		m := k
+		if tri {
+			m = min(j+1, k)
+		}
+		v := b[j*ld : j*ld+m]
+		beta, tau := lapackImpl.Dlarfg(m+1, r[j*n+j], v, 1)
+		r[j*n+j] = beta
+		if tau == 0 {
+			continue
+		}
+		rj := r[j*n : j*n+n]
+		for l := j + 1; l < n; l++ {
+			col := b[l*ld : l*ld+m]
+			s := tau * (rj[l] + floats.Dot(v, col))
+			rj[l] -= s
+			floats.AddScaled(col, -s, v)
+		}
 	}
-	lapack64.Geqrf(a, q.tau, q.work, len(q.work))
+}
+
+// positiveDiagonal flips the sign of the rows of r whose diagonal entry is
+// negative, making the factor unique for full-rank data (RᵀR is unchanged).
+func positiveDiagonal(r []float64, n int) {
 	for i := 0; i < n; i++ {
-		sign := 1.0
-		if st[i*n+i] < 0 {
-			sign = -1
-		}
-		for j := 0; j < i; j++ {
-			q.r[i*n+j] = 0
-		}
-		for j := i; j < n; j++ {
-			q.r[i*n+j] = sign * st[i*n+j]
+		if r[i*n+i] < 0 {
+			floats.Scale(-1, r[i*n+i:i*n+n])
 		}
 	}
 }
@@ -188,19 +202,35 @@ func (q *QR) Merge(o *QR) {
 		return
 	}
 	n := q.n
-	if cap(q.stack) < 2*n*n {
-		q.stack = make([]float64, 2*n*n)
+	if cap(q.buf) < n*n {
+		q.buf = make([]float64, n*n)
 	}
-	st := q.stack[:2*n*n]
-	copy(st[:n*n], q.r)
-	copy(st[n*n:], o.r)
-	// o's columns are x − c_o = (x − c_q) − (c_o − c_q)·1: re-express them
-	// in q's origin. Only row 0 of o's R has an intercept entry.
+	st := q.buf[:n*n]
+	// o's R, column-major. Its columns are x − c_o = (x − c_q) − (c_o −
+	// c_q)·1: re-express them in q's origin. Only row 0 of o's R has an
+	// intercept entry.
+	for i := 0; i < n; i++ {
+		for l := 0; l < n; l++ {
+			st[l*n+i] = o.r[i*n+l]
+		}
+	}
 	r00 := o.r[0]
 	for j := 0; j < q.p; j++ {
-		st[n*n+j+1] += (o.origin[j] - q.origin[j]) * r00
+		st[(j+1)*n] += (o.origin[j] - q.origin[j]) * r00
 	}
-	q.refactor(st, 2*n)
+	tsqr(q.r, n, st, n, n, true)
+	positiveDiagonal(q.r, n)
+}
+
+// Reset empties the factor, keeping its storage.
+func (q *QR) Reset() {
+	q.counts = Counts{Null: q.counts.Null, NaN: q.counts.NaN, Inf: q.counts.Inf}
+	clear(q.counts.Null)
+	clear(q.counts.NaN)
+	clear(q.counts.Inf)
+	clear(q.origin)
+	q.hasOrg = false
+	clear(q.r)
 }
 
 // Clone returns a deep copy of q.
