@@ -1,0 +1,150 @@
+// Package sqlstore keeps the agent's state in SQLite (the default, one
+// file) or PostgreSQL, with the schema of plumb/migrations.
+//
+// SQLite is opened in WAL mode with synchronous=FULL, foreign keys on and
+// write transactions taken IMMEDIATE, so a process killed at any point
+// leaves the last committed run and nothing of the one in flight. One agent
+// per store: on SQLite a file lock beside the database (PATH.lock), on
+// PostgreSQL a session advisory lock; both are released by the operating
+// system or the server when the holder dies.
+package sqlstore
+
+import (
+	"context"
+	"database/sql"
+	"errors"
+	"fmt"
+	"log/slog"
+	"strings"
+
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/stdlib"
+	_ "modernc.org/sqlite" // the one SQLite driver of the process
+
+	"plumb/agent"
+	"plumb/migrations"
+)
+
+// Store implements agent.Store.
+type Store struct {
+	db      *sql.DB
+	dialect migrations.Dialect
+	path    string // SQLite file
+	display string // the URL without a password, for messages
+}
+
+var _ agent.Store = (*Store)(nil)
+
+// Options control Open.
+type Options struct {
+	// Migrate applies pending migrations; without it a store that is
+	// not up to date is refused with a hint to run plumb migrate.
+	Migrate bool
+	Logger  *slog.Logger // migration progress; nil for none
+}
+
+// OpenDB opens the database named by a store URL (sqlite:PATH or
+// postgres://…) without touching its schema.
+func OpenDB(url string) (*sql.DB, migrations.Dialect, string, error) {
+	switch {
+	case strings.HasPrefix(url, "sqlite:"):
+		path := strings.TrimPrefix(url, "sqlite:")
+		path = strings.TrimPrefix(path, "//")
+		if path == "" || strings.ContainsAny(path, "?#") || path == ":memory:" {
+			return nil, "", "", fmt.Errorf("state store %q: want sqlite:PATH to a file (no ? or #)", url)
+		}
+		dsn := "file:" + path + "?mode=rwc&_txlock=immediate" +
+			"&_pragma=busy_timeout(10000)&_pragma=journal_mode(WAL)&_pragma=synchronous(FULL)&_pragma=foreign_keys(1)"
+		db, err := sql.Open("sqlite", dsn)
+		if err != nil {
+			return nil, "", "", fmt.Errorf("state store %s: %w", path, err)
+		}
+		return db, migrations.SQLite, path, nil
+	case strings.HasPrefix(url, "postgres://"), strings.HasPrefix(url, "postgresql://"):
+		cfg, err := pgx.ParseConfig(url)
+		if err != nil {
+			return nil, "", "", fmt.Errorf("state store %s: %w", redact(url), scrub(err, url))
+		}
+		if _, ok := cfg.RuntimeParams["application_name"]; !ok {
+			cfg.RuntimeParams["application_name"] = "plumb-agent"
+		}
+		return stdlib.OpenDB(*cfg), migrations.Postgres, "", nil
+	}
+	return nil, "", "", fmt.Errorf("state store %q: want sqlite:PATH or postgres://user@host/db", redact(url))
+}
+
+// Open opens the store and checks (or, with opt.Migrate, brings up to
+// date) its schema. A store newer than this binary is refused.
+func Open(ctx context.Context, url string, opt Options) (*Store, error) {
+	db, d, path, err := OpenDB(url)
+	if err != nil {
+		return nil, err
+	}
+	s := &Store{db: db, dialect: d, path: path, display: redact(url)}
+	if err := db.PingContext(ctx); err != nil {
+		db.Close()
+		return nil, fmt.Errorf("state store %s: %w", s.display, scrub(err, url))
+	}
+	if opt.Migrate {
+		_, err = migrations.Up(ctx, d, db, opt.Logger)
+	} else {
+		err = migrations.Check(ctx, d, db)
+	}
+	if err != nil {
+		db.Close()
+		return nil, fmt.Errorf("state store %s: %w", s.display, err)
+	}
+	return s, nil
+}
+
+// DB returns the underlying database, for tests and tools.
+func (s *Store) DB() *sql.DB { return s.db }
+
+// Dialect returns the store's SQL variant.
+func (s *Store) Dialect() migrations.Dialect { return s.dialect }
+
+// Close closes the database.
+func (s *Store) Close() error { return s.db.Close() }
+
+// redact hides the password of a URL.
+func redact(url string) string {
+	scheme, rest, ok := strings.Cut(url, "://")
+	if !ok {
+		return url
+	}
+	auth, host, ok := strings.Cut(rest, "@")
+	if !ok {
+		return url
+	}
+	user, _, hasPass := strings.Cut(auth, ":")
+	if !hasPass {
+		return url
+	}
+	return scheme + "://" + user + ":xxxxx@" + host
+}
+
+// scrub removes a URL's password from an error message, keeping the
+// error's identity for errors.Is.
+func scrub(err error, url string) error {
+	_, rest, ok := strings.Cut(url, "://")
+	if !ok {
+		return err
+	}
+	auth, _, ok := strings.Cut(rest, "@")
+	if !ok {
+		return err
+	}
+	_, pass, ok := strings.Cut(auth, ":")
+	if !ok || pass == "" || !strings.Contains(err.Error(), pass) {
+		return err
+	}
+	return &scrubbed{msg: strings.ReplaceAll(err.Error(), pass, "xxxxx"), err: err}
+}
+
+type scrubbed struct {
+	msg string
+	err error
+}
+
+func (e *scrubbed) Error() string { return e.msg }
+func (e *scrubbed) Unwrap() error { return errors.Unwrap(e.err) }

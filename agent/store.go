@@ -1,0 +1,300 @@
+// Package agent runs plumb unattended: it schedules the configured watches,
+// keeps their history (runs, points, bucket accumulators) in a state store,
+// turns the history into alerts with hysteresis and delivers them.
+//
+// The domain types and the Store interface live here; agent/sqlstore
+// implements the store on SQLite and PostgreSQL.
+package agent
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"time"
+)
+
+// RunKind says what started a run.
+type RunKind string
+
+const (
+	RunLive     RunKind = "live"     // the agent's schedule
+	RunCheck    RunKind = "check"    // plumb check
+	RunBackfill RunKind = "backfill" // plumb backfill
+)
+
+// Run is one pass over one watch.
+type Run struct {
+	ID             int64     `json:"id"`
+	Watch          string    `json:"watch"`
+	Kind           RunKind   `json:"kind"`
+	Status         string    `json:"status"` // "ok" or "failed"
+	StartedAt      time.Time `json:"started_at"`
+	FinishedAt     time.Time `json:"finished_at"`
+	RowsRead       int64     `json:"rows_read"`
+	RowsDropped    int64     `json:"rows_dropped"`
+	BucketsScanned int       `json:"buckets_scanned"`
+	Points         int       `json:"points"`
+	AsOf           time.Time `json:"as_of,omitzero"` // window end of the latest point
+	Error          string    `json:"error,omitempty"`
+}
+
+// Run statuses.
+const (
+	StatusOK     = "ok"
+	StatusFailed = "failed"
+)
+
+// Point is one step of a watch's history: the diagnostics of the window
+// ending at At, for the whole table (Segment "") or one segment. Values
+// that are undefined (a singular design makes the condition number and
+// some VIFs infinite) are +Inf in memory and NULL in the store.
+type Point struct {
+	Watch             string          `json:"watch"`
+	Segment           string          `json:"segment"`
+	At                time.Time       `json:"at"`
+	RunID             int64           `json:"run_id"`
+	RowsUsed          int64           `json:"rows"`
+	RowsDropped       int64           `json:"rows_dropped"`
+	ConditionNumber   float64         `json:"condition_number"`
+	CenteredCondition float64         `json:"centered_condition_number"`
+	MaxVIF            float64         `json:"max_vif"`
+	MaxVIFColumn      string          `json:"max_vif_column,omitempty"`
+	Rank              int             `json:"rank"`
+	Columns           int             `json:"columns"`
+	Report            json.RawMessage `json:"-"` // diagnostics.Report as JSON
+	PerColumn         []ColumnMetric  `json:"-"`
+}
+
+// ColumnMetric is one column's numbers at a point. NaN means undefined.
+type ColumnMetric struct {
+	Name        string  `json:"name"`
+	VIF         float64 `json:"vif"`
+	Tolerance   float64 `json:"tolerance"`
+	R2          float64 `json:"r2"`
+	SEInflation float64 `json:"se_inflation"`
+	Constant    bool    `json:"constant"`
+	Mean        float64 `json:"mean"`
+	SD          float64 `json:"sd"`
+}
+
+// Bucket is a stored accumulator: one watch, segment and time bucket.
+type Bucket struct {
+	Watch   string
+	Segment string
+	Start   time.Time
+	Columns []string
+	Rows    int64
+	Moments []byte // stream.Moments.MarshalBinary
+	QR      []byte // stream.QR.MarshalBinary, or nil
+}
+
+// Rule names an alert rule.
+type Rule string
+
+const (
+	RuleLevel    Rule = "level"
+	RuleTrend    Rule = "trend"
+	RuleExact    Rule = "exact"
+	RuleConstant Rule = "constant"
+	RuleJump     Rule = "jump"
+	RuleBlind    Rule = "blind"
+)
+
+// Severity of an alert.
+type Severity string
+
+const (
+	Warning  Severity = "warning"
+	Critical Severity = "critical"
+)
+
+// Notification states of an alert's opening.
+const (
+	NotifyPending    = "pending"    // to be delivered by the next live run
+	NotifySent       = "sent"       // enqueued in the outbox
+	NotifySuppressed = "suppressed" // recorded by a backfill and resolved there: never delivered
+)
+
+// Alert is one condition of one watch and segment, from opening to
+// resolution. AsOf is the data time (window end) that opened it.
+type Alert struct {
+	ID           string      `json:"id"`
+	Watch        string      `json:"watch"`
+	Segment      string      `json:"segment,omitempty"`
+	Rule         Rule        `json:"rule"`
+	Subject      string      `json:"subject"`
+	Severity     Severity    `json:"severity"`
+	AsOf         time.Time   `json:"as_of"`
+	OpenedAt     time.Time   `json:"opened_at"`
+	UpdatedAsOf  time.Time   `json:"updated_as_of"`
+	UpdatedAt    time.Time   `json:"updated_at"`
+	ResolvedAsOf time.Time   `json:"resolved_as_of,omitzero"`
+	ResolvedAt   time.Time   `json:"resolved_at,omitzero"`
+	Message      string      `json:"message"`
+	Detail       AlertDetail `json:"detail"`
+	NotifyState  string      `json:"-"`
+}
+
+// Open reports whether the alert is not resolved.
+func (a *Alert) Open() bool { return a.ResolvedAt.IsZero() }
+
+// AlertDetail is what a notification carries beside the message.
+type AlertDetail struct {
+	Metric    string             `json:"metric,omitempty"` // condition_number, max_vif
+	Value     float64            `json:"value,omitempty"`
+	Limit     float64            `json:"limit,omitempty"`
+	Values    map[string]float64 `json:"values,omitempty"`
+	Columns   []string           `json:"columns,omitempty"`
+	Equation  string             `json:"equation,omitempty"`
+	Remedy    string             `json:"remedy,omitempty"`
+	Forecast  *Forecast          `json:"forecast,omitempty"`
+	LastError string             `json:"last_error,omitempty"`
+}
+
+// Forecast is a trend rule's projection.
+type Forecast struct {
+	RatePerDay float64   `json:"rate_per_day"` // relative change per day, e.g. 0.08 for +8 %/day
+	Crossing   time.Time `json:"crossing"`     // when the critical limit is reached
+	Limit      float64   `json:"limit"`
+}
+
+// Delivery is one notification in the outbox.
+type Delivery struct {
+	ID            int64
+	EventID       string // unique: the receiver's deduplication key
+	AlertID       string
+	Notifier      string
+	Event         string // opened, escalated, resolved
+	Body          []byte // JSON
+	CreatedAt     time.Time
+	Attempts      int
+	NextAttemptAt time.Time
+	LastError     string
+	DeliveredAt   time.Time
+	GivenUpAt     time.Time
+}
+
+// Delivery events.
+const (
+	EventOpened    = "opened"
+	EventEscalated = "escalated"
+	EventResolved  = "resolved"
+)
+
+// WatchState is the rule state of one watch and segment.
+type WatchState struct {
+	Watch            string
+	Segment          string
+	EvaluatedThrough time.Time       // the latest point the rules have seen
+	State            json.RawMessage // the rules' own state
+	Failures         int             // consecutive failed runs (segment "")
+	LastRunAt        time.Time
+}
+
+// RunResult is everything one run writes. Store.CommitRun writes it in
+// one transaction: all of it or none.
+type RunResult struct {
+	Run Run
+
+	// ReplaceBucketsFrom, when set, deletes the watch's buckets starting
+	// at or after it before Buckets are written (a rescan or backfill
+	// replaces what it reread). ReplaceAllBuckets deletes them all.
+	ReplaceBucketsFrom time.Time
+	ReplaceAllBuckets  bool
+	Buckets            []Bucket
+
+	// ReplacePointsFrom deletes the watch's points at or after it first.
+	ReplacePointsFrom time.Time
+	Points            []Point
+
+	// DeleteAlerts are alert ids to remove (a backfill that no longer
+	// finds them); Alerts are written by id.
+	DeleteAlerts []string
+	Alerts       []Alert
+
+	States []WatchState
+	Outbox []Delivery // inserted; an existing EventID is left as it is
+}
+
+// AlertQuery selects alerts.
+type AlertQuery struct {
+	Watch    string    // "" for every watch
+	OpenOnly bool      // only unresolved
+	Since    time.Time // resolved at or after, or still open; zero for all
+	Limit    int       // 0 for no limit
+}
+
+// PointQuery selects points of a watch.
+type PointQuery struct {
+	Segment  string // "" is the whole table
+	AllSegs  bool   // every segment
+	From, To time.Time
+	Limit    int // the latest Limit points; 0 for all
+}
+
+// LockInfo describes who holds a store.
+type LockInfo struct {
+	Holder     string
+	PID        int
+	Host       string
+	AcquiredAt time.Time
+}
+
+// ErrLocked is wrapped by Store.Lock when another process holds the store.
+var ErrLocked = errors.New("the state store is in use by another plumb")
+
+// LockedError says who holds the store.
+type LockedError struct {
+	Info *LockInfo // nil when unknown
+}
+
+func (e *LockedError) Error() string {
+	if e.Info == nil {
+		return ErrLocked.Error() + "; stop it first"
+	}
+	return fmt.Sprintf("%v: %s (pid %d on %s, since %s); stop it first",
+		ErrLocked, e.Info.Holder, e.Info.PID, e.Info.Host, e.Info.AcquiredAt.UTC().Format(time.RFC3339))
+}
+
+func (e *LockedError) Unwrap() error { return ErrLocked }
+
+// Store keeps the agent's state. Implementations are safe for concurrent
+// use.
+type Store interface {
+	// Lock makes this process the store's only writer until release is
+	// called or the process dies. It fails at once with a *LockedError
+	// when another process holds it.
+	Lock(ctx context.Context, holder string) (release func() error, err error)
+
+	// LastBucket returns the start of the watch's newest bucket.
+	LastBucket(ctx context.Context, watch string) (time.Time, bool, error)
+	// Buckets returns the watch's buckets starting in [from, to) (zero
+	// times are open ends), ordered by start, then segment.
+	Buckets(ctx context.Context, watch string, from, to time.Time) ([]Bucket, error)
+
+	// Points returns points of a watch, oldest first.
+	Points(ctx context.Context, watch string, q PointQuery) ([]Point, error)
+	// Runs returns the watch's latest runs, newest first ("" for all
+	// watches).
+	Runs(ctx context.Context, watch string, limit int) ([]Run, error)
+	// States returns the rule states of a watch.
+	States(ctx context.Context, watch string) ([]WatchState, error)
+	// Alerts returns alerts, ordered by as_of, then opened_at, then id.
+	Alerts(ctx context.Context, q AlertQuery) ([]Alert, error)
+
+	// CommitRun writes a run's results in one transaction and returns
+	// the run's id; the points, buckets and alerts of r get it too.
+	CommitRun(ctx context.Context, r *RunResult) (int64, error)
+
+	// Due returns undelivered outbox entries whose next attempt is due at
+	// now, oldest first.
+	Due(ctx context.Context, now time.Time, limit int) ([]Delivery, error)
+	// Delivered marks an entry done.
+	Delivered(ctx context.Context, id int64, at time.Time) error
+	// Failed records a failed attempt and when to try next; with giveUp
+	// the entry is not tried again.
+	Failed(ctx context.Context, id int64, attempts int, next time.Time, lastErr string, giveUp bool) error
+
+	Close() error
+}
