@@ -128,17 +128,11 @@ func (q *QR) Add(b *Block) {
 			floats.Mul(buf[j*ld:j*ld+k], one)
 		}
 	}
-	// Fold the rows in by chunks whose columns stay in cache together.
-	chunk := max(qrChunkBytes/(8*n), 32)
-	for r0 := 0; r0 < k; r0 += chunk {
-		tsqr(q.r, n, buf[r0:], ld, min(chunk, k-r0), false)
-	}
+	// The whole block at once: splitting it into chunks that fit level-2
+	// cache was measured slower (more, shorter vector operations).
+	tsqr(q.r, n, buf, ld, k, false)
 	positiveDiagonal(q.r, n)
 }
-
-// qrChunkBytes bounds the block columns that one pass of reflections sweeps,
-// so that they stay in a core's level-2 cache.
-const qrChunkBytes = 256 << 10
 
 var lapackImpl lapackgonum.Implementation
 

@@ -2,6 +2,7 @@ package stream
 
 import (
 	"math"
+	"math/big"
 	"math/rand/v2"
 	"testing"
 
@@ -185,4 +186,74 @@ func TestQRCloneEmpty(t *testing.T) {
 	if empty.N() != 0 || mat.Norm(r, 1) != 0 {
 		t.Errorf("empty factor: N %d, R %v", empty.N(), mat.Formatted(r))
 	}
+}
+
+// TestQRNearCollinear: for billed volume equal to metered volume plus a
+// small independent error (condition number of the centered design about
+// 1e6), the last diagonal entry of R, squared, is the residual sum of
+// squares of billed volume regressed on an intercept and metered volume (a
+// standard least-squares identity). The reference is
+// M_bb − M_ab²/M_aa from the exact co-moments, in exact rational
+// arithmetic computed in the test. The factor keeps about 1e-16·κ relative
+// accuracy; forming the same quantity from the co-moments in float64 loses
+// about 1e-16·κ² (logged, not asserted).
+func TestQRNearCollinear(t *testing.T) {
+	rng := rand.New(rand.NewPCG(64, 0))
+	const n = 4000
+	rows := make([][]float64, n)
+	for i := range rows {
+		a := 5e4 + 800*rng.NormFloat64()
+		rows[i] = []float64{a, a + 800e-6*rng.NormFloat64()}
+	}
+	cols := []string{"metered_volume", "billed_volume"}
+	q := NewQR(cols)
+	feed(q, rows, nil, nil, 512)
+	m := NewMoments(cols)
+	feed(m, rows, nil, nil, 512)
+
+	// Exact RSS from the exact co-moments.
+	p := exactMomentsRat(rows)
+	rss := new(big.Rat).Quo(new(big.Rat).Mul(p[0][1], p[0][1]), p[0][0])
+	rss.Sub(p[1][1], rss)
+	want := ratFloat(rss)
+
+	r := q.R(nil)
+	got := r.At(2, 2) * r.At(2, 2)
+	if e := relErr(got, want, want); e > 1e-10 {
+		t.Errorf("R(2,2)² = %v, exact RSS %v (rel err %.2g)", got, want, e)
+	}
+	fromMoments := m.At(1, 1) - m.At(0, 1)*m.At(0, 1)/m.At(0, 0)
+	t.Logf("RSS relative error: QR %.2g, co-moments %.2g", relErr(got, want, want), relErr(fromMoments, want, want))
+}
+
+// exactMomentsRat returns the exact centered co-moments as rationals
+// (unit weights), for references that must not round before combining them.
+func exactMomentsRat(rows [][]float64) [][]*big.Rat {
+	p := len(rows[0])
+	mean := make([]*big.Rat, p)
+	for j := range mean {
+		mean[j] = new(big.Rat)
+		for _, r := range rows {
+			mean[j].Add(mean[j], rat(r[j]))
+		}
+		mean[j].Quo(mean[j], big.NewRat(int64(len(rows)), 1))
+	}
+	co := make([][]*big.Rat, p)
+	for a := range co {
+		co[a] = make([]*big.Rat, p)
+		for b := range co[a] {
+			co[a][b] = new(big.Rat)
+		}
+	}
+	da, db, t := new(big.Rat), new(big.Rat), new(big.Rat)
+	for _, r := range rows {
+		for a := 0; a < p; a++ {
+			da.Sub(rat(r[a]), mean[a])
+			for b := 0; b < p; b++ {
+				db.Sub(rat(r[b]), mean[b])
+				co[a][b].Add(co[a][b], t.Mul(da, db))
+			}
+		}
+	}
+	return co
 }
