@@ -389,8 +389,8 @@ func (v *validator) limits(p []any, label string, l *Limits) {
 	}
 	if l.TrendPoints == 0 {
 		l.TrendPoints = DefaultTrendPoints
-	} else if l.TrendPoints < 5 || l.TrendPoints > 10000 {
-		v.addf(at("trend_points"), "%s: limits.trend_points %d: want 5 to 10000 points", label, l.TrendPoints)
+	} else if l.TrendPoints < 5 || l.TrendPoints > 1000 {
+		v.addf(at("trend_points"), "%s: limits.trend_points %d: want 5 to 1000 points", label, l.TrendPoints)
 	}
 }
 
