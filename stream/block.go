@@ -224,18 +224,21 @@ func gather(b *Block, c *Counts, origin []float64, dst []float64, ld, off int, w
 			continue
 		}
 		d := dst[k:]
-		for j, v := range row {
-			d[j*ld] = v - origin[j]
-		}
+		org := origin[:len(row)]
 		if lo != nil {
-			lo, hi := lo[:p], hi[:p]
+			lo, hi := lo[:len(row)], hi[:len(row)]
 			for j, v := range row {
+				d[j*ld] = v - org[j]
 				if v < lo[j] {
 					lo[j] = v
 				}
 				if v > hi[j] {
 					hi[j] = v
 				}
+			}
+		} else {
+			for j, v := range row {
+				d[j*ld] = v - org[j]
 			}
 		}
 		k++
