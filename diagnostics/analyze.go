@@ -243,10 +243,11 @@ func analyzeDesign(d *design, m *stream.Moments, opt Options) (*Report, error) {
 	rep.nearDependencies(d, col, opt)
 	rep.groups(d, col, opt)
 	rep.whatIf(d, col, opt)
+	rep.condition(d, col)
 	if opt.Target != "" {
 		rep.regression(d, col, opt)
 	}
-	rep.trust(d, col)
+	rep.trust(d)
 	return rep, nil
 }
 

@@ -158,9 +158,9 @@ func designFromR(m *stream.Moments, full dense, origin []float64, idx []int, nam
 // designFromMoments builds the design from the centered cross-products: a
 // Cholesky factor of the correlation matrix of the varying columns, scaled
 // back to the columns' units. When the co-moments are not numerically
-// positive definite (an exact dependency) the factor comes from the
-// symmetric eigendecomposition instead, with negative rounding-level
-// eigenvalues set to zero.
+// positive definite (a Cholesky pivot² at or below the rank tolerance, an
+// exact dependency) the factor comes from the symmetric eigendecomposition
+// instead, with the eigenvalues below the rank tolerance set to zero.
 func designFromMoments(m *stream.Moments, idx []int, names []string, k int, hasY bool) *design {
 	d := newDesign(m, idx, names, k, hasY)
 	d.path = PathCrossProduct
@@ -188,14 +188,27 @@ func designFromMoments(m *stream.Moments, idx []int, names []string, k int, hasY
 		corr.set(x, x, 1)
 	}
 	u, ok := cholUpper(corr)
+	// A pivot below the rank tolerance is rounding of an exact
+	// dependency: take the eigenvalue route, which can represent it.
+	tol := cpRankTol * float64(max(nv, 1))
+	for i := 0; ok && i < nv; i++ {
+		ok = u.at(i, i)*u.at(i, i) > tol
+	}
 	if !ok {
 		d.cpFallback = true
 		vals, vecs, eok := symEigen(corr)
 		u = newDense(nv, nv)
 		if eok {
-			// u = Λ^½ Vᵀ, so uᵀu = V Λ Vᵀ.
+			// u = Λ^½ Vᵀ, so uᵀu = V Λ Vᵀ. Eigenvalues at or below the
+			// rank tolerance (relative to the largest) are set to zero:
+			// the dependency is then exact in the factor too.
+			top := math.Max(vals[nv-1], 0)
 			for i := 0; i < nv; i++ {
-				s := math.Sqrt(math.Max(vals[i], 0))
+				l := vals[i]
+				if l <= tol*top {
+					l = 0
+				}
+				s := math.Sqrt(l)
 				for j := 0; j < nv; j++ {
 					u.set(i, j, s*vecs.at(j, i))
 				}

@@ -113,6 +113,98 @@ func (rep *Report) regression(d *design, c *collin, opt Options) {
 		reg.Attribution = append(reg.Attribution, splitVariance(d, c, j, reg.Sigma2, sst[a], inv, varY, opt))
 	}
 	rep.Regression = reg
+	rep.regressionErrors(d, fit, b, tinv, sst, syy, ssr, opt)
+}
+
+// regressionErrors estimates, to first order, the relative rounding error
+// of each coefficient, and on the cross-product path of the standard errors
+// and σ, sets Coefficient.Digits and keeps the largest in rep.regErr. With
+// γ = (p+1)·eps, ‖·‖ the (centered) column norms and
+// base = ‖y‖ + Σ_k ‖x_k‖·|b_k|:
+//
+//   - QR path (backward-stable columns, error γ·‖a_k‖ per column):
+//     δb_j ≈ γ·√((XᵀX)⁻¹_jj)·base;
+//   - cross-product path (each co-moment off by γ·‖x_j‖‖x_k‖):
+//     δb_j ≈ γ·Σ_k |(XᵀX)⁻¹_jk|·‖x_k‖·base, δb₀ ≈ Σ_j |x̄_j|·δb_j + γ|ȳ|,
+//     δσ/σ ≈ γ·‖y‖²/(2·SSR), and δSE_j/SE_j ≈ δσ/σ + γ·κ²/2.
+func (rep *Report) regressionErrors(d *design, fit []int, b []float64, tinv dense, sst []float64, syy, ssr float64, opt Options) {
+	reg := rep.Regression
+	p := len(fit)
+	gamma := float64(p+1) * eps
+	nx := make([]float64, p)
+	base := math.Sqrt(syy)
+	for a := range fit {
+		nx[a] = math.Sqrt(sst[a])
+		base += nx[a] * math.Abs(b[a])
+	}
+	off := 0
+	if !opt.NoIntercept {
+		off = 1
+	}
+	worst, what := 0.0, ""
+	note := func(e float64, w string) {
+		if e > worst || what == "" {
+			worst, what = e, w
+		}
+	}
+	rel := func(e, v float64) float64 {
+		if v == 0 {
+			return e
+		}
+		return e / math.Abs(v)
+	}
+	db := make([]float64, p)
+	for a := range fit {
+		if d.path == PathQR {
+			db[a] = gamma * math.Sqrt(tinv.rowNorm2(a)) * base
+		} else {
+			ra := tinv.d[a*p : (a+1)*p]
+			for k := range fit {
+				db[a] += math.Abs(dot(ra, tinv.d[k*p:(k+1)*p])) * nx[k]
+			}
+			db[a] *= gamma * base
+		}
+		c := &reg.Coefficients[a+off]
+		e := rel(db[a], c.Estimate)
+		c.Digits = digits(e)
+		note(e, "estimate "+c.Name)
+	}
+	if off == 1 {
+		c := &reg.Coefficients[0]
+		var e float64
+		if d.path == PathQR {
+			e = gamma * c.StdError / reg.Sigma * base
+			if reg.Sigma == 0 {
+				e = 0
+			}
+		} else {
+			e = gamma * math.Abs(d.mean[d.k])
+			for a, j := range fit {
+				e += math.Abs(d.mean[j]) * db[a]
+			}
+		}
+		e = rel(e, c.Estimate)
+		c.Digits = digits(e)
+		note(e, "estimate "+InterceptName)
+	}
+	if d.path == PathCrossProduct {
+		es := math.Inf(1)
+		if ssr > 0 {
+			es = gamma * syy / (2 * ssr)
+		}
+		note(es, "residual SD")
+		kx := rep.condX
+		note(es+gamma*kx*kx/2, "standard errors")
+	}
+	rep.regErr, rep.regErrWhat = worst, what
+}
+
+// digits converts a relative error to correct significant digits, 0 to 15.9.
+func digits(e float64) float64 {
+	if !(e > 0) {
+		return 15.9
+	}
+	return math.Max(0, math.Min(15.9, -math.Log10(e)))
 }
 
 func tstat(b, se float64) float64 {

@@ -101,6 +101,12 @@ type Report struct {
 	// Notes are remarks that did not stop the analysis (a constant
 	// target, a regression that could not be fitted).
 	Notes []string `json:"notes,omitempty"`
+
+	// regErr is the largest estimated relative error of the regression's
+	// coefficients, standard errors and σ, and regErrWhat names it.
+	regErr     float64
+	regErrWhat string
+	condX      float64 // κ of the scaled centered independent regressors
 }
 
 // Trust is the numerical-trust verdict of the path used.
@@ -214,6 +220,9 @@ type Coefficient struct {
 	Estimate float64 `json:"estimate"`
 	StdError float64 `json:"std_error"`
 	T        float64 `json:"t"`
+	// Digits is the number of correct significant digits expected in
+	// Estimate from a first-order rounding-error estimate (see Trust).
+	Digits float64 `json:"expected_digits"`
 }
 
 // VarianceSplit splits Var(b_j) = σ² / (SST_j·(1 − R_j²)) into its three

@@ -9,68 +9,56 @@ import (
 // standard errors and VIFs to seven significant digits.
 const RequiredDigits = 7
 
-// trust fills the numerical-trust verdict (see the package documentation).
-func (rep *Report) trust(d *design, c *collin) {
-	cols := append([]int(nil), c.indep...)
-	hasY := d.hasY && !d.constant[d.k] && !d.nearConst[d.k]
-	if hasY {
-		cols = append(cols, d.k)
+// condition sets rep.condX, the 2-norm condition number of the scaled
+// centered independent regressors; the regression's error estimates use it.
+func (rep *Report) condition(d *design, c *collin) {
+	rep.condX = 1
+	if len(c.indep) == 0 {
+		return
 	}
-	sc := make([]float64, len(cols))
-	for a, j := range cols {
+	sc := make([]float64, len(c.indep))
+	for a, j := range c.indep {
 		sc[a] = 1 / math.Sqrt(d.sst[j])
 	}
-	kx := 1.0 // condition of the scaled centered regressors
-	kxy := 1.0
-	if len(c.indep) > 0 {
-		sv, _, ok := svd(d.f.cols(c.indep, sc[:len(c.indep)]))
-		if ok {
-			kx = cond(sv)
-		}
+	if sv, _, ok := svd(d.f.cols(c.indep, sc)); ok {
+		rep.condX = cond(sv)
 	}
-	if hasY {
-		sv, _, ok := svd(d.f.cols(cols, sc))
-		if ok {
-			kxy = cond(sv)
-		}
-	}
+}
+
+// trust fills the numerical-trust verdict (see the package documentation).
+func (rep *Report) trust(d *design) {
+	kx := rep.condX
+	gamma := float64(len(d.names)+1) * eps
 	var t Trust
 	var errEst float64
+	what := "VIFs"
 	if d.path == PathCrossProduct {
-		// Normal equations: relative errors of about cond(XᵀX)·eps in the
-		// coefficients, and, with a target, in the residual sum of
-		// squares, which the augmented matrix [X y] carries.
-		k := kx
-		if hasY {
-			k = math.Max(kx, kxy)
-		}
-		t.EstimatedCondition = capCond(k * k)
-		errEst = t.EstimatedCondition * eps
+		// The centered cross-products square the condition number.
+		t.EstimatedCondition = capCond(kx * kx)
+		errEst = gamma * kx * kx
 	} else {
-		// Householder QR: eps·(κ + κ²·tanθ) for least squares (Wedin),
-		// tanθ = ‖r‖/‖ŷ‖; κ·eps for the VIFs.
 		t.EstimatedCondition = capCond(kx)
-		errEst = kx * eps
-		if rep.Regression != nil && rep.Regression.R2 > 0 {
-			tan := math.Sqrt(math.Max(1-rep.Regression.R2, 0) / rep.Regression.R2)
-			errEst = eps * (kx + kx*kx*tan)
-		}
+		errEst = gamma * kx
 	}
-	t.ExpectedDigits = math.Max(0, math.Min(15.9, -math.Log10(math.Max(errEst, eps))))
+	if rep.Regression != nil && rep.regErr > errEst {
+		errEst, what = rep.regErr, rep.regErrWhat
+	}
+	t.ExpectedDigits = digits(errEst)
 	t.Trustworthy = t.ExpectedDigits >= RequiredDigits
+	name := "QR path: the scaled centered design"
+	if d.path == PathCrossProduct {
+		name = "cross-product path: the scaled centered cross-product matrix"
+	}
 	switch {
-	case d.path == PathCrossProduct && t.Trustworthy:
-		t.Reason = fmt.Sprintf("cross-product path: the scaled centered cross-product matrix has condition about %.3g, which leaves about %.0f correct digits (%d needed)",
-			t.EstimatedCondition, t.ExpectedDigits, RequiredDigits)
-	case d.path == PathCrossProduct:
-		t.Reason = fmt.Sprintf("cross-product path: the scaled centered cross-product matrix has condition about %.3g, too near 1/eps = %.2g for %d correct digits (about %.0f expected); use the QR accumulator",
-			t.EstimatedCondition, 1/eps, RequiredDigits, t.ExpectedDigits)
 	case t.Trustworthy:
-		t.Reason = fmt.Sprintf("QR path: the scaled centered design has condition about %.3g, which leaves about %.0f correct digits (%d needed)",
-			t.EstimatedCondition, t.ExpectedDigits, RequiredDigits)
+		t.Reason = fmt.Sprintf("%s has condition about %.3g; the least accurate result (%s) should have about %.0f correct digits (%d needed)",
+			name, t.EstimatedCondition, what, math.Floor(t.ExpectedDigits), RequiredDigits)
+	case d.path == PathCrossProduct:
+		t.Reason = fmt.Sprintf("%s has condition about %.3g (1/eps = %.2g); %s would have only about %.0f correct digits (%d needed); use the QR accumulator",
+			name, t.EstimatedCondition, 1/eps, what, math.Floor(t.ExpectedDigits), RequiredDigits)
 	default:
-		t.Reason = fmt.Sprintf("QR path: the scaled centered design has condition about %.3g, which leaves only about %.0f correct digits (%d needed); the data cannot determine the results more closely in float64",
-			t.EstimatedCondition, t.ExpectedDigits, RequiredDigits)
+		t.Reason = fmt.Sprintf("%s has condition about %.3g; %s would have only about %.0f correct digits (%d needed): float64 cannot determine it more closely from these data",
+			name, t.EstimatedCondition, what, math.Floor(t.ExpectedDigits), RequiredDigits)
 	}
 	if d.cpFallback {
 		t.Reason += "; the cross-products were not positive definite, so the factor came from their eigendecomposition"

@@ -1,6 +1,9 @@
 package diagnostics
 
-import "math"
+import (
+	"math"
+	"sort"
+)
 
 // DropCaution is the omitted-variable-bias caution attached to every drop
 // suggestion.
@@ -94,7 +97,9 @@ func (c *collin) all() map[int]vifResult {
 // dependency remains, the column of a dependency whose removal gives the
 // best outcome (each candidate is re-analyzed), then, while a VIF is over
 // the limit, the column whose removal gives the best outcome by the
-// Schur-complement update. Greedy: small, not guaranteed smallest.
+// Schur-complement update; finally any dropped column that can be put back
+// without breaking the limit is put back. Greedy: every suggestion is
+// needed, but the set is not guaranteed to be the smallest.
 func greedyDrops(d *design, c *collin, limit float64) []int {
 	var drops []int
 	cur := c
@@ -151,6 +156,17 @@ func greedyDrops(d *design, c *collin, limit float64) []int {
 			bestSet = analyzeSet(d, without(cur.cols, best))
 		}
 		cur = bestSet
+	}
+	// Prune: put back, latest first, any dropped column without which
+	// the result is no better, so that every suggestion is needed.
+	for i := len(drops) - 1; i >= 0; i-- {
+		trial := append(append([]int(nil), cur.cols...), drops[i])
+		sort.Ints(trial)
+		o := analyzeSet(d, trial)
+		if s := scoreOf(o.all(), limit); s.undefined == 0 && s.over == 0 {
+			cur = o
+			drops = append(drops[:i], drops[i+1:]...)
+		}
 	}
 	return drops
 }

@@ -1,0 +1,423 @@
+package web
+
+import (
+	"fmt"
+	"math"
+	"strconv"
+	"strings"
+	"time"
+)
+
+// Charts are laid out here, in SVG user units, and drawn by the templates
+// in templates/charts.tmpl. Only presentation attributes are used (no
+// style attributes or elements), so the inline SVG passes the pages'
+// Content-Security-Policy and a chart written to a file looks the same.
+
+// rect is a plot area.
+type rect struct{ X, Y, W, H float64 }
+
+func (r rect) Right() float64  { return r.X + r.W }
+func (r rect) Bottom() float64 { return r.Y + r.H }
+
+// tick is an axis tick: its position along the axis and its label.
+type tick struct {
+	Pos   float64
+	Label string
+	Minor bool
+}
+
+// stroke is how a line is drawn.
+type stroke struct {
+	Colour string
+	Width  float64
+	Dash   string
+}
+
+// legendItem is one entry of a legend; Kind is line, area, bar or marker.
+type legendItem struct {
+	Label   string
+	Kind    string
+	Stroke  stroke
+	Fill    string
+	Pattern string // id of a pattern for Kind bar or area
+}
+
+// series is one drawn line.
+type series struct {
+	Name   string
+	Class  string // data-series attribute: tests and readers find it by name
+	D      string // path data
+	Stroke stroke
+	Dots   []dot // points worth marking (the last one, clipped ones)
+}
+
+type dot struct {
+	X, Y  float64
+	R     float64
+	Shape string // circle or triangle
+	Fill  string
+	Title string
+}
+
+// level is a horizontal limit line.
+type level struct {
+	Name   string
+	Y      float64
+	Stroke stroke
+	Label  string
+}
+
+// cone is a forecast band.
+type cone struct {
+	D       string // closed polygon of the band
+	Centre  string // path of the central line
+	Fill    string
+	Pattern string
+	Stroke  stroke
+}
+
+// lineChart is a timeline: one metric over time on a log axis, its levels
+// and its forecast.
+type lineChart struct {
+	ID, Title, Desc string
+	Metric          string
+	W, H            float64
+	Plot            rect
+	XTicks, YTicks  []tick
+	XLabel, YLabel  string
+	Series          []series
+	Levels          []level
+	Cone            *cone
+	Legend          []legendItem
+	LegendY         float64
+	Empty           string // message when there is nothing to draw
+}
+
+// logScale maps [Lo, Hi] logarithmically onto pixels [P0, P1].
+type logScale struct{ Lo, Hi, P0, P1 float64 }
+
+func (s logScale) At(v float64) float64 {
+	v = math.Min(math.Max(v, s.Lo), s.Hi)
+	f := (math.Log10(v) - math.Log10(s.Lo)) / (math.Log10(s.Hi) - math.Log10(s.Lo))
+	return s.P0 + f*(s.P1-s.P0)
+}
+
+// ticks returns ticks at 1, 2, 5 × powers of ten (labelled) within range,
+// fewer when the range is wide.
+func (s logScale) ticks() []tick {
+	var out []tick
+	decades := math.Log10(s.Hi) - math.Log10(s.Lo)
+	steps := []float64{1, 2, 5}
+	if decades > 4 {
+		steps = []float64{1}
+	}
+	for e := math.Floor(math.Log10(s.Lo)); e <= math.Ceil(math.Log10(s.Hi)); e++ {
+		for _, m := range steps {
+			v := m * math.Pow(10, e)
+			if v < s.Lo*0.999 || v > s.Hi*1.001 {
+				continue
+			}
+			out = append(out, tick{Pos: s.At(v), Label: fmtTick(v), Minor: m != 1})
+		}
+	}
+	return out
+}
+
+// timeScale maps times linearly onto pixels.
+type timeScale struct {
+	T0, T1 time.Time
+	P0, P1 float64
+}
+
+func (s timeScale) At(t time.Time) float64 {
+	span := s.T1.Sub(s.T0)
+	if span <= 0 {
+		return (s.P0 + s.P1) / 2
+	}
+	return s.P0 + float64(t.Sub(s.T0))/float64(span)*(s.P1-s.P0)
+}
+
+// ticks returns day-aligned ticks about every 80 px.
+func (s timeScale) ticks() []tick {
+	span := s.T1.Sub(s.T0)
+	if span <= 0 {
+		return []tick{{Pos: s.At(s.T0), Label: s.T0.Format("Jan 2")}}
+	}
+	want := math.Max(1, (s.P1-s.P0)/80)
+	days := span.Hours() / 24 / want
+	step := 1
+	for _, c := range []int{1, 2, 7, 14, 28, 56, 91, 182, 364} {
+		step = c
+		if float64(c) >= days {
+			break
+		}
+	}
+	var out []tick
+	t := time.Date(s.T0.Year(), s.T0.Month(), s.T0.Day(), 0, 0, 0, 0, s.T0.Location())
+	if t.Before(s.T0) {
+		t = t.AddDate(0, 0, 1)
+	}
+	if step >= 7 { // weekly ticks fall on Mondays
+		for t.Weekday() != time.Monday {
+			t = t.AddDate(0, 0, 1)
+		}
+	}
+	if span < 48*time.Hour { // hourly data: label hours
+		for t := s.T0.Truncate(time.Hour); !t.After(s.T1); t = t.Add(6 * time.Hour) {
+			if !t.Before(s.T0) {
+				out = append(out, tick{Pos: s.At(t), Label: t.Format("Jan 2 15h")})
+			}
+		}
+		return out
+	}
+	for ; !t.After(s.T1); t = t.AddDate(0, 0, step) {
+		out = append(out, tick{Pos: s.At(t), Label: t.Format("Jan 2")})
+	}
+	return out
+}
+
+// metricOf returns a point's value of metric.
+func metricOf(p Point, metric string) float64 {
+	if metric == MetricMaxVIF {
+		return p.MaxVIF
+	}
+	if p.RankDeficiency() > 0 {
+		return math.Inf(1)
+	}
+	return p.ConditionNumber
+}
+
+// timelineChart lays out the timeline of one metric with its warn and
+// critical levels and forecast cone.
+func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float64) *lineChart {
+	title, unit, col := "Condition number", "ratio, log scale", colBlue
+	if metric == MetricMaxVIF {
+		title, unit, col = "Max VIF", "ratio, log scale", colPurple
+	}
+	c := &lineChart{
+		ID: id, Title: title, Metric: metric, W: 960, H: 345,
+		Plot:   rect{X: 64, Y: 18, W: 760, H: 232},
+		XLabel: "window end (date, UTC)", YLabel: title + " (" + unit + ")",
+	}
+	c.Desc = fmt.Sprintf("%s per run window, %d points", title, len(tl))
+	if len(tl) == 0 {
+		c.Empty = "No successful run yet: nothing to draw."
+		return c
+	}
+	// Value range: finite values, the levels and the forecast; values far
+	// past the critical level are clipped to the top and marked.
+	hi, lo := 1.0, math.Inf(1)
+	for _, p := range tl {
+		v := metricOf(p, metric)
+		if !math.IsInf(v, 0) && !math.IsNaN(v) {
+			hi = math.Max(hi, v)
+			lo = math.Min(lo, v)
+		}
+	}
+	hi = math.Max(hi, crit*1.5)
+	hi = math.Max(hi, warn*1.5)
+	if fc != nil {
+		for _, fp := range fc.Points {
+			if !math.IsInf(fp.Value, 0) && !math.IsNaN(fp.Value) {
+				hi = math.Max(hi, fp.Value)
+			}
+		}
+	}
+	clip := math.Inf(1)
+	if crit > 0 {
+		clip = crit * 100
+	}
+	hi = math.Min(hi, clip)
+	hi = math.Pow(10, math.Ceil(math.Log10(hi)-1e-9))
+	lo = 1
+	ys := logScale{Lo: lo, Hi: hi, P0: c.Plot.Bottom(), P1: c.Plot.Y}
+	t0, t1 := tl[0].At, tl[len(tl)-1].At
+	if fc != nil && len(fc.Points) > 0 {
+		if e := fc.Points[len(fc.Points)-1].At; e.After(t1) {
+			t1 = e
+		}
+	}
+	xs := timeScale{T0: t0, T1: t1, P0: c.Plot.X, P1: c.Plot.Right()}
+	c.XTicks, c.YTicks = xs.ticks(), ys.ticks()
+
+	var d strings.Builder
+	s := series{Name: title, Class: metric, Stroke: stroke{Colour: col, Width: 2}}
+	pen := false
+	for _, p := range tl {
+		v := metricOf(p, metric)
+		x := xs.At(p.At)
+		if math.IsNaN(v) {
+			pen = false
+			continue
+		}
+		y := ys.At(v)
+		if pen {
+			fmt.Fprintf(&d, "L%s %s", f1(x), f1(y))
+		} else {
+			fmt.Fprintf(&d, "M%s %s", f1(x), f1(y))
+			pen = true
+		}
+		if v >= hi {
+			what := "off the scale"
+			if p.RankDeficiency() > 0 {
+				what = fmt.Sprintf("rank deficient by %d (exact dependency)", p.RankDeficiency())
+			}
+			s.Dots = append(s.Dots, dot{X: x, Y: c.Plot.Y, R: 4.5, Shape: "triangle", Fill: colVermillion,
+				Title: p.At.Format(time.DateOnly) + ": " + what})
+		}
+	}
+	last := tl[len(tl)-1]
+	if v := metricOf(last, metric); !math.IsNaN(v) && v < hi {
+		s.Dots = append(s.Dots, dot{X: xs.At(last.At), Y: ys.At(v), R: 3.5, Shape: "circle", Fill: col,
+			Title: last.At.Format(time.DateOnly) + ": " + fmtNum(v)})
+	}
+	s.D = d.String()
+	c.Series = append(c.Series, s)
+	c.Legend = append(c.Legend, legendItem{Label: title, Kind: "line", Stroke: s.Stroke})
+
+	if fc != nil && len(fc.Points) > 1 {
+		var band, centre strings.Builder
+		for i, fp := range fc.Points {
+			op := "L"
+			if i == 0 {
+				op = "M"
+			}
+			fmt.Fprintf(&band, "%s%s %s", op, f1(xs.At(fp.At)), f1(ys.At(fp.High)))
+			fmt.Fprintf(&centre, "%s%s %s", op, f1(xs.At(fp.At)), f1(ys.At(fp.Value)))
+		}
+		for i := len(fc.Points) - 1; i >= 0; i-- {
+			fp := fc.Points[i]
+			fmt.Fprintf(&band, "L%s %s", f1(xs.At(fp.At)), f1(ys.At(fp.Low)))
+		}
+		band.WriteString("Z")
+		c.Cone = &cone{D: band.String(), Centre: centre.String(), Fill: colSkyBlue,
+			Pattern: id + "-cone", Stroke: stroke{Colour: col, Width: 1.5, Dash: dashForecast}}
+		c.Series = append(c.Series, series{Name: "forecast", Class: "forecast", D: centre.String(), Stroke: c.Cone.Stroke})
+		c.Legend = append(c.Legend,
+			legendItem{Label: "forecast (trend)", Kind: "line", Stroke: c.Cone.Stroke},
+			legendItem{Label: "forecast range", Kind: "area", Fill: colSkyBlue, Pattern: id + "-cone"})
+	}
+	if warn > 0 && warn < hi {
+		st := stroke{Colour: colOrange, Width: 1.5, Dash: dashWarn}
+		c.Levels = append(c.Levels, level{Name: "warn", Y: ys.At(warn), Stroke: st, Label: "warn " + fmtNum(warn)})
+		c.Legend = append(c.Legend, legendItem{Label: "warn level " + fmtNum(warn), Kind: "line", Stroke: st})
+	}
+	if crit > 0 && crit < hi {
+		st := stroke{Colour: colVermillion, Width: 1.5, Dash: dashCritical}
+		c.Levels = append(c.Levels, level{Name: "critical", Y: ys.At(crit), Stroke: st, Label: "critical " + fmtNum(crit)})
+		c.Legend = append(c.Legend, legendItem{Label: "critical level " + fmtNum(crit), Kind: "line", Stroke: st})
+	}
+	if hasClipped(c.Series) {
+		c.Legend = append(c.Legend, legendItem{Label: "off the scale / rank deficient", Kind: "marker", Fill: colVermillion})
+	}
+	c.LegendY = c.Plot.Bottom() + 58
+	return c
+}
+
+func hasClipped(ss []series) bool {
+	for _, s := range ss {
+		for _, d := range s.Dots {
+			if d.Shape == "triangle" {
+				return true
+			}
+		}
+	}
+	return false
+}
+
+// sparkline is the overview's small trend line.
+type sparkline struct {
+	W, H    float64
+	D       string
+	Colour  string
+	LevelY  float64 // critical level, 0 = not drawn
+	Dash    string
+	LastX   float64
+	LastY   float64
+	Title   string
+	Clipped bool
+}
+
+// sparklineOf draws the condition number of the trend points (log scale,
+// from 1 to past the critical level).
+func sparklineOf(tl []Point, crit float64) *sparkline {
+	if len(tl) < 2 {
+		return nil
+	}
+	sp := &sparkline{W: 132, H: 30, Colour: colBlue, Dash: dashCritical}
+	hi := math.Max(crit*2, 10)
+	for _, p := range tl {
+		if v := metricOf(p, MetricCondition); !math.IsInf(v, 0) && !math.IsNaN(v) {
+			hi = math.Max(hi, v)
+		}
+	}
+	hi = math.Min(hi, math.Max(crit*20, 100))
+	ys := logScale{Lo: 1, Hi: hi, P0: sp.H - 2, P1: 3}
+	xs := timeScale{T0: tl[0].At, T1: tl[len(tl)-1].At, P0: 2, P1: sp.W - 4}
+	var d strings.Builder
+	for i, p := range tl {
+		v := metricOf(p, MetricCondition)
+		if math.IsNaN(v) {
+			continue
+		}
+		if v >= hi {
+			sp.Clipped = true
+		}
+		op := "L"
+		if i == 0 || d.Len() == 0 {
+			op = "M"
+		}
+		fmt.Fprintf(&d, "%s%s %s", op, f1(xs.At(p.At)), f1(ys.At(v)))
+		sp.LastX, sp.LastY = xs.At(p.At), ys.At(v)
+	}
+	sp.D = d.String()
+	if crit > 0 {
+		sp.LevelY = ys.At(crit)
+	}
+	first, last := tl[0], tl[len(tl)-1]
+	sp.Title = fmt.Sprintf("condition number from %s (%s) to %s (%s); dashed: critical level %s",
+		fmtNum(metricOf(first, MetricCondition)), first.At.Format("Jan 2"),
+		fmtNum(metricOf(last, MetricCondition)), last.At.Format("Jan 2"), fmtNum(crit))
+	return sp
+}
+
+// f1 formats a coordinate with one decimal.
+func f1(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) }
+
+// fmtTick labels a log-axis tick: 1, 2, 5, 10, …, 1k, 10k, 1e6.
+func fmtTick(v float64) string {
+	switch {
+	case v >= 1e6:
+		return fmt.Sprintf("1e%d", int(math.Round(math.Log10(v))))
+	case v >= 1e3:
+		return strconv.FormatFloat(v/1e3, 'f', -1, 64) + "k"
+	}
+	return strconv.FormatFloat(v, 'f', -1, 64)
+}
+
+// fmtNum formats a metric with three significant digits; ∞ for +Inf and
+// "—" for NaN.
+func fmtNum(v float64) string {
+	switch {
+	case math.IsNaN(v):
+		return "—"
+	case math.IsInf(v, 1):
+		return "∞"
+	case math.IsInf(v, -1):
+		return "−∞"
+	}
+	a := math.Abs(v)
+	switch {
+	case a == 0:
+		return "0"
+	case a >= 1e5:
+		return strings.Replace(strconv.FormatFloat(v, 'e', 2, 64), "e+", "e", 1)
+	case a >= 100:
+		return strconv.FormatFloat(v, 'f', 0, 64)
+	case a >= 10:
+		return strconv.FormatFloat(v, 'f', 1, 64)
+	case a >= 0.01:
+		return strconv.FormatFloat(v, 'f', 2, 64)
+	}
+	return strconv.FormatFloat(v, 'g', 3, 64)
+}
