@@ -60,6 +60,9 @@ func (rep *Report) trust(d *design) {
 		t.Reason = fmt.Sprintf("%s has condition about %.3g; %s would have only about %.0f correct digits (%d needed): float64 cannot determine it more closely from these data",
 			name, t.EstimatedCondition, what, math.Floor(t.ExpectedDigits), RequiredDigits)
 	}
+	if d.path == PathCrossProduct && !t.Trustworthy && rep.Rank < len(rep.ProportionNames) {
+		t.Reason += fmt.Sprintf("; the exact dependencies reported are exact only to this path's resolution (singular values below %.2g of the largest)", d.rankTol(len(d.names)))
+	}
 	if d.cpFallback {
 		t.Reason += "; the cross-products were not positive definite, so the factor came from their eigendecomposition"
 	}
