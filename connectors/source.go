@@ -54,11 +54,11 @@ type Request struct {
 	Columns []string // the columns to accumulate, in order (a target last)
 	Weight  string   // optional weight column
 
-	TimeColumn  string        // optional; with Bucket, one accumulator per bucket
-	Bucket      string        // hour, day, week, month
+	TimeColumn  string         // optional; with Bucket, one accumulator per bucket
+	Bucket      string         // hour, day, week, month
 	Location    *time.Location // bucket boundaries; nil means UTC
-	Segment     string        // optional segment column: one accumulator per value
-	MaxSegments int           // bound on distinct segments; 0 means DefaultMaxSegments
+	Segment     string         // optional segment column: one accumulator per value
+	MaxSegments int            // bound on distinct segments; 0 means DefaultMaxSegments
 
 	SamplePct float64 // 0 or 100 means every row
 	Seed      int64
@@ -94,6 +94,11 @@ type Result struct {
 	Read    int64    // rows read from the database
 	Sampled bool     // rows were sampled (SamplePct)
 	Inexact []int64  // per column: values that did not fit float64 exactly
+
+	Skipped    []Column // columns found by discovery but not numeric, with their types
+	NoTime     int64    // rows left out because their time column was NULL or ±infinity
+	Partitions int      // ranges scanned at once (1 for a plain scan)
+	Pushdown   bool     // the sums were computed inside the database
 }
 
 // Merged returns one group holding all groups merged (the whole table).
@@ -129,6 +134,12 @@ type Source interface {
 	Scan(ctx context.Context, req Request) (*Result, error)
 	// Close releases the connection(s).
 	Close() error
+}
+
+// Estimator is an optional fast path: a cheap estimate of the rows a scan
+// of the request will read (0 when unknown), e.g. from planner statistics.
+type Estimator interface {
+	Estimate(ctx context.Context, req Request) (int64, error)
 }
 
 // Opener opens a Source from a URL.

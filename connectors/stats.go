@@ -1,0 +1,118 @@
+package connectors
+
+import (
+	"encoding/binary"
+	"fmt"
+	"hash/crc32"
+	"math"
+
+	"plumb/stream"
+)
+
+// Stats are the sufficient statistics of one group computed outside the
+// stream package, by a pushdown aggregate: sums of values and of products
+// shifted by a provisional origin close to the data, so that no raw sums of
+// products are formed.
+type Stats struct {
+	Names      []string
+	Used       int64   // rows folded in
+	SumWeights float64 // Σw over those rows (= Used when unweighted)
+	Dropped    int64
+	BadWeights int64
+	Null       []int64
+	NaN        []int64
+	Inf        []int64
+	Origin     []float64 // the shift c
+	Sum        []float64 // Σ w (x_j − c_j)
+	Cross      []float64 // Σ w (x_i − c_i)(x_j − c_j), i ≤ j, row-major upper triangle
+	Min, Max   []float64
+}
+
+// Moments turns the statistics into an accumulator, with mean
+// c + Σw(x−c)/W and co-moment Σw(x−c)(x−c)ᵀ − W·d·dᵀ, d = Σw(x−c)/W.
+//
+// It goes through the accumulator's versioned binary encoding, the one
+// public way to build a stream.Moments from parts.
+func (s *Stats) Moments() (*stream.Moments, error) {
+	p := len(s.Names)
+	if p == 0 || len(s.Null) != p || len(s.NaN) != p || len(s.Inf) != p || len(s.Origin) != p ||
+		len(s.Sum) != p || len(s.Min) != p || len(s.Max) != p || len(s.Cross) != p*(p+1)/2 {
+		panic(fmt.Sprintf("connectors: Stats.Moments: inconsistent lengths for %d columns", p))
+	}
+	w := s.SumWeights
+	d := make([]float64, p)
+	if w > 0 {
+		for j := range d {
+			d[j] = s.Sum[j] / w
+		}
+	}
+	var b []byte
+	le := binary.LittleEndian
+	f64 := func(v float64) { b = le.AppendUint64(b, math.Float64bits(v)) }
+	i64 := func(v int64) { b = le.AppendUint64(b, uint64(v)) }
+	b = append(b, 'P', 'L', 'M', 'B', 'M', 1)
+	hasOrg := s.Used > 0
+	if hasOrg {
+		b = append(b, 1)
+	} else {
+		b = append(b, 0)
+	}
+	b = le.AppendUint32(b, uint32(p))
+	for _, n := range s.Names {
+		b = le.AppendUint16(b, uint16(len(n)))
+		b = append(b, n...)
+	}
+	i64(s.Used)
+	f64(w)
+	i64(s.Dropped)
+	i64(s.BadWeights)
+	for _, v := range [][]int64{s.Null, s.NaN, s.Inf} {
+		for _, x := range v {
+			i64(x)
+		}
+	}
+	for j := 0; j < p; j++ {
+		if hasOrg {
+			f64(s.Origin[j])
+		} else {
+			f64(0)
+		}
+	}
+	for j := 0; j < p; j++ {
+		f64(d[j])
+	}
+	k := 0
+	for i := 0; i < p; i++ {
+		for j := i; j < p; j++ {
+			v := 0.0
+			if w > 0 {
+				v = s.Cross[k] - w*d[i]*d[j]
+				if i == j && v < 0 {
+					v = 0 // rounding on a (near) constant column
+				}
+			}
+			f64(v)
+			k++
+		}
+	}
+	for j := 0; j < p; j++ {
+		if s.Used > 0 {
+			f64(s.Min[j])
+		} else {
+			f64(math.Inf(1))
+		}
+	}
+	for j := 0; j < p; j++ {
+		if s.Used > 0 {
+			f64(s.Max[j])
+		} else {
+			f64(math.Inf(-1))
+		}
+	}
+	b = le.AppendUint32(b, crc32.Checksum(b, crc32.MakeTable(crc32.Castagnoli)))
+	m, err := stream.UnmarshalMoments(b)
+	if err != nil {
+		return nil, fmt.Errorf("connectors: building moments from aggregates: %w", err)
+	}
+	return m, nil
+}
