@@ -609,10 +609,10 @@ func TestVarianceSplit(t *testing.T) {
 		qr, cp := analyzeBoth(t, m, q, Options{Columns: cols, Target: tc.target})
 		for _, rep := range []*Report{qr, cp} {
 			for _, vs := range rep.Regression.Attribution {
-				if want, ok := tc.want[vs.Name]; ok && vs.Dominant != want {
-					t.Errorf("%s path, target %s: %s dominant %q, want %q (%+v)", rep.Path, tc.target, vs.Name, vs.Dominant, want, vs)
+				if want, ok := tc.want[vs.Name]; ok && (vs.Dominant != want || !vs.Inflated) {
+					t.Errorf("%s path, target %s: %s dominant %q (inflated %v), want %q (%+v)", rep.Path, tc.target, vs.Name, vs.Dominant, vs.Inflated, want, vs)
 				}
-				if vs.Dominant == CauseRedundancy && !strings.Contains(vs.Caution, "omitted-variable bias") {
+				if vs.Dominant == CauseRedundancy && vs.Inflated && !strings.Contains(vs.Caution, "omitted-variable bias") {
 					t.Errorf("%s: redundancy without the caution", vs.Name)
 				}
 				// Var(b_j) = σ²/(SST_j·(1−R_j²)) and the reported SE agree.
@@ -646,5 +646,141 @@ func TestPathsAgreeWhenTrustworthy(t *testing.T) {
 	compareReports(t, "paths", qr, cp, 1e-9)
 	if qr.Path != PathQR || cp.Path != PathCrossProduct {
 		t.Errorf("paths %q %q", qr.Path, cp.Path)
+	}
+}
+
+// Principal components and BKW proportions (properties of the
+// decompositions): eigenvalues descending and summing to the number of
+// varying columns (the trace of a correlation matrix), unit loadings,
+// cumulative share ending at 1, proportions summing to 1 per variable,
+// condition indices ascending from 1.
+func TestDecompositionProperties(t *testing.T) {
+	names, rows := waterTable(101, 1200)
+	m, q := feedRows(names, rows, 256)
+	cols := []string{"temperature", "rainfall", "population_served", "residential_connections", "pipe_age", "pressure_z3", "metered_volume", "billed_volume"}
+	qr, cp := analyzeBoth(t, m, q, Options{Columns: cols})
+	for _, rep := range []*Report{qr, cp} {
+		if len(rep.Eigenvalues) != len(cols)-1 || len(rep.EigenNames) != len(cols)-1 {
+			t.Fatalf("%s path: %d eigenvalues for %d varying columns", rep.Path, len(rep.Eigenvalues), len(cols)-1)
+		}
+		sum := 0.0
+		for i, l := range rep.Eigenvalues {
+			sum += l
+			if i > 0 && l > rep.Eigenvalues[i-1] {
+				t.Errorf("%s path: eigenvalues not descending: %v", rep.Path, rep.Eigenvalues)
+			}
+		}
+		if math.Abs(sum-float64(len(cols)-1)) > 1e-12 {
+			t.Errorf("%s path: eigenvalues sum to %.15g", rep.Path, sum)
+		}
+		for _, c := range rep.Components {
+			n2 := 0.0
+			for _, v := range c.Loadings {
+				n2 += v * v
+			}
+			if math.Abs(n2-1) > 1e-12 {
+				t.Errorf("%s path: loading norm² %g", rep.Path, n2)
+			}
+		}
+		if last := rep.Components[len(rep.Components)-1].Cumulative; math.Abs(last-1) > 1e-12 {
+			t.Errorf("%s path: cumulative share ends at %g", rep.Path, last)
+		}
+		for _, set := range []struct {
+			ci    []float64
+			props [][]float64
+			names []string
+		}{{rep.ConditionIndices, rep.Proportions, rep.ProportionNames}, {rep.CenteredConditionIndices, rep.CenteredProportions, rep.CenteredProportionNames}} {
+			if math.Abs(set.ci[0]-1) > 1e-14 {
+				t.Errorf("%s path: first condition index %g", rep.Path, set.ci[0])
+			}
+			for k := 1; k < len(set.ci); k++ {
+				if set.ci[k] < set.ci[k-1] {
+					t.Errorf("%s path: condition indices not ascending: %v", rep.Path, set.ci)
+				}
+			}
+			for j := range set.names {
+				s := 0.0
+				for k := range set.props {
+					s += set.props[k][j]
+				}
+				if math.Abs(s-1) > 1e-12 {
+					t.Errorf("%s path: proportions of %s sum to %g", rep.Path, set.names[j], s)
+				}
+			}
+		}
+	}
+}
+
+// Near dependency: billed_volume is a near copy of metered_volume (by
+// construction in waterTable), so a condition index above 30 has both
+// among its proportions above 0.5 (BKW reading rule).
+func TestNearDependency(t *testing.T) {
+	names, rows := waterTable(111, 1500)
+	m, q := feedRows(names, rows, 256)
+	qr, cp := analyzeBoth(t, m, q, Options{Columns: []string{"rainfall", "pressure_z1", "metered_volume", "billed_volume"}})
+	for _, rep := range []*Report{qr, cp} {
+		found := false
+		for _, d := range rep.Dependencies {
+			if d.Kind == KindNear && slices.Contains(d.Columns, "metered_volume") && slices.Contains(d.Columns, "billed_volume") {
+				found = true
+				if d.ConditionIndex <= DefaultCondLimit || d.Proportions["billed_volume"] <= 0.5 {
+					t.Errorf("%s path: %+v", rep.Path, d)
+				}
+			}
+		}
+		if !found {
+			t.Errorf("%s path: no near dependency of the volumes in %+v (indices %v)", rep.Path, rep.Dependencies, rep.ConditionIndices)
+		}
+		if v := colByName(t, rep, "billed_volume").VIF; v == nil || *v < 100 {
+			t.Errorf("%s path: billed_volume VIF %v", rep.Path, v)
+		}
+	}
+}
+
+// Weights (property): integer weights give the coefficients, VIFs and
+// residual sum of squares of the rows repeated that many times.
+func TestWeightsAsRepeats(t *testing.T) {
+	names, rows := waterTable(121, 400)
+	r := rand.New(rand.NewPCG(122, 123))
+	mw, qw := stream.NewMoments(names), stream.NewQR(names)
+	bw := stream.NewBlock(len(names), 64, true)
+	var rep [][]float64
+	for _, row := range rows {
+		w := 1 + r.IntN(3)
+		v, _ := bw.AppendRow()
+		copy(v, row)
+		bw.SetWeight(float64(w))
+		if bw.Full() {
+			mw.Add(bw)
+			qw.Add(bw)
+			bw.Reset()
+		}
+		for range w {
+			rep = append(rep, row)
+		}
+	}
+	mw.Add(bw)
+	qw.Add(bw)
+	mr, qrr := feedRows(names, rep, 64)
+	opt := Options{Columns: []string{"temperature", "rainfall", "population_served", "pipe_age"}, Target: "metered_volume"}
+	a, ac := analyzeBoth(t, mw, qw, opt)
+	b, bc := analyzeBoth(t, mr, qrr, opt)
+	for _, pair := range [][2]*Report{{a, b}, {ac, bc}} {
+		x, y := pair[0], pair[1]
+		for i := range x.Columns {
+			if relErr(*x.Columns[i].VIF, *y.Columns[i].VIF) > 1e-10 {
+				t.Errorf("%s path: %s: weighted VIF %.15g, repeated %.15g", x.Path, x.Columns[i].Name, *x.Columns[i].VIF, *y.Columns[i].VIF)
+			}
+		}
+		for i, c := range x.Regression.Coefficients {
+			if relErr(c.Estimate, y.Regression.Coefficients[i].Estimate) > 1e-10 {
+				t.Errorf("%s path: %s: %.15g vs %.15g", x.Path, c.Name, c.Estimate, y.Regression.Coefficients[i].Estimate)
+			}
+		}
+		ssx := x.Regression.Sigma2 * float64(x.Regression.DF)
+		ssy := y.Regression.Sigma2 * float64(y.Regression.DF)
+		if relErr(ssx, ssy) > 1e-10 {
+			t.Errorf("%s path: residual SS %.15g vs %.15g", x.Path, ssx, ssy)
+		}
 	}
 }

@@ -243,6 +243,12 @@ func splitVariance(d *design, c *collin, j int, sigma2, sst, inv, varY float64, 
 		vs.Dominant = CausePoorFit
 		vs.Remedy = fmt.Sprintf("σ² is %.3g of the target's variance: add the relevant explanatory variables that are missing", vs.FitSeverity*fitAlarm)
 	}
+	top := math.Max(vs.RedundancySeverity, math.Max(vs.VariationSeverity, vs.FitSeverity))
+	vs.Inflated = top >= 1
+	if !vs.Inflated {
+		vs.Remedy = fmt.Sprintf("no factor reaches its alarm level (largest: %s at %.2g of it); nothing to fix", vs.Dominant, top)
+		vs.Caution = ""
+	}
 	return vs
 }
 

@@ -241,6 +241,10 @@ type VarianceSplit struct {
 	VariationSeverity  float64 `json:"variation_severity"`  // (0.01 / (sd_j/scale_j))²
 	RedundancySeverity float64 `json:"redundancy_severity"` // VIF_j / VIFLimit
 
+	// Inflated reports whether the dominant severity reaches its alarm
+	// level (1); when it does not, Dominant is only the largest of three
+	// unremarkable factors and Remedy says so.
+	Inflated bool   `json:"inflated"`
 	Dominant string `json:"dominant"`
 	Remedy   string `json:"remedy"`
 	Caution  string `json:"caution,omitempty"`
