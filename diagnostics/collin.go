@@ -17,6 +17,9 @@ const (
 	// so that its dependent column has coefficient 1, smaller than this
 	// does not involve its column.
 	involvedTol = 1e-6
+	// tieTol: null-vector components this close (relative) tie when the
+	// dependent column is picked.
+	tieTol = 1e-9
 )
 
 // exactDep is one exact dependency among the varying columns, in
@@ -136,11 +139,17 @@ func (c *collin) reduceNullSpace() {
 	pivot := make([]int, m)
 	isPiv := make([]bool, nv)
 	for s := 0; s < m; s++ {
+		// Components equal to within rounding (a duplicated column) tie;
+		// the tie goes to the later column, usually the derived one.
 		bi, bj, best := -1, -1, -1.0
 		for i := s; i < m; i++ {
 			for j := 0; j < nv; j++ {
-				if !isPiv[j] && math.Abs(a.at(i, j)) > best {
-					bi, bj, best = i, j, math.Abs(a.at(i, j))
+				v := math.Abs(a.at(i, j))
+				if isPiv[j] {
+					continue
+				}
+				if v > best*(1+tieTol) || (v >= best*(1-tieTol) && j > bj) {
+					bi, bj, best = i, j, v
 				}
 			}
 		}

@@ -784,3 +784,51 @@ func TestWeightsAsRepeats(t *testing.T) {
 		}
 	}
 }
+
+// Degenerate inputs are reported, not panics or NaN (JSON marshals): every
+// regressor constant, a duplicated column, a target that is a constant.
+func TestDegenerateInputs(t *testing.T) {
+	names := []string{"pressure_z3", "pressure_z4", "temperature", "temperature_copy", "metered_volume", "stuck_meter"}
+	r := rand.New(rand.NewPCG(131, 132))
+	var rows [][]float64
+	for i := 0; i < 50; i++ {
+		temp := 15 + 8*r.NormFloat64()
+		rows = append(rows, []float64{52.3, -1.5, temp, temp, 300*temp + 100*r.NormFloat64(), 7})
+	}
+	m, q := feedRows(names, rows, 16)
+	cases := []struct {
+		name string
+		opt  Options
+		eqs  []string
+		note string
+	}{
+		{"all constant", Options{Columns: []string{"pressure_z3", "pressure_z4"}, Target: "metered_volume"},
+			[]string{"pressure_z3 = 52.3", "pressure_z4 = -1.5"}, ""},
+		{"duplicate", Options{Columns: []string{"temperature", "temperature_copy"}, Target: "metered_volume"},
+			[]string{"temperature_copy = 1·temperature + 0"}, ""},
+		{"constant target", Options{Columns: []string{"temperature", "pressure_z3"}, Target: "stuck_meter"},
+			[]string{"pressure_z3 = 52.3"}, "does not vary"},
+	}
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			qr, cp := analyzeBoth(t, m, q, tc.opt)
+			for _, rep := range []*Report{qr, cp} {
+				var eqs []string
+				for _, d := range rep.Dependencies {
+					if d.Kind == KindExact {
+						eqs = append(eqs, d.Equation)
+					}
+				}
+				if !slices.Equal(eqs, tc.eqs) {
+					t.Errorf("%s path: equations %q, want %q", rep.Path, eqs, tc.eqs)
+				}
+				if tc.note != "" && (len(rep.Notes) == 0 || !strings.Contains(rep.Notes[0], tc.note)) {
+					t.Errorf("%s path: notes %q", rep.Path, rep.Notes)
+				}
+				if tc.note == "" && rep.Regression == nil {
+					t.Errorf("%s path: no regression", rep.Path)
+				}
+			}
+		})
+	}
+}

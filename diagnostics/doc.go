@@ -51,8 +51,9 @@
 // The null space (trailing right singular vectors of S) is reduced by
 // Gauss–Jordan elimination with complete pivoting: each equation's
 // dependent column is the one with the largest remaining standardized
-// component, expressed by columns that are not dependents, so that several
-// independent dependencies are reported separately. Standardized
+// component (components equal to 1e-9 relative tie, and the tie goes to
+// the later column), expressed by columns that are not dependents, so that
+// several independent dependencies are reported separately. Standardized
 // coefficients below 1e-6 are dropped; the rest are refined by least
 // squares of the dependent column on its terms and converted to original
 // units, with the intercept x̄_d − Σ b_j x̄_j (set to 0 when below 1e-9 of
