@@ -92,7 +92,7 @@ func vifChart(id string, cols []diagnostics.ColumnReport, warn, crit float64) *b
 	c.Patterns = []patternDef{
 		{ID: id + "-warning", Colour: colOrange, Kind: "diag"},
 		{ID: id + "-critical", Colour: colVermillion, Kind: "cross"},
-		{ID: id + "-undefined", Colour: colGrey, Kind: "dots"},
+		{ID: id + "-undefined", Colour: "#A8A8A8", Kind: "dots"},
 	}
 	used := map[string]bool{}
 	for i, r := range rows {

@@ -213,7 +213,7 @@ func TestBrowserDashboard(t *testing.T) {
 		{"legends", `document.querySelectorAll('svg[data-chart] g[data-legend]').length`, 5},
 		{"VIF bars", `document.querySelectorAll('svg[data-chart=bars] g[data-bar]:not([data-row])').length`, len(whole.Report.Columns)},
 		{"heat map cells", `document.querySelectorAll('svg[data-chart=heatmap] g[data-cells] rect').length`, len(whole.Report.Columns) * len(whole.Report.Columns)},
-		{"variance split rows", `document.querySelectorAll('tr[data-coefficient]').length`, len(whole.Report.Regression.Attribution)},
+		{"variance split rows", `document.querySelectorAll('tbody[data-coefficient]').length`, len(whole.Report.Regression.Attribution)},
 		{"run log rows", `document.querySelectorAll('tr[data-run]').length`, len(d.Runs)},
 		{"inline svg charts", `document.querySelectorAll('figure.chart > svg').length`, 5},
 		{"images or scripts", `document.querySelectorAll('img, script, object, iframe').length`, 0},

@@ -88,6 +88,7 @@ type lineChart struct {
 	Series          []series
 	Levels          []level
 	Cone            *cone
+	Clipped         []clipRun
 	Legend          []legendItem
 	LegendY         float64
 	Empty           string // message when there is nothing to draw
@@ -225,7 +226,7 @@ func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float
 	}
 	clip := math.Inf(1)
 	if crit > 0 {
-		clip = crit * 100
+		clip = crit * 1000
 	}
 	hi = math.Min(hi, clip)
 	hi = math.Pow(10, math.Ceil(math.Log10(hi)-1e-9))
@@ -258,13 +259,30 @@ func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float
 			pen = true
 		}
 		if v >= hi {
-			what := "off the scale"
+			what := "above " + fmtTick(hi) + ", off the scale"
 			if p.RankDeficiency() > 0 {
-				what = fmt.Sprintf("rank deficient by %d (exact dependency)", p.RankDeficiency())
+				what = fmt.Sprintf("rank deficient by %d: exact dependency", p.RankDeficiency())
 			}
-			s.Dots = append(s.Dots, dot{X: x, Y: c.Plot.Y, R: 4.5, Shape: "triangle", Fill: colVermillion,
-				Title: p.At.Format(time.DateOnly) + ": " + what})
+			if n := len(c.Clipped); n > 0 && c.Clipped[n-1].open && c.Clipped[n-1].What == what {
+				c.Clipped[n-1].X1 = x
+				c.Clipped[n-1].To = p.At
+			} else {
+				c.closeClipped()
+				c.Clipped = append(c.Clipped, clipRun{X0: x, X1: x, From: p.At, To: p.At, What: what, open: true})
+			}
+		} else {
+			c.closeClipped()
 		}
+	}
+	c.closeClipped()
+	for i := range c.Clipped {
+		r := &c.Clipped[i]
+		r.Y = c.Plot.Y
+		r.Title = r.From.Format("Jan 2")
+		if !r.To.Equal(r.From) {
+			r.Title += " – " + r.To.Format("Jan 2")
+		}
+		r.Title += ": " + r.What
 	}
 	last := tl[len(tl)-1]
 	if v := metricOf(last, metric); !math.IsNaN(v) && v < hi {
@@ -307,22 +325,27 @@ func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float
 		c.Levels = append(c.Levels, level{Name: "critical", Y: ys.At(crit), Stroke: st, Label: "critical " + fmtNum(crit)})
 		c.Legend = append(c.Legend, legendItem{Label: "critical level " + fmtNum(crit), Kind: "line", Stroke: st})
 	}
-	if hasClipped(c.Series) {
-		c.Legend = append(c.Legend, legendItem{Label: "off the scale / rank deficient", Kind: "marker", Fill: colVermillion})
+	if len(c.Clipped) > 0 {
+		c.Legend = append(c.Legend, legendItem{Label: "off the scale or rank deficient (∞)", Kind: "marker", Fill: colVermillion, Pattern: id + "-clip-fill"})
 	}
 	c.LegendY = c.Plot.Bottom() + 58
 	return c
 }
 
-func hasClipped(ss []series) bool {
-	for _, s := range ss {
-		for _, d := range s.Dots {
-			if d.Shape == "triangle" {
-				return true
-			}
-		}
+// clipRun is a stretch of points above the top of the axis, drawn as a
+// hatched band along the top edge.
+type clipRun struct {
+	X0, X1, Y float64
+	From, To  time.Time
+	What      string
+	Title     string
+	open      bool
+}
+
+func (c *lineChart) closeClipped() {
+	if n := len(c.Clipped); n > 0 {
+		c.Clipped[n-1].open = false
 	}
-	return false
 }
 
 // sparkline is the overview's small trend line.
@@ -345,14 +368,22 @@ func sparklineOf(tl []Point, crit float64) *sparkline {
 		return nil
 	}
 	sp := &sparkline{W: 132, H: 30, Colour: colBlue, Dash: dashCritical}
-	hi := math.Max(crit*2, 10)
+	// The scale spans the finite values and the critical level, so the
+	// shape of the trend shows; unbounded values sit on the top edge.
+	lo, hi := math.Inf(1), math.Inf(-1)
+	if crit > 0 {
+		lo, hi = crit, crit
+	}
 	for _, p := range tl {
-		if v := metricOf(p, MetricCondition); !math.IsInf(v, 0) && !math.IsNaN(v) {
-			hi = math.Max(hi, v)
+		if v := metricOf(p, MetricCondition); !math.IsInf(v, 0) && !math.IsNaN(v) && v > 0 {
+			lo, hi = math.Min(lo, v), math.Max(hi, v)
 		}
 	}
-	hi = math.Min(hi, math.Max(crit*20, 100))
-	ys := logScale{Lo: 1, Hi: hi, P0: sp.H - 2, P1: 3}
+	if math.IsInf(lo, 0) {
+		lo, hi = 1, 10
+	}
+	lo, hi = math.Max(lo/1.25, 1e-3), hi*1.25
+	ys := logScale{Lo: lo, Hi: hi, P0: sp.H - 2, P1: 3}
 	xs := timeScale{T0: tl[0].At, T1: tl[len(tl)-1].At, P0: 2, P1: sp.W - 4}
 	var d strings.Builder
 	for i, p := range tl {
@@ -415,9 +446,18 @@ func fmtNum(v float64) string {
 	case a >= 100:
 		return strconv.FormatFloat(v, 'f', 0, 64)
 	case a >= 10:
-		return strconv.FormatFloat(v, 'f', 1, 64)
+		return trimZeros(strconv.FormatFloat(v, 'f', 1, 64))
 	case a >= 0.01:
-		return strconv.FormatFloat(v, 'f', 2, 64)
+		return trimZeros(strconv.FormatFloat(v, 'f', 2, 64))
 	}
 	return strconv.FormatFloat(v, 'g', 3, 64)
+}
+
+// trimZeros drops trailing zeros of a decimal: "5.00" → "5", "7.50" → "7.5".
+func trimZeros(s string) string {
+	if !strings.Contains(s, ".") {
+		return s
+	}
+	s = strings.TrimRight(s, "0")
+	return strings.TrimSuffix(s, ".")
 }

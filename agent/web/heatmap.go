@@ -149,8 +149,8 @@ func correlationMap(id string, names []string, r [][]float64, constant map[strin
 	order := clusterOrder(r)
 	cell := math.Min(46, math.Max(14, 560/math.Max(float64(n), 1)))
 	h := &heatMap{ID: id, Title: "Correlation matrix", Cell: cell, X0: 190, Y0: 170}
-	h.W = h.X0 + cell*float64(n) + 30
-	h.W = math.Max(h.W, 520)
+	h.W = h.X0 + cell*float64(n) + 150 // room for the last column's slanted label
+	h.W = math.Max(h.W, h.X0+560)
 	h.ScaleY = h.Y0 + cell*float64(n) + 28
 	h.H = h.ScaleY + 48
 	h.Desc = fmt.Sprintf("Pearson correlations of %d columns, ordered by average-linkage clustering on 1 − |r|", n)
@@ -212,7 +212,10 @@ func fmtCorr(v float64) string {
 	}
 	s := strconv.FormatFloat(math.Abs(v), 'f', digits, 64)
 	s = strings.TrimPrefix(s, "0")
-	if v < 0 && s != ".00" {
+	if s == ".00" {
+		return "0"
+	}
+	if v < 0 {
 		return "−" + s
 	}
 	return s

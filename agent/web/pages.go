@@ -210,11 +210,19 @@ type watchData struct {
 	Exact, Near   []depView
 	Split         *barChart
 	SplitRows     []splitRow
+	Cautions      []string // distinct cautions of the split, shown once
 	Regression    *diagnostics.Regression
 	Runs          []Run
 	Alerts        []Alert
-	OpenAlerts    []Alert
-	SegmentAlerts int
+	OpenAlerts    []Alert        // of the segment shown, and blind alerts
+	OtherAlerts   []segmentCount // open alerts of the other segments
+}
+
+// segmentCount is a number of open alerts in one segment.
+type segmentCount struct {
+	Segment string
+	Count   int
+	Href    string
 }
 
 func (s *Server) watchPage(w http.ResponseWriter, r *http.Request) {
@@ -247,9 +255,24 @@ func (s *Server) watchPage(w http.ResponseWriter, r *http.Request) {
 		seg = d.Segment(h.Segment)
 	}
 	data := watchData{page: page{Title: d.Summary.Name, Generated: now}, Summary: d.Summary, Runs: d.Runs, Alerts: d.Alerts}
+	cur := ""
+	if seg != nil {
+		cur = seg.Segment
+	}
+	others := map[string]int{}
 	for _, a := range d.Alerts {
-		if a.Open() {
+		switch {
+		case !a.Open():
+		case a.Segment == cur || a.Rule == "blind":
 			data.OpenAlerts = append(data.OpenAlerts, a)
+		default:
+			others[a.Segment]++
+		}
+	}
+	sortAlerts(data.OpenAlerts)
+	for _, ss := range d.Summary.Segments {
+		if n := others[ss.Segment]; n > 0 {
+			data.OtherAlerts = append(data.OtherAlerts, segmentCount{Segment: ss.Segment, Count: n, Href: watchURL(d.Summary.Name, ss.Segment)})
 		}
 	}
 	if seg != nil {
@@ -300,6 +323,9 @@ func (s *Server) watchPage(w http.ResponseWriter, r *http.Request) {
 						}
 					}
 					data.SplitRows = append(data.SplitRows, row)
+					if vs.Caution != "" && !slices.Contains(data.Cautions, vs.Caution) {
+						data.Cautions = append(data.Cautions, vs.Caution)
+					}
 				}
 			}
 		}

@@ -3,6 +3,7 @@ package web
 import (
 	"context"
 	"errors"
+	"net"
 	"io"
 	"log/slog"
 	"net/http"
@@ -75,4 +76,100 @@ func TestPagesRender(t *testing.T) {
 	}
 }
 
-var _ = errors.Is
+// f0 is a fixed clock for tests that do not look at times.
+var f0 = time.Date(2026, 9, 30, 12, 0, 0, 0, time.UTC)
+
+func TestListenNeedsToken(t *testing.T) {
+	cases := []struct {
+		addr, token string
+		ok          bool
+	}{
+		{"127.0.0.1:9464", "", true},
+		{"localhost:9464", "", true},
+		{"[::1]:9464", "", true},
+		{"127.0.0.2:9464", "", true}, // all of 127/8 is loopback
+		{"0.0.0.0:9464", "", false},
+		{":9464", "", false}, // every interface
+		{"[::]:9464", "", false},
+		{"192.168.1.20:9464", "", false},
+		{"dashboard.internal:9464", "", false},
+		{"0.0.0.0:9464", "s3cret", true},
+		{"192.168.1.20:9464", "s3cret", true},
+	}
+	for _, c := range cases {
+		_, err := New(Options{View: &Memory{}, Listen: c.addr, Token: c.token})
+		if c.ok && err != nil {
+			t.Errorf("%s token=%q: %v", c.addr, c.token, err)
+		}
+		if !c.ok {
+			if !errors.Is(err, ErrTokenRequired) {
+				t.Errorf("%s without a token: err = %v, want ErrTokenRequired", c.addr, err)
+			} else if !strings.Contains(err.Error(), TokenEnv) {
+				t.Errorf("%s: the error should name %s: %v", c.addr, TokenEnv, err)
+			}
+		}
+	}
+	if _, err := New(Options{View: &Memory{}, Listen: "9464"}); err == nil {
+		t.Errorf("a listen address without a port should be refused")
+	}
+}
+
+func TestTokenRequired(t *testing.T) {
+	f := buildDemoFixture(t)
+	const token = "c0rrect-horse"
+	s, err := New(Options{View: f.view, Listen: "0.0.0.0:0", Token: token})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// A real listener on loopback, serving the non-loopback server's handler.
+	ts := httptest.NewServer(s.Handler())
+	defer ts.Close()
+	paths := []string{"/", "/watches/district_daily", "/metrics", "/healthz", "/api/watches", "/api/alerts", "/static/style.css"}
+	for _, p := range paths {
+		for _, bad := range []string{"", "wrong", token + "x", token[:len(token)-1]} {
+			code, h, _ := get(t, ts.URL+p, bad)
+			if code != http.StatusUnauthorized {
+				t.Errorf("GET %s with token %q: %d, want 401", p, bad, code)
+			}
+			if !strings.HasPrefix(h.Get("WWW-Authenticate"), "Bearer") {
+				t.Errorf("GET %s: 401 without a Bearer challenge", p)
+			}
+		}
+		if code, _, body := get(t, ts.URL+p, token); code != http.StatusOK {
+			t.Errorf("GET %s with the token: %d\n%s", p, code, body)
+		}
+	}
+	// Other schemes and a token in the query string are refused.
+	req, _ := http.NewRequest("GET", ts.URL+"/metrics?token="+token, nil)
+	req.SetBasicAuth("plumb", token)
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	resp.Body.Close()
+	if resp.StatusCode != http.StatusUnauthorized {
+		t.Errorf("basic auth: %d, want 401", resp.StatusCode)
+	}
+}
+
+func TestServerRun(t *testing.T) {
+	s, err := New(Options{View: &Memory{}, Listen: "127.0.0.1:0"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- s.Serve(ctx, ln) }()
+	code, _, body := get(t, "http://"+ln.Addr().String()+"/healthz", "")
+	if code != 200 || !strings.Contains(body, `"ok"`) {
+		t.Errorf("/healthz: %d %s", code, body)
+	}
+	cancel()
+	if err := <-done; err != nil {
+		t.Errorf("Serve after cancel: %v", err)
+	}
+}
