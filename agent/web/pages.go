@@ -198,24 +198,24 @@ type splitRow struct {
 
 type watchData struct {
 	page
-	Summary       WatchSummary
-	Segment       *SegmentDetail
-	Segments      []segmentLink
-	Report        *diagnostics.Report
-	CondChart     *lineChart
-	VIFChart      *lineChart
-	Forecasts     []Forecast
-	Bars          *barChart
-	Heat          *heatMap
-	Exact, Near   []depView
-	Split         *barChart
-	SplitRows     []splitRow
-	Cautions      []string // distinct cautions of the split, shown once
-	Regression    *diagnostics.Regression
-	Runs          []Run
-	Alerts        []Alert
-	OpenAlerts    []Alert        // of the segment shown, and blind alerts
-	OtherAlerts   []segmentCount // open alerts of the other segments
+	Summary     WatchSummary
+	Segment     *SegmentDetail
+	Segments    []segmentLink
+	Report      *diagnostics.Report
+	CondChart   *lineChart
+	VIFChart    *lineChart
+	Forecasts   []Forecast
+	Bars        *barChart
+	Heat        *heatMap
+	Exact, Near []depView
+	Split       *barChart
+	SplitRows   []splitRow
+	Cautions    []string // distinct cautions of the split, shown once
+	Regression  *diagnostics.Regression
+	Runs        []Run
+	Alerts      []Alert
+	OpenAlerts  []Alert        // of the segment shown, and blind alerts
+	OtherAlerts []segmentCount // open alerts of the other segments
 }
 
 // segmentCount is a number of open alerts in one segment.

@@ -3,9 +3,9 @@ package web
 import (
 	"context"
 	"errors"
-	"net"
 	"io"
 	"log/slog"
+	"net"
 	"net/http"
 	"net/http/httptest"
 	"os"
