@@ -16,10 +16,10 @@ import (
 // The tests' View is built from real computations: the demo scenario's
 // rows are accumulated per district and day (stream), merged into
 // trailing windows and analysed (diagnostics.Analyze), as the agent's
-// backfill does. The trend, forecast and alerts below are simple stand-ins
-// for the agent's drift rules (a Theil–Sen slope of the log metric, level
-// crossings): they give the pages something real to draw, not the
-// agent's verdicts.
+// backfill does. The forecasts are TrendForecast's; the alerts below are
+// simple stand-ins for the agent's rules (level crossings, new exact
+// dependencies and constant columns): they give the pages something real
+// to draw, not the agent's verdicts.
 
 var demoRegressors = []string{
 	"temperature_c", "rainfall_mm", "population_served",
@@ -266,64 +266,13 @@ func fixtureAlerts(w fixtureWatch, seg string, at time.Time, p Point, rep *diagn
 	return out
 }
 
-// fixtureForecasts fits a Theil–Sen slope to the log of each metric over
-// the last 14 points and projects it over the horizon; the band uses the
-// 10th and 90th percentiles of the pairwise slopes.
+// fixtureForecasts projects both metrics over the last 14 points.
 func fixtureForecasts(tl []Point, l Limits) []Forecast {
 	var out []Forecast
-	for _, metric := range []string{MetricCondition, MetricMaxVIF} {
-		crit := l.CondCritical
-		if metric == MetricMaxVIF {
-			crit = l.VIFCritical
-		}
-		recent := tl[max(0, len(tl)-14):]
-		var xs, ys []float64
-		for _, p := range recent {
-			v := metricOf(p, metric)
-			if math.IsInf(v, 0) || math.IsNaN(v) || v <= 0 {
-				xs, ys = nil, nil // a singular stretch: no trend through it
-				continue
-			}
-			xs = append(xs, p.At.Sub(recent[0].At).Hours()/24)
-			ys = append(ys, math.Log(v))
-		}
-		if len(xs) < 7 {
-			continue
-		}
-		var slopes []float64
-		for i := range xs {
-			for j := i + 1; j < len(xs); j++ {
-				slopes = append(slopes, (ys[j]-ys[i])/(xs[j]-xs[i]))
-			}
-		}
-		sort.Float64s(slopes)
-		q := func(f float64) float64 { return slopes[int(f*float64(len(slopes)-1))] }
-		slope, lo, hi := q(0.5), q(0.1), q(0.9)
-		var icpt []float64
-		for i := range xs {
-			icpt = append(icpt, ys[i]-slope*xs[i])
-		}
-		sort.Float64s(icpt)
-		b := icpt[len(icpt)/2]
-		last := recent[len(recent)-1]
-		x0 := last.At.Sub(recent[0].At).Hours() / 24
-		y0 := b + slope*x0
-		fc := Forecast{Metric: metric}
-		days := int(l.Horizon.Hours() / 24)
-		for k := 0; k <= days; k++ {
-			at := last.At.AddDate(0, 0, k)
-			fp := ForecastPoint{At: at, Value: math.Exp(y0 + slope*float64(k)),
-				Low: math.Exp(y0 + lo*float64(k)), High: math.Exp(y0 + hi*float64(k))}
-			fc.Points = append(fc.Points, fp)
-			if fc.Crosses.IsZero() && k > 0 && fp.Value >= crit && math.Exp(y0) < crit {
-				fc.Crosses = at
-			}
-		}
-		rate := (math.Exp(slope) - 1) * 100
-		fc.Message = fmt.Sprintf("%s, %+.1f%%/day over the last %d points", fmtNum(math.Exp(y0)), rate, len(xs))
-		if !fc.Crosses.IsZero() {
-			fc.Message += fmt.Sprintf(": reaches %s in about %d days", fmtNum(crit), int(math.Round(fc.Crosses.Sub(last.At).Hours()/24)))
-		}
+	if fc, ok := TrendForecast(tl, MetricCondition, 14, l.Horizon, l.CondCritical); ok {
+		out = append(out, fc)
+	}
+	if fc, ok := TrendForecast(tl, MetricMaxVIF, 14, l.Horizon, l.VIFCritical); ok {
 		out = append(out, fc)
 	}
 	return out
