@@ -17,9 +17,9 @@ const (
 	// so that its dependent column has coefficient 1, smaller than this
 	// does not involve its column.
 	involvedTol = 1e-6
-	// tieTol: null-vector components this close (relative) tie when the
-	// dependent column is picked.
-	tieTol = 1e-9
+	// pivotFloor: a column may be picked as dependent when its
+	// null-vector component is at least this share of the largest.
+	pivotFloor = 0.1
 )
 
 // exactDep is one exact dependency among the varying columns, in
@@ -122,8 +122,9 @@ func (c *collin) vpos(j int) int {
 
 // reduceNullSpace turns the null-space basis (the trailing right singular
 // vectors) into one equation per dependency: Gauss–Jordan elimination with
-// complete pivoting picks, each time, the column with the largest remaining
-// standardized component as the dependent one and removes it from the
+// threshold pivoting picks, each time, the last column (in column order)
+// whose standardized component is within pivotFloor of the largest
+// remaining one as the dependent one and removes it from the
 // other vectors, so that each equation has its own dependent column
 // expressed by independent ones. The coefficients are then refined by a
 // least-squares fit of the dependent column on its terms.
@@ -139,17 +140,24 @@ func (c *collin) reduceNullSpace() {
 	pivot := make([]int, m)
 	isPiv := make([]bool, nv)
 	for s := 0; s < m; s++ {
-		// Components equal to within rounding (a duplicated column) tie;
-		// the tie goes to the later column, usually the derived one.
-		bi, bj, best := -1, -1, -1.0
+		// The dependent column is the last one, in the caller's column
+		// order, whose component is at least pivotFloor of the largest
+		// remaining one: derived columns (a total, a rescaled copy, the
+		// last dummy) usually come after their sources, and the floor
+		// keeps the elimination's growth bounded by 1/pivotFloor.
+		best := 0.0
 		for i := s; i < m; i++ {
 			for j := 0; j < nv; j++ {
-				v := math.Abs(a.at(i, j))
-				if isPiv[j] {
-					continue
+				if !isPiv[j] {
+					best = math.Max(best, math.Abs(a.at(i, j)))
 				}
-				if v > best*(1+tieTol) || (v >= best*(1-tieTol) && j > bj) {
-					bi, bj, best = i, j, v
+			}
+		}
+		bi, bj := -1, -1
+		for i := s; i < m; i++ {
+			for j := 0; j < nv; j++ {
+				if !isPiv[j] && math.Abs(a.at(i, j)) >= pivotFloor*best && j > bj {
+					bi, bj = i, j
 				}
 			}
 		}

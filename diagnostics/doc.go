@@ -49,10 +49,12 @@
 //
 // Report.RankTolerance is the relative singular-value tolerance used.
 // The null space (trailing right singular vectors of S) is reduced by
-// Gauss–Jordan elimination with complete pivoting: each equation's
-// dependent column is the one with the largest remaining standardized
-// component (components equal to 1e-9 relative tie, and the tie goes to
-// the later column), expressed by columns that are not dependents, so that
+// Gauss–Jordan elimination with threshold pivoting: each equation's
+// dependent column is the last one, in the caller's column order, whose
+// standardized component is at least 0.1 of the largest remaining one
+// (derived columns — a total, a rescaled copy, the last dummy — usually
+// follow their sources, and the threshold bounds the elimination's
+// growth), expressed by columns that are not dependents, so that
 // several independent dependencies are reported separately. Standardized
 // coefficients below 1e-6 are dropped; the rest are refined by least
 // squares of the dependent column on its terms and converted to original

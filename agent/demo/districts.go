@@ -70,14 +70,14 @@ type Row struct {
 func (s Scenario) Rows() []Row {
 	rng := rand.New(rand.NewPCG(s.Seed, s.Seed^0x9e3779b97f4a7c15))
 	type district struct {
-		pop, growth, resPer, com, age, pressure float64
+		pop, growth, res, com, age, pressure float64
 	}
 	ds := make([]district, len(s.Districts))
 	for i := range ds {
 		ds[i] = district{
 			pop:      18000 + 9000*rng.Float64(),
-			growth:   2 + 4*rng.Float64(),
-			resPer:   2.2 + 0.4*rng.Float64(),
+			growth:   0.5 + 1.5*rng.Float64(),
+			res:      7000 + 3000*rng.Float64(),
 			com:      300 + 400*rng.Float64(),
 			age:      15 + 30*rng.Float64(),
 			pressure: 3.2 + 0.8*rng.Float64(),
@@ -99,15 +99,20 @@ func (s Scenario) Rows() []Row {
 		}
 		// Smart meters roll out over the period: the share of accounts
 		// billed on a real reading rather than an estimate.
-		rollout := 0.25 + 0.74/(1+math.Exp(-(float64(d)-60)/14))
+		rollout := 0.2 + 0.795/(1+math.Exp(-(float64(d)-62)/11))
 		for i, name := range s.Districts {
 			x := &ds[i]
-			pop := x.pop + x.growth*float64(d) + 40*rng.NormFloat64()
-			res := math.Round(pop/x.resPer + 25*rng.NormFloat64())
-			com := math.Round(x.com + 0.4*float64(d) + 8*rng.NormFloat64())
+			// Mains renewal now and then lowers the network's mean age.
+			x.age += 1.0 / 365
+			if rng.Float64() < 0.08 {
+				x.age -= 0.05 + 0.25*rng.Float64()
+			}
+			pop := x.pop + x.growth*float64(d) + 120*rng.NormFloat64()
+			res := math.Round(x.res + 0.3*float64(d) + 40*rng.NormFloat64())
+			com := math.Round(x.com + 20*rng.NormFloat64())
 			total := res + com
 			if d < s.ChangeDay {
-				total += math.Round(60 + 25*rng.Float64()) // other connections, no longer counted after the change
+				total += math.Round(70 + 15*rng.NormFloat64()) // other connections, no longer counted after the change
 			}
 			temp := round1(baseTemp + 0.8*rng.NormFloat64())
 			rainfall := round1(math.Max(0, rain*(0.7+0.6*rng.Float64())))
@@ -115,11 +120,10 @@ func (s Scenario) Rows() []Row {
 			if name == s.StuckDistrict && d >= s.StuckDay {
 				pressure = 3.415
 			}
-			metered := pop*0.145 + 95*(temp-15) - 22*rainfall + 180*rng.NormFloat64()
-			estimate := metered*(0.9+0.15*rng.NormFloat64()) + 400*rng.NormFloat64()
-			billed := rollout*metered*(1+0.01*rng.NormFloat64()) + (1-rollout)*estimate
-			age := x.age + float64(d)/365
-			leak := 18*age + 260*(pressure-3.5)
+			metered := pop*0.145 + 95*(temp-15) - 22*rainfall + 260*rng.NormFloat64()
+			estimate := metered*(0.9+0.08*rng.NormFloat64()) + 500*rng.NormFloat64()
+			billed := rollout*metered*(1+0.004*rng.NormFloat64()) + (1-rollout)*estimate
+			leak := 18*x.age + 260*(pressure-3.5)
 			demand := metered + leak + 150*rng.NormFloat64()
 			rows = append(rows, Row{
 				Day: day, District: name,
@@ -128,7 +132,7 @@ func (s Scenario) Rows() []Row {
 				ResidentialConnections: int64(res),
 				CommercialConnections:  int64(com),
 				TotalConnections:       int64(total),
-				PipeAgeYears:           round3(age),
+				PipeAgeYears:           round3(x.age),
 				PressureBar:            pressure,
 				MeteredVolumeM3:        round1(metered),
 				BilledVolumeM3:         round1(billed),

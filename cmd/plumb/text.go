@@ -107,7 +107,7 @@ func writeText(w io.Writer, out *scanOutput) error {
 		tw = tabwriter.NewWriter(&b, 2, 4, 2, ' ', tabwriter.AlignRight)
 		fmt.Fprintln(tw, "group\tcolumns\tGVIF\tGVIF^(1/2df)\t")
 		for _, g := range r.GVIF {
-			fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t\n", g.Name, len(g.Columns), num(g.GVIF, "%.4g"), num(g.Scaled, "%.4g"))
+			fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t\n", g.Name, len(g.Columns), num(g.GVIF, "%.4g"), num(g.GVIFAdjusted, "%.4g"))
 		}
 		tw.Flush()
 	}
