@@ -106,7 +106,7 @@ func TestWriteSQLite(t *testing.T) {
 	defer db.Close()
 	var n int
 	var sum float64
-	if err := db.QueryRow("SELECT count(*), sum(demand_m3) FROM " + Table).Scan(&n, &sum); err != nil {
+	if err := db.QueryRow("SELECT count(*), sum(demand_m3) FROM "+Table).Scan(&n, &sum); err != nil {
 		t.Fatal(err)
 	}
 	want := 0.0
