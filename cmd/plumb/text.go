@@ -75,7 +75,11 @@ func writeText(w io.Writer, out *scanOutput) error {
 	}
 	tw.Flush()
 
-	fmt.Fprintf(&b, "\nCondition number %.4g (intercept included, columns scaled to unit length); %.4g centered\n", r.ConditionNumber, r.CenteredConditionNumber)
+	if r.Rank < len(r.Columns)+1 {
+		b.WriteString("\nCondition number: singular (an exact dependency; see below)\n")
+	} else {
+		fmt.Fprintf(&b, "\nCondition number %.4g (intercept included, columns scaled to unit length); %.4g centered\n", r.ConditionNumber, r.CenteredConditionNumber)
+	}
 	fmt.Fprintf(&b, "rank of [1 X]: %d of %d\n", r.Rank, len(r.Columns)+1)
 
 	var exact, near []diagnostics.Dependency
