@@ -35,23 +35,25 @@ func TestAddAllocs(t *testing.T) {
 				}
 			}
 			m := NewMoments(cols)
-			q := NewQR(cols)
 			m.Add(b)
-			q.Add(b)
 			if a := testing.AllocsPerRun(5, func() { m.Add(b) }); a != 0 {
 				t.Errorf("p=%d weighted=%v: Moments.Add allocates %v times per block", p, weighted, a)
 			}
-			if a := testing.AllocsPerRun(5, func() { q.Add(b) }); a != 0 {
-				t.Errorf("p=%d weighted=%v: QR.Add allocates %v times per block", p, weighted, a)
-			}
-			o, oq := m.Clone(), q.Clone()
+			o := m.Clone()
 			m.Merge(o)
-			q.Merge(oq)
 			if a := testing.AllocsPerRun(5, func() { m.Merge(o) }); a != 0 {
 				t.Errorf("p=%d: Moments.Merge allocates %v times", p, a)
 			}
-			if a := testing.AllocsPerRun(5, func() { q.Merge(oq) }); a != 0 {
-				t.Errorf("p=%d: QR.Merge allocates %v times", p, a)
+			for _, q := range []*QR{NewQR(cols), NewQRExtended(cols)} {
+				q.Add(b)
+				if a := testing.AllocsPerRun(3, func() { q.Add(b) }); a != 0 {
+					t.Errorf("p=%d weighted=%v extended=%v: QR.Add allocates %v times per block", p, weighted, q.Extended(), a)
+				}
+				oq := q.Clone()
+				q.Merge(oq)
+				if a := testing.AllocsPerRun(3, func() { q.Merge(oq) }); a != 0 {
+					t.Errorf("p=%d extended=%v: QR.Merge allocates %v times", p, q.Extended(), a)
+				}
 			}
 		}
 	}

@@ -138,3 +138,50 @@ func BenchmarkAccumulators(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkQRExtended compares the extended (double-double) factor with the
+// float64 one on the same blocks, in alternating passes: rows/s of each,
+// the effective GFLOP/s of the extended update counted as float64 flops
+// (2·k·(p+1)² per block) and float64/extended, the slowdown. Fewer rows than
+// BenchmarkAccumulators: 1e5 at p = 10, 2e4 at p = 50, 4e3 at p = 200.
+func BenchmarkQRExtended(b *testing.B) {
+	for _, tc := range []struct{ p, n int }{{10, 100_352}, {50, 20_480}, {200, 4_096}} {
+		b.Run(fmt.Sprintf("p=%d", tc.p), func(b *testing.B) {
+			p, n := tc.p, tc.n
+			blocks := benchBlocks(p, n)
+			cols := make([]string, p)
+			for j := range cols {
+				cols[j] = fmt.Sprintf("x%d", j)
+			}
+			f, x := NewQR(cols), NewQRExtended(cols)
+			f.Add(blocks[0])
+			x.Add(blocks[0])
+			var tf, tx time.Duration
+			b.ResetTimer()
+			for it := range b.N {
+				for r := range 2 {
+					q := f
+					if (it+r)%2 == 1 {
+						q = x
+					}
+					q.Reset()
+					t0 := time.Now()
+					for i := range n / benchBlockRows {
+						q.Add(blocks[i%len(blocks)])
+					}
+					if q == f {
+						tf += time.Since(t0)
+					} else {
+						tx += time.Since(t0)
+					}
+				}
+			}
+			rows := float64(b.N * n)
+			fp := float64(p + 1)
+			b.ReportMetric(rows/tx.Seconds(), "extended-rows/s")
+			b.ReportMetric(rows/tf.Seconds(), "float64-rows/s")
+			b.ReportMetric(rows/tx.Seconds()*2*fp*fp/1e9, "extended-GFLOP/s")
+			b.ReportMetric(tx.Seconds()/tf.Seconds(), "float64/extended")
+		})
+	}
+}

@@ -12,6 +12,8 @@ package stream
 import (
 	"fmt"
 	"math"
+
+	"gonum.org/v1/gonum/floats"
 )
 
 // DefaultBlockRows is the block height that connectors use when they have no
@@ -169,10 +171,11 @@ const expMask = 0x7ff0000000000000
 
 // gather copies the valid rows of b into the column-major buffer dst: column
 // j of the copy (j = 0..p−1) is dst[(off+j)*ld : (off+j)*ld+k], holding
-// x − origin[j]. It records listwise deletion in c, copies the valid rows'
+// x − origin[j] (x itself when origin is nil). It records listwise deletion in c, copies the valid rows'
 // weights into w (when b is weighted), widens lo and hi to the extremes of
 // the raw values (when they are not nil) and returns k, the number of valid
-// rows. dst must hold (off+p)*ld values with ld ≥ b.Rows, and w b.Rows.
+// rows. dst must hold (off+p)*ld values with ld ≥ b.Rows, and w b.Rows;
+// lo and hi must be nil when origin is.
 //
 // Writing the columns contiguously lets the accumulators work on whole
 // columns: rank-k updates as dot products, Householder reflections as
@@ -181,7 +184,6 @@ func gather(b *Block, c *Counts, origin []float64, dst []float64, ld, off int, w
 	p := b.P
 	k := 0
 	dst = dst[off*ld : (off+p)*ld]
-	origin = origin[:p]
 	for i := 0; i < b.Rows; i++ {
 		row := b.Data[i*p : i*p+p]
 		// Adding 1 to the exponent field carries into the sign bit
@@ -224,6 +226,13 @@ func gather(b *Block, c *Counts, origin []float64, dst []float64, ld, off int, w
 			continue
 		}
 		d := dst[k:]
+		if origin == nil {
+			for j, v := range row {
+				d[j*ld] = v
+			}
+			k++
+			continue
+		}
 		org := origin[:len(row)]
 		if lo != nil {
 			lo, hi := lo[:len(row)], hi[:len(row)]
@@ -252,13 +261,12 @@ func gather(b *Block, c *Counts, origin []float64, dst []float64, ld, off int, w
 // 8 KiB would) when gather writes a row across them.
 func leading(rows int) int { return (rows+7)&^7 + 8 }
 
-// setOrigin sets the provisional origin from the k valid rows held in the
-// column-major buffer (column j at buf[(off+j)*ld:], unshifted): the column
-// mean, or the column's value when it is the same in every row, so that a
-// column constant over the whole scan shifts to exact zeros and its
-// co-moments come out exactly zero. It then shifts the buffer by the
-// origin.
-func setOrigin(origin, buf []float64, ld, off, k int) {
+// originOf sets the provisional origin from the k valid rows held, not
+// shifted, in the column-major buffer (column j at buf[(off+j)*ld:]): the
+// column mean, or the column's value when it is the same in every row, so
+// that a column constant over the whole scan shifts to exact zeros and its
+// co-moments come out exactly zero.
+func originOf(origin, buf []float64, ld, off, k int) {
 	for j := range origin {
 		col := buf[(off+j)*ld : (off+j)*ld+k]
 		var s float64
@@ -271,8 +279,13 @@ func setOrigin(origin, buf []float64, ld, off, k int) {
 		if same {
 			origin[j] = col[0]
 		}
-		for i := range col {
-			col[i] -= origin[j]
-		}
+	}
+}
+
+// setOrigin sets the origin as originOf does and shifts the buffer by it.
+func setOrigin(origin, buf []float64, ld, off, k int) {
+	originOf(origin, buf, ld, off, k)
+	for j, c := range origin {
+		floats.AddConst(-c, buf[(off+j)*ld:(off+j)*ld+k])
 	}
 }

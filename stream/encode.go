@@ -16,9 +16,11 @@ import (
 //	null, nan, inf: p × int64 each
 //	Moments: origin p × f64 | mean − origin p × f64 | co-moment upper triangle p(p+1)/2 × f64 | min p | max p
 //	QR:      origin p × f64 | R upper triangle (p+1)(p+2)/2 × f64
+//	         [extended: low parts of R, upper triangle, (p+1)(p+2)/2 × f64]
 //	CRC-32C of all the preceding bytes, uint32
 //
-// Bit 0 of flags records whether the origin is set.
+// Bit 0 of flags records whether the origin is set; bit 1, for QR only,
+// that the factor is extended (double-double).
 
 const (
 	encVersion = 1
@@ -131,11 +133,17 @@ func (q *QR) MarshalBinary() ([]byte, error) {
 	if q.hasOrg {
 		flags = 1
 	}
-	e := encoder{b: make([]byte, 0, 64+q.p*40+4*q.n*q.n)}
+	if q.rlo != nil {
+		flags |= 2
+	}
+	e := encoder{b: make([]byte, 0, 64+q.p*40+8*q.n*q.n)}
 	e.header(kindQR, flags, q.names)
 	e.counts(&q.counts)
 	e.f64s(q.origin)
 	e.upper(q.r, q.n)
+	if q.rlo != nil {
+		e.upper(q.rlo, q.n)
+	}
 	return e.finish(), nil
 }
 
@@ -360,20 +368,31 @@ func UnmarshalQR(b []byte) (*QR, error) {
 	if d.err != nil {
 		return nil, d.err
 	}
+	if flags&^3 != 0 {
+		return nil, corrupt("unknown flags %#x", flags)
+	}
+	extended := flags&2 != 0
 	p := len(names)
 	n := p + 1
-	d.expectRest(8*(4+3*p) + 8*(p+n*(n+1)/2))
+	tri := n * (n + 1) / 2
+	if extended {
+		tri *= 2
+	}
+	d.expectRest(8*(4+3*p) + 8*(p+tri))
 	if d.err != nil {
 		return nil, d.err
 	}
-	if flags&^1 != 0 {
-		return nil, corrupt("unknown flags %#x", flags)
-	}
 	q := NewQR(names)
+	if extended {
+		q = NewQRExtended(names)
+	}
 	q.hasOrg = flags&1 != 0
 	d.counts(&q.counts)
 	d.f64s(q.origin)
 	d.upper(q.r, n)
+	if extended {
+		d.upper(q.rlo, n)
+	}
 	d.state(q.hasOrg, &q.counts, q.origin)
 	if d.err != nil {
 		return nil, d.err

@@ -55,6 +55,10 @@ func sampleQR() map[string]*QR {
 	full := NewQR(names(waterColumns))
 	feed(full, rows, w, null, 64)
 	out["weighted with missing"] = full
+	ext := NewQRExtended(names(waterColumns))
+	feed(ext, rows, w, null, 64)
+	out["extended"] = ext
+	out["extended empty"] = NewQRExtended([]string{"rainfall"})
 	return out
 }
 
@@ -138,7 +142,8 @@ func TestRoundTrip(t *testing.T) {
 				t.Fatal(err)
 			}
 			if strings.Join(d.names, "\x00") != strings.Join(q.names, "\x00") || d.hasOrg != q.hasOrg ||
-				!sameCounts(&d.counts, &q.counts) || !sameBits(d.origin, q.origin) || !sameBits(d.r, q.r) {
+				!sameCounts(&d.counts, &q.counts) || !sameBits(d.origin, q.origin) || !sameBits(d.r, q.r) ||
+				d.Extended() != q.Extended() || !sameBits(d.rlo, q.rlo) {
 				t.Fatal("decoded factor differs")
 			}
 			again, _ := d.MarshalBinary()
@@ -261,6 +266,9 @@ func TestDecodeCorrupt(t *testing.T) {
 		{"version 0", withByte(q, 5, 0), true, "version 0"},
 		{"bad magic", withByte(m, 0, 'X'), false, "magic"},
 		{"unknown flags", withByte(m, 6, 3), false, "flags"},
+		{"unknown factor flags", withByte(q, 6, 5), true, "flags"},
+		{"extended flag on a float64 factor", withByte(q, 6, 3), true, "payload"},
+		{"float64 flag on an extended factor", withByte(blobs["qr/extended"], 6, 1), true, "payload"},
 		{"zero columns", withU32(m, 7, 0), false, "columns"},
 		{"too many columns", withU32(q, 7, MaxColumns+1), true, "columns"},
 		{"more columns than bytes", withU32(m, 7, 6), false, ""},

@@ -272,3 +272,26 @@ func TestOffset(t *testing.T) {
 		})
 	}
 }
+
+// TestQRMixedMerge: extended and float64 factors merge either way; the
+// result is as accurate as its least accurate part, 1e-12 against a float64
+// one-pass factor here (property).
+func TestQRMixedMerge(t *testing.T) {
+	rng := rand.New(rand.NewPCG(121, 0))
+	rows := genRows(rng, 900, waterColumns)
+	cols := names(waterColumns)
+	one := NewQR(cols)
+	feed(one, rows, nil, nil, 100)
+	for _, into := range []func([]string) *QR{NewQR, NewQRExtended} {
+		q := into(cols)
+		for part := range 3 {
+			p := NewQR(cols)
+			if part != 1 {
+				p = NewQRExtended(cols)
+			}
+			feed(p, rows[300*part:300*part+300], nil, nil, 64)
+			q.Merge(p)
+		}
+		checkQRSame(t, q, one, 1e-12)
+	}
+}

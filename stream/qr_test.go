@@ -257,3 +257,220 @@ func exactMomentsRat(rows [][]float64) [][]*big.Rat {
 	}
 	return co
 }
+
+// exactRtR returns RᵀR of an extended factor, with R = hi + lo taken
+// exactly, in exact rational arithmetic computed in the test.
+func exactRtR(q *QR) [][]*big.Rat {
+	n := q.n
+	r := make([][]*big.Rat, n)
+	for i := range r {
+		r[i] = make([]*big.Rat, n)
+		for j := range r[i] {
+			v := rat(q.r[i*n+j])
+			if q.rlo != nil {
+				v.Add(v, rat(q.rlo[i*n+j]))
+			}
+			r[i][j] = v
+		}
+	}
+	g := make([][]*big.Rat, n)
+	t := new(big.Rat)
+	for a := range g {
+		g[a] = make([]*big.Rat, n)
+		for b := range g[a] {
+			s := new(big.Rat)
+			for i := 0; i <= min(a, b); i++ {
+				s.Add(s, t.Mul(r[i][a], r[i][b]))
+			}
+			g[a][b] = s
+		}
+	}
+	return g
+}
+
+// exactGramRat is exactGram without the final rounding.
+func exactGramRat(rows [][]float64, w []float64, c []float64) [][]*big.Rat {
+	n := len(c) + 1
+	g := make([][]*big.Rat, n)
+	for a := range g {
+		g[a] = make([]*big.Rat, n)
+		for b := range g[a] {
+			g[a][b] = new(big.Rat)
+		}
+	}
+	v := make([]*big.Rat, n)
+	t := new(big.Rat)
+	for i, row := range rows {
+		wi := big.NewRat(1, 1)
+		if w != nil {
+			wi = rat(w[i])
+		}
+		v[0] = big.NewRat(1, 1)
+		for j, x := range row {
+			v[j+1] = new(big.Rat).Sub(rat(x), rat(c[j]))
+		}
+		for a := 0; a < n; a++ {
+			for b := a; b < n; b++ {
+				t.Mul(v[a], v[b])
+				t.Mul(t, wi)
+				g[a][b].Add(g[a][b], t)
+			}
+		}
+	}
+	for a := 0; a < n; a++ {
+		for b := 0; b < a; b++ {
+			g[a][b] = g[b][a]
+		}
+	}
+	return g
+}
+
+// ratRelErr is |got − want| / scale in exact arithmetic, as a float64.
+func ratRelErr(got, want *big.Rat, scale float64) float64 {
+	d := new(big.Rat).Sub(got, want)
+	f := math.Abs(ratFloat(d))
+	if f == 0 {
+		return 0
+	}
+	return f / scale
+}
+
+// TestQRExtendedGram: an extended factor satisfies RᵀR = Σw·a·aᵀ, a = (1,
+// x − c), to about 1e-30 relative: both sides in exact rational arithmetic
+// computed in the test (R taken as hi + lo exactly). Checked after blocks of
+// several heights, with weights, with large offsets and after random
+// merges, float64 factors merged in included (they count as exact).
+func TestQRExtendedGram(t *testing.T) {
+	offset := []column{{"metered_volume", 1e9, 1, 0.5}, {"billed_volume", 1e9, 1, 0.5}, waterColumns[0]}
+	cases := []struct {
+		name      string
+		cols      []column
+		n         int
+		blockRows int
+		weighted  bool
+		parts     int
+		seed      uint64
+	}{
+		{"one block", waterColumns, 200, 1024, false, 1, 111},
+		{"many blocks", waterColumns, 300, 17, false, 1, 112},
+		{"row by row", waterColumns[:3], 80, 1, false, 1, 113},
+		{"weighted", waterColumns, 300, 29, true, 1, 114},
+		{"large offsets", offset, 300, 64, false, 1, 115},
+		{"merged parts", waterColumns, 400, 50, true, 5, 116},
+		{"merged offsets", offset, 400, 40, false, 4, 117},
+	}
+	const tol = 1e-30
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			rng := rand.New(rand.NewPCG(tc.seed, 0))
+			rows := genRows(rng, tc.n, tc.cols)
+			var w []float64
+			if tc.weighted {
+				w = make([]float64, tc.n)
+				for i := range w {
+					w[i] = 2 * rng.Float64()
+				}
+			}
+			cols := names(tc.cols)
+			if !NewQRExtended(cols).Extended() || NewQR(cols).Extended() {
+				t.Fatal("Extended() wrong")
+			}
+			// build deals the rows into tc.parts consecutive parts and
+			// merges them; with mixed, every other part is a float64
+			// factor.
+			build := func(mixed bool) *QR {
+				q := NewQRExtended(cols)
+				per := (tc.n + tc.parts - 1) / tc.parts
+				for s := 0; s < tc.n; s += per {
+					e := min(s+per, tc.n)
+					var pw []float64
+					if w != nil {
+						pw = w[s:e]
+					}
+					part := NewQRExtended(cols)
+					if mixed && (s/per)%2 == 1 {
+						part = NewQR(cols)
+					}
+					feed(part, rows[s:e], pw, nil, tc.blockRows)
+					if tc.parts == 1 {
+						return part
+					}
+					q.Merge(part)
+				}
+				return q
+			}
+			origin := func(q *QR) []float64 {
+				c := make([]float64, len(cols))
+				for j := range c {
+					c[j] = q.Origin(j)
+				}
+				return c
+			}
+			if tc.parts > 1 {
+				// Float64 parts carry their own rounding: the merge is
+				// then as accurate as a float64 factor.
+				q := build(true)
+				got := exactRtR(q)
+				want := exactGram(rows, w, origin(q))
+				for a := range want {
+					for b := range want {
+						if e := relErr(ratFloat(got[a][b]), want[a][b], math.Sqrt(want[a][a]*want[b][b])); e > 1e-13 {
+							t.Errorf("mixed merge: RᵀR(%d,%d) rel err %.2g", a, b, e)
+						}
+					}
+				}
+			}
+			q := build(false)
+			c := origin(q)
+			got := exactRtR(q)
+			want := exactGramRat(rows, w, c)
+			for a := range want {
+				for b := range want {
+					scale := math.Sqrt(ratFloat(want[a][a]) * ratFloat(want[b][b]))
+					if e := ratRelErr(got[a][b], want[a][b], scale); e > tol {
+						t.Errorf("RᵀR(%d,%d) rel err %.2g > %.0g", a, b, e, tol)
+					}
+				}
+			}
+			for i := 0; i < q.n; i++ {
+				if q.r[i*q.n+i] < 0 {
+					t.Errorf("R(%d,%d) < 0", i, i)
+				}
+			}
+			// The float64 factor agrees with the rounded extended one.
+			f := NewQR(cols)
+			feed(f, rows, w, nil, tc.blockRows)
+			checkQRSame(t, q, f, 1e-13)
+		})
+	}
+}
+
+// TestQRExtendedNearCollinear: as TestQRNearCollinear, the extended factor's
+// last diagonal entry (hi + lo) squared is the exact residual sum of squares
+// (exact rational arithmetic computed in the test) to about 1e-32·κ, and
+// its rounded value is the correctly rounded one to within an ulp.
+func TestQRExtendedNearCollinear(t *testing.T) {
+	rng := rand.New(rand.NewPCG(64, 0))
+	const n = 4000
+	rows := make([][]float64, n)
+	for i := range rows {
+		a := 5e4 + 800*rng.NormFloat64()
+		rows[i] = []float64{a, a + 800e-6*rng.NormFloat64()}
+	}
+	cols := []string{"metered_volume", "billed_volume"}
+	q := NewQRExtended(cols)
+	feed(q, rows, nil, nil, 512)
+	p := exactMomentsRat(rows)
+	rss := new(big.Rat).Quo(new(big.Rat).Mul(p[0][1], p[0][1]), p[0][0])
+	rss.Sub(p[1][1], rss)
+	r := rat(q.r[8])
+	r.Add(r, rat(q.rlo[8]))
+	got := new(big.Rat).Mul(r, r)
+	if e := ratRelErr(got, rss, ratFloat(rss)); e > 1e-24 {
+		t.Errorf("(R(2,2))² rel err %.2g against the exact RSS", e)
+	}
+	exact := math.Sqrt(ratFloat(rss))
+	if d := math.Abs(q.R(nil).At(2, 2)-exact) / exact; d > 2.3e-16 {
+		t.Errorf("rounded R(2,2) = %v, √RSS = %v (rel %.2g)", q.R(nil).At(2, 2), exact, d)
+	}
+}
