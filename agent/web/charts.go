@@ -92,6 +92,10 @@ type lineChart struct {
 	Legend          []legendItem
 	LegendY         float64
 	Empty           string // message when there is nothing to draw
+	// Fixed draws the chart at its own size at OffsetY inside another
+	// SVG (a file), rather than at the page's width.
+	Fixed   bool
+	OffsetY float64
 }
 
 // logScale maps [Lo, Hi] logarithmically onto pixels [P0, P1].

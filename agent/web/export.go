@@ -1,0 +1,48 @@
+package web
+
+import (
+	"fmt"
+	"html/template"
+	"io"
+	"time"
+)
+
+// WriteTimelineSVG writes the watch page's timeline charts (condition
+// number and max VIF with their levels and forecasts) as one standalone
+// SVG document, for `plumb history WATCH --plot FILE.svg`. title heads the
+// drawing, e.g. the watch and segment.
+func WriteTimelineSVG(w io.Writer, title string, tl []Point, forecasts []Forecast, l Limits) error {
+	find := func(metric string) *Forecast {
+		for i := range forecasts {
+			if forecasts[i].Metric == metric {
+				return &forecasts[i]
+			}
+		}
+		return nil
+	}
+	const head = 40.0
+	cond := timelineChart("cond", MetricCondition, tl, find(MetricCondition), l.CondWarn, l.CondCritical)
+	vif := timelineChart("vif", MetricMaxVIF, tl, find(MetricMaxVIF), l.VIFWarn, l.VIFCritical)
+	cond.Fixed, cond.OffsetY = true, head
+	vif.Fixed, vif.OffsetY = true, head+cond.H
+	data := struct {
+		Title, Note string
+		W, H        float64
+		Cond, VIF   *lineChart
+	}{Title: title, W: cond.W, H: head + cond.H + vif.H + 10, Cond: cond, VIF: vif}
+	if len(tl) > 0 {
+		data.Note = fmt.Sprintf("%d windows, %s to %s", len(tl), tl[0].At.UTC().Format(time.DateOnly), tl[len(tl)-1].At.UTC().Format(time.DateOnly))
+	}
+	t, err := template.New("file").Funcs(funcs).ParseFS(templateFS, "templates/charts.tmpl", "templates/timeline-file.tmpl")
+	if err != nil {
+		return fmt.Errorf("timeline chart: %w", err)
+	}
+	// The declaration is written here: html/template would escape it.
+	if _, err := io.WriteString(w, `<?xml version="1.0" encoding="UTF-8"?>`+"\n"); err != nil {
+		return fmt.Errorf("timeline chart: %w", err)
+	}
+	if err := t.ExecuteTemplate(w, "timeline-file", data); err != nil {
+		return fmt.Errorf("timeline chart: %w", err)
+	}
+	return nil
+}
