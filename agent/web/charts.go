@@ -363,6 +363,8 @@ type sparkline struct {
 	LastY   float64
 	Title   string
 	Clipped bool
+	// LastUnbounded marks a last point above the scale (∞).
+	LastUnbounded bool
 }
 
 // sparklineOf draws the condition number of the trend points (log scale,
@@ -404,6 +406,7 @@ func sparklineOf(tl []Point, crit float64) *sparkline {
 		}
 		fmt.Fprintf(&d, "%s%s %s", op, f1(xs.At(p.At)), f1(ys.At(v)))
 		sp.LastX, sp.LastY = xs.At(p.At), ys.At(v)
+		sp.LastUnbounded = v >= hi
 	}
 	sp.D = d.String()
 	if crit > 0 {

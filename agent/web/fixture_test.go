@@ -80,7 +80,7 @@ func buildDemoFixture(t testing.TB) *demoFixture {
 			limits: Limits{VIFWarn: 5, VIFCritical: 10, CondWarn: 15, CondCritical: 30, Horizon: 14 * 24 * time.Hour}},
 	}
 	lastDay := sc.Start.AddDate(0, 0, sc.Days-1)
-	f.now = lastDay.Add(26 * time.Hour)
+	f.now = lastDay.Add(27 * time.Hour) // the day after the last day, after its run
 	for _, w := range watches {
 		d := buildWatch(t, sc, rows, w)
 		if w.name == "district_daily" {

@@ -56,6 +56,7 @@ var funcs = template.FuncMap{
 	"segname":  segmentName,
 	"watchURL": watchURL,
 	"add":      func(a, b float64) float64 { return a + b },
+	"contains": strings.Contains,
 	"sub":      func(a, b float64) float64 { return a - b },
 	"half":     func(a float64) float64 { return a / 2 },
 	"legendX":  func(i int) float64 { return float64(i%3) * 250 },
