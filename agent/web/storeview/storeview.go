@@ -1,0 +1,168 @@
+// Package storeview shows the agent's state store through web.View: the
+// configured watches, their history points, runs and alerts. It only
+// reads the store, so `plumb serve` can run it beside a running agent.
+package storeview
+
+import (
+	"cmp"
+	"context"
+	"encoding/json"
+	"fmt"
+	"slices"
+	"time"
+
+	"plumb/agent"
+	"plumb/agent/config"
+	"plumb/agent/web"
+	"plumb/diagnostics"
+)
+
+// View reads a state store for the dashboard.
+type View struct {
+	store   agent.Store
+	watches []*config.Watch
+
+	// RecentRuns is how many runs the watch page lists (default 50).
+	RecentRuns int
+	// AlertHistory is how long resolved alerts stay on the watch page
+	// (default 30 days).
+	AlertHistory time.Duration
+	// SparkPoints is the length of the overview's trend (default 30).
+	SparkPoints int
+	// Now is the clock; nil means time.Now.
+	Now func() time.Time
+}
+
+var _ web.View = (*View)(nil)
+
+// New returns a view of st for the watches of cfg, in their order.
+func New(st agent.Store, cfg *config.Config) *View {
+	return &View{store: st, watches: cfg.Watches}
+}
+
+func (v *View) now() time.Time {
+	if v.Now != nil {
+		return v.Now()
+	}
+	return time.Now()
+}
+
+// Watches returns every configured watch's summary.
+func (v *View) Watches(ctx context.Context) ([]web.WatchSummary, error) {
+	out := make([]web.WatchSummary, 0, len(v.watches))
+	for _, w := range v.watches {
+		d, err := v.detail(ctx, w, false)
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, d.Summary)
+	}
+	return out, nil
+}
+
+// Watch returns one watch with its history, reports, runs and alerts.
+func (v *View) Watch(ctx context.Context, name string) (*web.WatchDetail, error) {
+	for _, w := range v.watches {
+		if w.Name == name {
+			return v.detail(ctx, w, true)
+		}
+	}
+	return nil, fmt.Errorf("watch %q is not in the configuration: %w", name, web.ErrNotFound)
+}
+
+func (v *View) detail(ctx context.Context, w *config.Watch, full bool) (*web.WatchDetail, error) {
+	lim := w.Limits
+	d := &web.WatchDetail{Summary: web.WatchSummary{
+		Name: w.Name, Source: w.Source, Table: w.Table, Target: w.Target, SegmentBy: w.SegmentBy, Schedule: w.Schedule,
+		Limits: web.Limits{VIFWarn: lim.VIF.Warn, VIFCritical: lim.VIF.Critical, CondWarn: lim.Condition.Warn,
+			CondCritical: lim.Condition.Critical, Horizon: lim.Horizon.D()},
+	}}
+	if d.Summary.Table == "" {
+		d.Summary.Table = "query"
+	}
+
+	points, err := v.store.Points(ctx, w.Name, agent.PointQuery{AllSegs: true})
+	if err != nil {
+		return nil, fmt.Errorf("watch %q: %w", w.Name, err)
+	}
+	bySeg := map[string][]agent.Point{}
+	for _, p := range points {
+		bySeg[p.Segment] = append(bySeg[p.Segment], p)
+	}
+	segs := make([]string, 0, len(bySeg)+1)
+	for s := range bySeg {
+		segs = append(segs, s)
+	}
+	if len(segs) == 0 {
+		segs = append(segs, "")
+	}
+	slices.Sort(segs) // "" (the whole table) first
+	trendPoints := cmp.Or(lim.TrendPoints, config.DefaultTrendPoints)
+	for _, s := range segs {
+		ps := bySeg[s]
+		seg := web.SegmentDetail{SegmentSummary: web.SegmentSummary{Segment: s}}
+		for _, p := range ps {
+			seg.Timeline = append(seg.Timeline, web.Point{At: p.At, ConditionNumber: p.ConditionNumber, MaxVIF: p.MaxVIF,
+				Rank: p.Rank, Rows: p.RowsUsed, RowsDropped: p.RowsDropped, Columns: p.Columns})
+		}
+		if full && len(ps) > 0 {
+			if raw := ps[len(ps)-1].Report; len(raw) > 0 {
+				var rep diagnostics.Report
+				if err := json.Unmarshal(raw, &rep); err != nil {
+					return nil, fmt.Errorf("watch %q segment %q: the stored report of %s does not decode: %w",
+						w.Name, s, ps[len(ps)-1].At.Format(time.RFC3339), err)
+				}
+				seg.Report = &rep
+			}
+			if fc, ok := web.TrendForecast(seg.Timeline, web.MetricCondition, trendPoints, lim.Horizon.D(), lim.Condition.Critical); ok {
+				seg.Forecasts = append(seg.Forecasts, fc)
+			}
+			if fc, ok := web.TrendForecast(seg.Timeline, web.MetricMaxVIF, trendPoints, lim.Horizon.D(), lim.VIF.Critical); ok {
+				seg.Forecasts = append(seg.Forecasts, fc)
+			}
+		}
+		d.Segments = append(d.Segments, seg)
+	}
+
+	runs, err := v.store.Runs(ctx, w.Name, 0)
+	if err != nil {
+		return nil, fmt.Errorf("watch %q: %w", w.Name, err)
+	}
+	keep := cmp.Or(v.RecentRuns, 50)
+	for i, r := range runs { // newest first
+		if r.Status == agent.StatusFailed {
+			d.Summary.RunFailures++
+			if i == d.Summary.ConsecutiveFailures {
+				d.Summary.ConsecutiveFailures++
+			}
+		}
+		if i < keep && (full || i == 0) {
+			d.Runs = append(d.Runs, web.Run{ID: r.ID, Watch: r.Watch, StartedAt: r.StartedAt,
+				Duration: r.FinishedAt.Sub(r.StartedAt), Status: r.Status, AsOf: r.AsOf,
+				Backfill: r.Kind == agent.RunBackfill, RowsRead: r.RowsRead, RowsDropped: r.RowsDropped, Error: r.Error})
+		}
+	}
+
+	since := v.now().Add(-cmp.Or(v.AlertHistory, 30*24*time.Hour))
+	q := agent.AlertQuery{Watch: w.Name, Since: since}
+	if !full {
+		q = agent.AlertQuery{Watch: w.Name, OpenOnly: true}
+	}
+	alerts, err := v.store.Alerts(ctx, q)
+	if err != nil {
+		return nil, fmt.Errorf("watch %q: %w", w.Name, err)
+	}
+	for _, a := range alerts {
+		wa := web.Alert{ID: a.ID, Watch: a.Watch, Rule: string(a.Rule), Severity: string(a.Severity), AsOf: a.AsOf,
+			OpenedAt: a.OpenedAt, Message: a.Message, Segment: a.Segment,
+			Columns: a.Detail.Columns, Equation: a.Detail.Equation, Remedy: a.Detail.Remedy}
+		if !a.ResolvedAt.IsZero() {
+			t := a.ResolvedAt
+			wa.ResolvedAt = &t
+		}
+		d.Alerts = append(d.Alerts, wa)
+	}
+	slices.SortStableFunc(d.Alerts, func(a, b web.Alert) int { return b.OpenedAt.Compare(a.OpenedAt) })
+	web.Summarize(d, cmp.Or(v.SparkPoints, 30))
+	return d, nil
+}
