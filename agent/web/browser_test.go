@@ -255,6 +255,7 @@ func TestBrowserDashboard(t *testing.T) {
 		t.Errorf("district_volumes: no forecast cone drawn")
 	}
 	visit(t, ctx, cons, ts.URL+"/watches/zone_pressure")
+	screenshot(t, ctx, "watch-blind.png")
 	if n := eval[int](t, ctx, `document.querySelectorAll('tr.run-row-failed').length`); n != 4 {
 		t.Errorf("zone_pressure: %d failed runs in the log, want 4", n)
 	}

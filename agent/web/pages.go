@@ -197,6 +197,11 @@ type splitRow struct {
 	Coef *diagnostics.Coefficient
 }
 
+// Alarmed reports whether any factor reaches its alarm level (1).
+func (r splitRow) Alarmed() bool {
+	return max(r.FitSeverity, r.VariationSeverity, r.RedundancySeverity) >= 1
+}
+
 type watchData struct {
 	page
 	Summary     WatchSummary
@@ -387,6 +392,8 @@ func fmtDuration(d time.Duration) string {
 	switch {
 	case d <= 0:
 		return "—"
+	case d < 10*time.Millisecond:
+		return fmt.Sprintf("%.1f ms", float64(d)/1e6)
 	case d < time.Second:
 		return fmt.Sprintf("%d ms", d.Milliseconds())
 	case d < time.Minute:
