@@ -9,6 +9,7 @@ package connectors
 import (
 	"context"
 	"fmt"
+	"regexp"
 	"sort"
 	"strings"
 	"sync"
@@ -188,19 +189,22 @@ func Open(ctx context.Context, url string, opts Options) (Source, error) {
 	return o(ctx, url, opts)
 }
 
-// Redact returns url with any password replaced by "xxxxx", for messages.
+// Redact returns a database URL or key=value connection string with any
+// password replaced by "xxxxx", for messages: the user:password@ part, a
+// password query parameter, and a password=… setting.
 func Redact(url string) string {
-	scheme, rest, ok := strings.Cut(url, "://")
-	if !ok {
-		return url
+	if scheme, rest, ok := strings.Cut(url, "://"); ok {
+		if at := strings.LastIndex(rest, "@"); at >= 0 {
+			auth := rest[:at]
+			if user, _, hasPass := strings.Cut(auth, ":"); hasPass {
+				rest = user + ":xxxxx" + rest[at:]
+			}
+		}
+		url = scheme + "://" + rest
 	}
-	auth, host, ok := strings.Cut(rest, "@")
-	if !ok {
-		return url
-	}
-	user, _, hasPass := strings.Cut(auth, ":")
-	if !hasPass {
-		return url
-	}
-	return scheme + "://" + user + ":xxxxx@" + host
+	return passwordSetting.ReplaceAllString(url, "${1}xxxxx")
 }
+
+// passwordSetting matches password=… in a query string or a key=value
+// connection string ('…' quoted or up to the next separator).
+var passwordSetting = regexp.MustCompile(`((?:^|[?&\s])password\s*=\s*)('(?:[^'\\]|\\.)*'|[^&\s]*)`)

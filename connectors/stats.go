@@ -26,10 +26,14 @@ type Stats struct {
 	Sum        []float64 // Σ w (x_j − c_j)
 	Cross      []float64 // Σ w (x_i − c_i)(x_j − c_j), i ≤ j, row-major upper triangle
 	Min, Max   []float64
+	// Centered: Cross already holds the co-moment Σw(x−x̄)(x−x̄)ᵀ (an
+	// updating algorithm computed it), so W·d·dᵀ is not subtracted.
+	Centered bool
 }
 
 // Moments turns the statistics into an accumulator, with mean
-// c + Σw(x−c)/W and co-moment Σw(x−c)(x−c)ᵀ − W·d·dᵀ, d = Σw(x−c)/W.
+// c + Σw(x−c)/W and co-moment Σw(x−c)(x−c)ᵀ − W·d·dᵀ, d = Σw(x−c)/W. With
+// Centered set, Cross is taken as the co-moment.
 //
 // It goes through the accumulator's versioned binary encoding, the one
 // public way to build a stream.Moments from parts.
@@ -41,9 +45,23 @@ func (s *Stats) Moments() (*stream.Moments, error) {
 	}
 	w := s.SumWeights
 	d := make([]float64, p)
+	origin := append([]float64(nil), s.Origin...)
+	constant := make([]bool, p)
 	if w > 0 {
 		for j := range d {
 			d[j] = s.Sum[j] / w
+		}
+	}
+	if s.Used > 0 {
+		// A column whose minimum is its maximum is constant: its mean is
+		// that value and its co-moments are exactly zero, whatever the
+		// rounding of the sums (as the stream package reports them).
+		for j := range constant {
+			if s.Min[j] == s.Max[j] {
+				constant[j] = true
+				origin[j] = s.Min[j]
+				d[j] = 0
+			}
 		}
 	}
 	var b []byte
@@ -73,7 +91,7 @@ func (s *Stats) Moments() (*stream.Moments, error) {
 	}
 	for j := 0; j < p; j++ {
 		if hasOrg {
-			f64(s.Origin[j])
+			f64(origin[j])
 		} else {
 			f64(0)
 		}
@@ -85,8 +103,11 @@ func (s *Stats) Moments() (*stream.Moments, error) {
 	for i := 0; i < p; i++ {
 		for j := i; j < p; j++ {
 			v := 0.0
-			if w > 0 {
-				v = s.Cross[k] - w*d[i]*d[j]
+			if w > 0 && !constant[i] && !constant[j] {
+				v = s.Cross[k]
+				if !s.Centered {
+					v -= w * d[i] * d[j]
+				}
 				if i == j && v < 0 {
 					v = 0 // rounding on a (near) constant column
 				}

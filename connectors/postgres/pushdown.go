@@ -1,0 +1,472 @@
+package postgres
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"strings"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+
+	"plumb/connectors"
+)
+
+// pushStrategy is how the pushdown aggregate stays numerically safe.
+type pushStrategy int
+
+const (
+	// pushAuto: pushRegr where it applies (PostgreSQL 12+, unweighted),
+	// else pushShifted.
+	pushAuto pushStrategy = iota
+	// pushRegr: regr_sxy and avg, which PostgreSQL 12 and later compute by
+	// the Youngs–Cramer updating algorithm and combine across parallel
+	// workers pairwise (float8_regr_accum, float8_regr_combine). Its error
+	// grows with a column's |mean|/spread, so columns whose provisional
+	// mean is large against their spread are shifted by it first; the
+	// others cost no more than the bare sums of products.
+	pushRegr
+	// pushShifted: sums of products of values all shifted by provisional
+	// means, for weights and for engines without the updating aggregates.
+	pushShifted
+)
+
+// shiftRatio: a column is shifted when its provisional |mean| exceeds this
+// many standard deviations (the Youngs–Cramer error is about
+// ε·√n·|mean|/sd, so at most ~1e-10 relative for 10⁸ rows).
+const shiftRatio = 100
+
+// pushdownShiftRows is how many complete rows the shift query averages.
+const pushdownShiftRows = 1000
+
+// pushdown computes the accumulators inside PostgreSQL: a small count query
+// (rows, rows without a time, inexact values), one aggregate per bucket and
+// segment over the complete rows, and the per-column missing counts only
+// when rows were dropped. The server returns O(p²) numbers per group
+// whatever the number of rows.
+func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connectors.Result, error) {
+	if req.QR {
+		return nil, fmt.Errorf("--pushdown returns cross-products, not the QR factor; scan without --pushdown for QR accuracy: %w", connectors.ErrUnsupported)
+	}
+	conn, err := s.pool.Acquire(ctx)
+	if err != nil {
+		return nil, s.wrap(err, "cannot connect")
+	}
+	defer conn.Release()
+	tx, err := conn.BeginTx(ctx, pgx.TxOptions{AccessMode: pgx.ReadOnly, IsoLevel: pgx.RepeatableRead})
+	if err != nil {
+		return nil, s.wrap(err, "begin")
+	}
+	defer tx.Rollback(context.Background())
+	// JIT compiling an aggregate of a few hundred expressions costs more
+	// than it saves.
+	if _, err := tx.Exec(ctx, "SET LOCAL jit = off"); err != nil {
+		return nil, s.wrap(err, "SET jit")
+	}
+	t, plan, st, err := s.prepare(ctx, tx, req)
+	if err != nil {
+		return nil, err
+	}
+	strategy := s.push
+	if strategy == pushAuto {
+		strategy = pushRegr
+		if s.version < 120000 || plan.Weight != nil {
+			strategy = pushShifted
+		}
+	}
+	if strategy == pushRegr && plan.Weight != nil {
+		return nil, fmt.Errorf("%s: weighted pushdown needs the shifted sums: %w", t.source, connectors.ErrUnsupported)
+	}
+	pd, err := newPush(t, plan, st)
+	if err != nil {
+		return nil, err
+	}
+	res := &connectors.Result{
+		Columns:    plan.Names(),
+		Sampled:    req.SamplePct > 0 && req.SamplePct < 100,
+		Inexact:    make([]int64, len(plan.Values)),
+		Skipped:    plan.Skipped,
+		Partitions: 1,
+		Pushdown:   true,
+	}
+	groups := map[gkey]*connectors.Stats{}
+	var order []gkey
+
+	// 1. Rows per group, rows without a time, inexact values.
+	rows, err := tx.Query(ctx, pd.countSQL())
+	if err != nil {
+		return nil, s.wrap(err, t.source)
+	}
+	err = forRows(rows, func(v []any) error {
+		k, ok := pd.key(v)
+		n := v[2].(int64)
+		res.Read += n
+		for i, j := range pd.lay.flags {
+			res.Inexact[j] += v[3+i].(int64)
+		}
+		if !ok {
+			res.NoTime += n
+			return nil
+		}
+		st := pd.newStats()
+		st.Dropped = n // until the aggregate says how many were used
+		groups[k] = st
+		order = append(order, k)
+		return nil
+	})
+	if err != nil {
+		return nil, s.wrap(err, t.source)
+	}
+	if err := pd.checkSegments(order, plan.MaxSegments); err != nil {
+		return nil, err
+	}
+
+	// 2. The aggregate over complete rows.
+	if err := pd.shift(ctx, tx, s, strategy == pushShifted); err != nil {
+		return nil, err
+	}
+	q := pd.shiftedSQL()
+	if strategy == pushRegr {
+		q = pd.regrSQL()
+	}
+	rows, err = tx.Query(ctx, q, pgx.QueryResultFormats{pgx.BinaryFormatCode})
+	if err != nil {
+		return nil, s.wrap(err, t.source)
+	}
+	err = forRows(rows, func(v []any) error {
+		k, _ := pd.key(v)
+		st := groups[k]
+		if st == nil {
+			return fmt.Errorf("aggregate returned a group the count did not: %v", k)
+		}
+		return pd.fill(st, v[2:], strategy)
+	})
+	if err != nil {
+		return nil, s.wrap(err, t.source)
+	}
+
+	// 3. Missing counts, only when rows were dropped.
+	dropped := false
+	for _, st := range groups {
+		st.Dropped -= st.Used
+		dropped = dropped || st.Dropped > 0
+	}
+	if dropped {
+		rows, err = tx.Query(ctx, pd.missingSQL())
+		if err != nil {
+			return nil, s.wrap(err, t.source)
+		}
+		err = forRows(rows, func(v []any) error {
+			k, ok := pd.key(v)
+			if st := groups[k]; ok && st != nil {
+				pd.fillMissing(st, v[2:])
+			}
+			return nil
+		})
+		if err != nil {
+			return nil, s.wrap(err, t.source)
+		}
+	}
+	for _, k := range order {
+		m, err := groups[k].Moments()
+		if err != nil {
+			return nil, err
+		}
+		var key connectors.Key
+		if plan.Time != nil {
+			key.Bucket = time.UnixMicro(k.bucket).In(plan.Location)
+		}
+		key.Segment = k.seg
+		res.Groups = append(res.Groups, connectors.Group{Key: key, Moments: m})
+	}
+	connectors.SortGroups(res.Groups)
+	return res, nil
+}
+
+type gkey struct {
+	bucket int64
+	seg    string
+}
+
+func forRows(rows pgx.Rows, fn func([]any) error) error {
+	defer rows.Close()
+	for rows.Next() {
+		v, err := rows.Values()
+		if err != nil {
+			return err
+		}
+		if err := fn(v); err != nil {
+			return err
+		}
+	}
+	return rows.Err()
+}
+
+// push builds the pushdown statements over one inner SELECT whose columns
+// are bk (bucket), sk (segment), w (weight), x1…xp and f1… (inexact flags).
+type push struct {
+	t       *target
+	plan    *connectors.Plan
+	lay     layout
+	inner   string
+	p       int
+	shiftBy []float64
+}
+
+func newPush(t *target, plan *connectors.Plan, st stmt) (*push, error) {
+	pd := &push{t: t, plan: plan, p: len(plan.Values)}
+	list := []string{"NULL::timestamptz AS bk", "NULL::text AS sk"}
+	if plan.Time != nil {
+		zone, err := zoneLiteral(plan.Location)
+		if err != nil {
+			return nil, err
+		}
+		list[0] = bucketExpr(plan.Time.Name, t.base[plan.Time.Name], plan.Bucket, zone) + " AS bk"
+	}
+	if plan.Segment != nil {
+		list[1] = "coalesce(" + connectors.QuoteIdent(plan.Segment.Name) + "::text, " + quoteLiteral(connectors.NullSegment) + ") AS sk"
+	}
+	if plan.Weight != nil {
+		list = append(list, valueExpr(plan.Weight.Name, t.base[plan.Weight.Name])+" AS w")
+	}
+	for j, c := range plan.Values {
+		list = append(list, fmt.Sprintf("%s AS x%d", valueExpr(c.Name, t.base[c.Name]), j))
+	}
+	for j, c := range plan.Values {
+		if e := inexactExpr(c.Name, t.base[c.Name]); e != "" {
+			list = append(list, fmt.Sprintf("%s AS f%d", e, len(pd.lay.flags)))
+			pd.lay.flags = append(pd.lay.flags, j)
+		}
+	}
+	pd.inner = st.sql(list)
+	return pd, nil
+}
+
+func (pd *push) from() string {
+	if pd.t.query != "" {
+		// The query's WITH must stay at the top: wrap the whole statement.
+		return "(\n" + pd.inner + "\n) AS r"
+	}
+	return "(" + pd.inner + ") AS r"
+}
+
+// ok is the condition for a complete row: every value finite (x − x is 0
+// only for finite x; NULL, NaN and ±Inf fail) and a usable weight.
+func (pd *push) ok() string {
+	var c []string
+	for j := 0; j < pd.p; j++ {
+		c = append(c, fmt.Sprintf("x%d - x%d = 0", j, j))
+	}
+	if pd.plan.Weight != nil {
+		c = append(c, pd.wok())
+	}
+	if pd.plan.Time != nil {
+		c = append(c, "bk IS NOT NULL")
+	}
+	return strings.Join(c, " AND ")
+}
+
+// wok mirrors the stream package: a weight is usable when 0 ≤ w < +Inf
+// (NaN compares above +Inf in PostgreSQL, so it fails too).
+func (pd *push) wok() string { return "(w >= 0 AND w < 'Infinity'::float8)" }
+
+func (pd *push) countSQL() string {
+	list := []string{"bk", "sk", "count(*)"}
+	for i := range pd.lay.flags {
+		list = append(list, fmt.Sprintf("count(*) FILTER (WHERE f%d)", i))
+	}
+	return "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from() + " GROUP BY bk, sk"
+}
+
+func (pd *push) regrSQL() string {
+	list := []string{"bk", "sk", "count(*)"}
+	for j := 0; j < pd.p; j++ {
+		list = append(list, "avg("+pd.d(j)+")")
+	}
+	for i := 0; i < pd.p; i++ {
+		for j := i; j < pd.p; j++ {
+			list = append(list, "regr_sxy("+pd.d(i)+", "+pd.d(j)+")")
+		}
+	}
+	list = append(list, pd.minMax()...)
+	return "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from() + " WHERE " + pd.ok() + " GROUP BY bk, sk"
+}
+
+func (pd *push) minMax() []string {
+	var list []string
+	for j := 0; j < pd.p; j++ {
+		list = append(list, fmt.Sprintf("min(x%d)", j), fmt.Sprintf("max(x%d)", j))
+	}
+	return list
+}
+
+// shift takes provisional means and spreads from the first complete rows
+// (a cheap query: it stops after pushdownShiftRows rows). With all set,
+// every column is shifted; otherwise only those whose mean is large
+// against their spread.
+func (pd *push) shift(ctx context.Context, tx pgx.Tx, s *Source, all bool) error {
+	list := make([]string, 0, 2*pd.p)
+	for j := 0; j < pd.p; j++ {
+		list = append(list, fmt.Sprintf("coalesce(avg(x%d), 0)", j), fmt.Sprintf("coalesce(stddev_pop(x%d), 0)", j))
+	}
+	q := "SELECT " + strings.Join(list, ", ") + " FROM (SELECT * FROM " + pd.from() + " WHERE " + pd.ok() +
+		fmt.Sprintf(" LIMIT %d) AS s", pushdownShiftRows)
+	mean := make([]float64, pd.p)
+	sd := make([]float64, pd.p)
+	dst := make([]any, 0, 2*pd.p)
+	for j := 0; j < pd.p; j++ {
+		dst = append(dst, &mean[j], &sd[j])
+	}
+	if err := tx.QueryRow(ctx, q).Scan(dst...); err != nil {
+		return s.wrap(err, pd.t.source)
+	}
+	pd.shiftBy = make([]float64, pd.p)
+	for j := range mean {
+		if all || math.Abs(mean[j]) > shiftRatio*sd[j] {
+			pd.shiftBy[j] = mean[j]
+		}
+	}
+	return nil
+}
+
+// d is column j as aggregated: shifted when it has a shift.
+func (pd *push) d(j int) string {
+	if pd.shiftBy[j] == 0 {
+		return fmt.Sprintf("x%d", j)
+	}
+	return fmt.Sprintf("(x%d - %s)", j, float8Literal(pd.shiftBy[j]))
+}
+
+func (pd *push) shiftedSQL() string {
+	d := pd.d
+	w := ""
+	list := []string{"bk", "sk", "count(*)"}
+	if pd.plan.Weight != nil {
+		w = "w * "
+		list = append(list, "sum(w)")
+	} else {
+		list = append(list, "count(*)::float8")
+	}
+	for j := 0; j < pd.p; j++ {
+		list = append(list, "sum("+w+d(j)+")")
+	}
+	for i := 0; i < pd.p; i++ {
+		for j := i; j < pd.p; j++ {
+			list = append(list, "sum("+w+d(i)+" * "+d(j)+")")
+		}
+	}
+	list = append(list, pd.minMax()...)
+	return "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from() + " WHERE " + pd.ok() + " GROUP BY bk, sk"
+}
+
+func (pd *push) missingSQL() string {
+	list := []string{"bk", "sk"}
+	scope := "bk IS NOT NULL"
+	if pd.plan.Time == nil {
+		scope = "true"
+	}
+	if pd.plan.Weight != nil {
+		list = append(list, "count(*) FILTER (WHERE NOT coalesce("+pd.wok()+", false))")
+		scope += " AND " + pd.wok()
+	} else {
+		list = append(list, "0::int8")
+	}
+	for j := 0; j < pd.p; j++ {
+		list = append(list,
+			fmt.Sprintf("count(*) FILTER (WHERE %s AND x%d IS NULL)", scope, j),
+			fmt.Sprintf("count(*) FILTER (WHERE %s AND x%d = 'NaN'::float8)", scope, j),
+			fmt.Sprintf("count(*) FILTER (WHERE %s AND x%d IN ('Infinity'::float8, '-Infinity'::float8))", scope, j))
+	}
+	return "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from() + " GROUP BY bk, sk"
+}
+
+func (pd *push) key(v []any) (gkey, bool) {
+	var k gkey
+	if pd.plan.Time != nil {
+		t, ok := v[0].(time.Time)
+		if !ok {
+			return k, false
+		}
+		k.bucket = t.UnixMicro()
+	}
+	if s, ok := v[1].(string); ok {
+		k.seg = s
+	}
+	return k, true
+}
+
+func (pd *push) checkSegments(keys []gkey, max int) error {
+	if pd.plan.Segment == nil {
+		return nil
+	}
+	segs := map[string]bool{}
+	for _, k := range keys {
+		segs[k.seg] = true
+	}
+	if len(segs) > max {
+		return fmt.Errorf("%s: segment column %q: more than %d distinct segments (raise the limit or pick a coarser segment column): %w",
+			pd.t.source, pd.plan.Segment.Name, max, connectors.ErrTooManySegments)
+	}
+	return nil
+}
+
+func (pd *push) newStats() *connectors.Stats {
+	p := pd.p
+	return &connectors.Stats{
+		Names: pd.plan.Names(),
+		Null:  make([]int64, p), NaN: make([]int64, p), Inf: make([]int64, p),
+		Origin: make([]float64, p), Sum: make([]float64, p), Cross: make([]float64, p*(p+1)/2),
+		Min: make([]float64, p), Max: make([]float64, p),
+	}
+}
+
+func num(v any) float64 {
+	switch x := v.(type) {
+	case float64:
+		return x
+	case int64:
+		return float64(x)
+	}
+	return 0
+}
+
+func (pd *push) fill(st *connectors.Stats, v []any, strategy pushStrategy) error {
+	p := pd.p
+	st.Used = v[0].(int64)
+	i := 1
+	if strategy == pushRegr {
+		st.SumWeights = float64(st.Used)
+		st.Centered = true
+		copy(st.Origin, pd.shiftBy)
+		for j := 0; j < p; j++ {
+			st.Sum[j] = num(v[i]) * st.SumWeights
+			i++
+		}
+	} else {
+		st.SumWeights = num(v[i])
+		i++
+		copy(st.Origin, pd.shiftBy)
+		for j := 0; j < p; j++ {
+			st.Sum[j] = num(v[i])
+			i++
+		}
+	}
+	for k := range st.Cross {
+		st.Cross[k] = num(v[i])
+		i++
+	}
+	for j := 0; j < p; j++ {
+		st.Min[j], st.Max[j] = num(v[i]), num(v[i+1])
+		i += 2
+	}
+	return nil
+}
+
+func (pd *push) fillMissing(st *connectors.Stats, v []any) {
+	st.BadWeights = v[0].(int64)
+	for j := 0; j < pd.p; j++ {
+		st.Null[j] = v[1+3*j].(int64)
+		st.NaN[j] = v[2+3*j].(int64)
+		st.Inf[j] = v[3+3*j].(int64)
+	}
+}

@@ -1,0 +1,328 @@
+package postgres
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"strings"
+	"sync"
+	"sync/atomic"
+
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgconn"
+
+	"plumb/connectors"
+)
+
+// Scan reads the requested columns and accumulates them: one streaming
+// pass, K partitions at once (Options.Parallel), or an aggregate computed
+// by the server (Options.Pushdown).
+func (s *Source) Scan(ctx context.Context, req connectors.Request) (*connectors.Result, error) {
+	if req.SamplePct < 0 || req.SamplePct > 100 || math.IsNaN(req.SamplePct) {
+		return nil, fmt.Errorf("--sample %v: want a percentage in (0, 100]: %w", req.SamplePct, connectors.ErrUnsupported)
+	}
+	if s.opts.Pushdown {
+		return s.pushdown(ctx, req)
+	}
+	k := s.opts.Parallel
+	conn, err := s.pool.Acquire(ctx)
+	if err != nil {
+		return nil, s.wrap(err, "cannot connect")
+	}
+	defer conn.Release()
+	opts := pgx.TxOptions{AccessMode: pgx.ReadOnly}
+	if k > 1 {
+		opts.IsoLevel = pgx.RepeatableRead
+	}
+	tx, err := conn.BeginTx(ctx, opts)
+	if err != nil {
+		return nil, s.wrap(err, "begin")
+	}
+	defer tx.Rollback(context.Background())
+	t, plan, st, err := s.prepare(ctx, tx, req)
+	if err != nil {
+		return nil, err
+	}
+	list, lay, err := streamList(t, plan)
+	if err != nil {
+		return nil, err
+	}
+	if k > 1 && t.table == nil {
+		return nil, fmt.Errorf("query: --parallel splits a table by TID ranges; give --table: %w", connectors.ErrUnsupported)
+	}
+	if k > 1 && (t.relkind == "v" || t.relkind == "f") {
+		return nil, fmt.Errorf("%s: --parallel splits a table by TID ranges, and a view has none: %w", t.source, connectors.ErrUnsupported)
+	}
+	var total int64
+	if req.Progress != nil {
+		total, _ = s.estimate(ctx, tx, t, req)
+	}
+	prog := newProgress(req.Progress, total)
+
+	var ranges [][2]int64
+	if k > 1 {
+		var nblocks int64
+		if err := tx.QueryRow(ctx, `SELECT greatest(pg_relation_size($1::regclass),
+				coalesce((SELECT max(pg_relation_size(relid)) FROM pg_partition_tree($1::regclass)), 0))
+				/ current_setting('block_size')::int8`, t.oid).Scan(&nblocks); err != nil {
+			return nil, s.wrap(err, t.source)
+		}
+		ranges = tidRanges(nblocks, k)
+	}
+	var decs []*decoder
+	if len(ranges) <= 1 {
+		d := newDecoder(t.source, plan, lay, req.QR)
+		d.tick = prog.add
+		if err := s.stream(ctx, tx, st.sql(list), d); err != nil {
+			return nil, err
+		}
+		decs = append(decs, d)
+	} else {
+		var snap string
+		if err := tx.QueryRow(ctx, "SELECT pg_export_snapshot()").Scan(&snap); err != nil {
+			return nil, s.wrap(err, "exporting the snapshot for --parallel")
+		}
+		if decs, err = s.partitions(ctx, tx, snap, t, plan, lay, st, list, ranges, req.QR, prog); err != nil {
+			return nil, err
+		}
+	}
+	prog.flush()
+	res := &connectors.Result{
+		Columns:    plan.Names(),
+		Sampled:    req.SamplePct > 0 && req.SamplePct < 100,
+		Inexact:    make([]int64, len(plan.Values)),
+		Skipped:    plan.Skipped,
+		Partitions: len(decs),
+	}
+	parts := make([][]connectors.Group, len(decs))
+	for i, d := range decs {
+		parts[i] = d.g.Groups()
+		res.Read += d.read
+		res.NoTime += d.noTime
+		for j, n := range d.inexact {
+			res.Inexact[j] += n
+		}
+	}
+	if len(parts) == 1 {
+		res.Groups = parts[0]
+	} else if res.Groups, err = connectors.MergeGroups(parts, plan.MaxSegments); err != nil {
+		return nil, fmt.Errorf("%s: segment column %q: %w", t.source, plan.Segment.Name, err)
+	}
+	return res, nil
+}
+
+// prepare describes the target, resolves the request and builds the
+// statement's FROM and WHERE.
+func (s *Source) prepare(ctx context.Context, tx pgx.Tx, req connectors.Request) (*target, *connectors.Plan, stmt, error) {
+	t, err := s.describe(ctx, tx, req)
+	if err != nil {
+		return nil, nil, stmt{}, err
+	}
+	plan, err := connectors.Resolve(t.source, t.cols, req, connectors.KindTime)
+	if err != nil {
+		return nil, nil, stmt{}, err
+	}
+	where, err := connectors.CheckWhere(req.Where, connectors.Postgres)
+	if err != nil {
+		return nil, nil, stmt{}, err
+	}
+	st, err := s.baseStmt(t, where, req)
+	if err != nil {
+		return nil, nil, stmt{}, err
+	}
+	return t, plan, st, nil
+}
+
+// tidRanges splits nblocks pages into k ranges [lo, hi); the first starts
+// at 0 and the last is open (hi = -1), so pages added meanwhile are read.
+func tidRanges(nblocks int64, k int) [][2]int64 {
+	if nblocks < int64(k) {
+		k = int(max(nblocks, 1))
+	}
+	per := (nblocks + int64(k) - 1) / int64(k)
+	out := make([][2]int64, k)
+	for i := range out {
+		out[i] = [2]int64{int64(i) * per, int64(i+1) * per}
+	}
+	out[k-1][1] = -1
+	return out
+}
+
+func tidCond(r [2]int64) []string {
+	var c []string
+	if r[0] > 0 {
+		c = append(c, fmt.Sprintf("ctid >= '(%d,0)'::tid", r[0]))
+	}
+	if r[1] >= 0 {
+		c = append(c, fmt.Sprintf("ctid < '(%d,0)'::tid", r[1]))
+	}
+	return c
+}
+
+// partitions scans the ranges at once, range 0 on tx and the others on
+// their own connections in transactions that import tx's snapshot, so all
+// see the same rows. Nothing is merged unless every range succeeded.
+func (s *Source) partitions(ctx context.Context, tx pgx.Tx, snap string, t *target, plan *connectors.Plan, lay layout,
+	st stmt, list []string, ranges [][2]int64, qr bool, prog *progress) ([]*decoder, error) {
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	decs := make([]*decoder, len(ranges))
+	errs := make([]error, len(ranges))
+	var wg sync.WaitGroup
+	for i, r := range ranges {
+		d := newDecoder(fmt.Sprintf("%s (range %d of %d)", t.source, i+1, len(ranges)), plan, lay, qr)
+		d.tick = prog.add
+		decs[i] = d
+		q := st.sql(list, tidCond(r)...)
+		wg.Add(1)
+		go func(i int) {
+			defer wg.Done()
+			var err error
+			if i == 0 {
+				err = s.stream(ctx, tx, q, d)
+			} else {
+				err = s.streamSnapshot(ctx, snap, q, d)
+			}
+			if err != nil {
+				errs[i] = err
+				cancel()
+			}
+		}(i)
+	}
+	wg.Wait()
+	// Report the first failure that is not a consequence of cancelling
+	// the others.
+	var first error
+	for _, err := range errs {
+		if err != nil && (first == nil || (isCancel(first) && !isCancel(err))) {
+			first = err
+		}
+	}
+	if first != nil {
+		return nil, first
+	}
+	return decs, nil
+}
+
+func isCancel(err error) bool {
+	var pe *pgconn.PgError
+	return errors.Is(err, context.Canceled) || (errors.As(err, &pe) && pe.Code == "57014" && strings.Contains(pe.Message, "user request"))
+}
+
+func (s *Source) streamSnapshot(ctx context.Context, snap, q string, d *decoder) error {
+	conn, err := s.pool.Acquire(ctx)
+	if err != nil {
+		return s.wrap(err, "cannot connect")
+	}
+	defer conn.Release()
+	tx, err := conn.BeginTx(ctx, pgx.TxOptions{AccessMode: pgx.ReadOnly, IsoLevel: pgx.RepeatableRead})
+	if err != nil {
+		return s.wrap(err, "begin")
+	}
+	defer tx.Rollback(context.Background())
+	if _, err := tx.Exec(ctx, "SET TRANSACTION SNAPSHOT "+quoteLiteral(snap)); err != nil {
+		return s.wrap(err, "importing the snapshot for --parallel")
+	}
+	return s.stream(ctx, tx, q, d)
+}
+
+// stream runs one SELECT and feeds its rows to d.
+func (s *Source) stream(ctx context.Context, tx pgx.Tx, q string, d *decoder) error {
+	if s.mode == readCopy {
+		p := &copyParser{d: d}
+		_, err := tx.Conn().PgConn().CopyTo(ctx, p, "COPY ("+q+") TO STDOUT (FORMAT binary)")
+		if d.err != nil {
+			return d.err
+		}
+		if err != nil {
+			return s.wrap(err, d.source)
+		}
+		if !p.done {
+			return s.wrap(fmt.Errorf("COPY stream ended without its trailer"), d.source)
+		}
+		return nil
+	}
+	rows, err := tx.Query(ctx, q, pgx.QueryResultFormats{pgx.BinaryFormatCode})
+	if err != nil {
+		return s.wrap(err, d.source)
+	}
+	defer rows.Close()
+	for rows.Next() {
+		if err := d.row(rows.RawValues()); err != nil {
+			return err
+		}
+	}
+	// A query can deliver rows and fail afterwards.
+	if err := rows.Err(); err != nil {
+		return s.wrap(err, d.source)
+	}
+	return nil
+}
+
+// progress aggregates row counts from the partitions for Request.Progress.
+type progress struct {
+	fn    func(read, total int64)
+	total int64
+	n     atomic.Int64
+	mu    sync.Mutex
+}
+
+func newProgress(fn func(read, total int64), total int64) *progress {
+	return &progress{fn: fn, total: total}
+}
+
+func (p *progress) add(n int64) {
+	if p.fn == nil {
+		return
+	}
+	v := p.n.Add(n)
+	p.mu.Lock()
+	p.fn(v, p.total)
+	p.mu.Unlock()
+}
+
+func (p *progress) flush() {
+	if p.fn == nil {
+		return
+	}
+	p.mu.Lock()
+	p.fn(p.n.Load(), p.total)
+	p.mu.Unlock()
+}
+
+// Estimate returns the planner's row estimate for a table (pg_class
+// reltuples, with its partitions), scaled by the sample; 0 when unknown.
+func (s *Source) Estimate(ctx context.Context, req connectors.Request) (int64, error) {
+	conn, err := s.pool.Acquire(ctx)
+	if err != nil {
+		return 0, s.wrap(err, "cannot connect")
+	}
+	defer conn.Release()
+	tx, err := conn.BeginTx(ctx, pgx.TxOptions{AccessMode: pgx.ReadOnly})
+	if err != nil {
+		return 0, s.wrap(err, "begin")
+	}
+	defer tx.Rollback(context.Background())
+	t, err := s.describe(ctx, tx, req)
+	if err != nil {
+		return 0, err
+	}
+	return s.estimate(ctx, tx, t, req)
+}
+
+func (s *Source) estimate(ctx context.Context, tx pgx.Tx, t *target, req connectors.Request) (int64, error) {
+	if t.table == nil {
+		return 0, nil
+	}
+	var est float64
+	if err := tx.QueryRow(ctx, `SELECT greatest(c.reltuples, 0) + coalesce((SELECT sum(greatest(ch.reltuples, 0))
+			FROM pg_inherits i JOIN pg_class ch ON ch.oid = i.inhrelid WHERE i.inhparent = c.oid), 0)
+		FROM pg_class c WHERE c.oid = $1`, t.oid).Scan(&est); err != nil {
+		return 0, s.wrap(err, t.source)
+	}
+	if req.SamplePct > 0 && req.SamplePct < 100 {
+		est *= req.SamplePct / 100
+	}
+	return int64(est), nil
+}
