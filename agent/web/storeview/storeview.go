@@ -9,6 +9,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"slices"
+	"sync"
 	"time"
 
 	"plumb/agent"
@@ -18,10 +19,21 @@ import (
 )
 
 // View reads a state store for the dashboard.
+//
+// Everything a watch shows changes only when a run is committed (points,
+// runs and alerts are written in the run's transaction), so a watch's
+// detail is cached until its newest run id changes, or for at most
+// CacheFor: a scrape or a page then costs one small query per watch.
 type View struct {
 	store   agent.Store
 	watches []*config.Watch
 
+	mu    sync.Mutex
+	cache map[string]cached
+
+	// CacheFor bounds how long a cached detail is reused even when no
+	// run was committed (the alert history window slides; default 1 min).
+	CacheFor time.Duration
 	// RecentRuns is how many runs the watch page lists (default 50).
 	RecentRuns int
 	// AlertHistory is how long resolved alerts stay on the watch page
@@ -40,6 +52,47 @@ func New(st agent.Store, cfg *config.Config) *View {
 	return &View{store: st, watches: cfg.Watches}
 }
 
+// cached is a watch's detail as of its newest run.
+type cached struct {
+	runID    int64
+	full     bool
+	loadedAt time.Time
+	detail   *web.WatchDetail
+}
+
+// load returns the watch's detail, from the cache when its newest run is
+// the one the cached detail was built from.
+func (v *View) load(ctx context.Context, w *config.Watch, full bool) (*web.WatchDetail, error) {
+	newest, err := v.store.Runs(ctx, w.Name, 1)
+	if err != nil {
+		return nil, fmt.Errorf("watch %q: %w", w.Name, err)
+	}
+	var id int64
+	if len(newest) > 0 {
+		id = newest[0].ID
+	}
+	now := v.now()
+	v.mu.Lock()
+	c, ok := v.cache[w.Name]
+	v.mu.Unlock()
+	if ok && c.runID == id && (c.full || !full) && now.Sub(c.loadedAt) < cmp.Or(v.CacheFor, time.Minute) && !now.Before(c.loadedAt) {
+		d := *c.detail
+		return &d, nil
+	}
+	d, err := v.detail(ctx, w, full)
+	if err != nil {
+		return nil, err
+	}
+	v.mu.Lock()
+	if v.cache == nil {
+		v.cache = make(map[string]cached)
+	}
+	v.cache[w.Name] = cached{runID: id, full: full, loadedAt: now, detail: d}
+	v.mu.Unlock()
+	c2 := *d
+	return &c2, nil
+}
+
 func (v *View) now() time.Time {
 	if v.Now != nil {
 		return v.Now()
@@ -51,7 +104,7 @@ func (v *View) now() time.Time {
 func (v *View) Watches(ctx context.Context) ([]web.WatchSummary, error) {
 	out := make([]web.WatchSummary, 0, len(v.watches))
 	for _, w := range v.watches {
-		d, err := v.detail(ctx, w, false)
+		d, err := v.load(ctx, w, false)
 		if err != nil {
 			return nil, err
 		}
@@ -64,7 +117,7 @@ func (v *View) Watches(ctx context.Context) ([]web.WatchSummary, error) {
 func (v *View) Watch(ctx context.Context, name string) (*web.WatchDetail, error) {
 	for _, w := range v.watches {
 		if w.Name == name {
-			return v.detail(ctx, w, true)
+			return v.load(ctx, w, true)
 		}
 	}
 	return nil, fmt.Errorf("watch %q is not in the configuration: %w", name, web.ErrNotFound)

@@ -200,6 +200,25 @@ func TestStoreView(t *testing.T) {
 		t.Errorf("a watch without runs: %+v, %v", u, err)
 	}
 
+	// The cache: a detail is reused until a run is committed.
+	again, err := v.Watch(ctx, "district_daily")
+	if err != nil || again.Segment("") == nil || again.Segment("").Report != whole.Report {
+		t.Errorf("a second read without a new run should come from the cache")
+	}
+	more := agent.RunResult{Run: agent.Run{Watch: "district_daily", Kind: agent.RunLive, Status: agent.StatusFailed,
+		StartedAt: resolved.Add(time.Hour), FinishedAt: resolved.Add(time.Hour + time.Second), Error: "source districts: timeout"}}
+	if _, err := st.CommitRun(ctx, &more); err != nil {
+		t.Fatal(err)
+	}
+	ws, err = v.Watches(ctx)
+	if err != nil || ws[0].ConsecutiveFailures != 2 || ws[0].RunFailures != 2 {
+		t.Errorf("after a new run the summary should be reread: %+v, %v", ws[0], err)
+	}
+	d, err = v.Watch(ctx, "district_daily")
+	if err != nil || len(d.Runs) != 3 || d.Segment("").Report == nil {
+		t.Errorf("after a new run the detail should be reread in full: %d runs, %v", len(d.Runs), err)
+	}
+
 	// Served: the page carries the stored exact dependency's equation.
 	srv, err := web.New(web.Options{View: v, Now: v.Now})
 	if err != nil {
