@@ -50,10 +50,12 @@ const (
 	// minTrendPoints is the fewest points a trend is fitted on.
 	minTrendPoints = 5
 	// minJumpChanges is the fewest earlier changes a jump is judged against.
-	minJumpChanges = 5
+	minJumpChanges = 7
 	// minJump is the smallest relative change that counts as a jump
-	// (common practice, no source: below 10 % a change is not news).
-	minJump = 0.10
+	// (common practice, no source: a window that moves by one bucket
+	// changes little, so its point-to-point spread is tiny and the robust
+	// z alone would flag ordinary days; below 25 % a change is not news).
+	minJump = 0.25
 )
 
 // RuleState is what the rules remember between points.
@@ -68,6 +70,11 @@ type RecentPoint struct {
 	Cond jfloat    `json:"cond"`
 	VIF  jfloat    `json:"vif"`
 }
+
+// singular reports a rank-deficient design: its condition number only
+// says "singular" (about 1/eps), so trends and jumps leave it out — the
+// exact and constant rules speak for it.
+func (o Observation) singular() bool { return o.Columns > 0 && o.Rank < o.Columns+1 }
 
 // jfloat is a float64 whose non-finite values travel through JSON as
 // null (read back as NaN).
@@ -155,7 +162,7 @@ func sevRank(s Severity) int {
 // Step evaluates one observation: open maps AlertKey to the open alerts of
 // this watch and segment and is updated in place; now is the wall clock.
 func (r *Rules) Step(st *RuleState, open map[string]*Alert, o Observation, now time.Time) []Change {
-	fs := r.findings(st, o)
+	fs := r.findings(st, open, o)
 	keys := make([]string, 0, len(fs)+len(open))
 	for k := range fs {
 		keys = append(keys, k)
@@ -173,11 +180,14 @@ func (r *Rules) Step(st *RuleState, open map[string]*Alert, o Observation, now t
 		switch {
 		case found && a != nil:
 			delete(st.Clear, k)
+			// Severity only rises while an alert is open, so a value
+			// wavering around the critical level escalates once.
 			event := ""
 			if sevRank(f.severity) > sevRank(a.Severity) {
 				event = EventEscalated
+				a.Severity = f.severity
 			}
-			a.Severity, a.Message, a.Detail = f.severity, f.message, f.detail
+			a.Message, a.Detail = f.message, f.detail
 			a.UpdatedAsOf, a.UpdatedAt = o.At, now
 			changes = append(changes, Change{Alert: *a, Event: event})
 		case found:
@@ -207,14 +217,18 @@ func (r *Rules) Step(st *RuleState, open map[string]*Alert, o Observation, now t
 			delete(st.Clear, k)
 		}
 	}
-	st.Recent = append(st.Recent, RecentPoint{At: o.At, Cond: jfloat(o.ConditionNumber), VIF: jfloat(o.MaxVIF)})
+	rp := RecentPoint{At: o.At, Cond: jfloat(o.ConditionNumber), VIF: jfloat(o.MaxVIF)}
+	if o.singular() {
+		rp.Cond = jfloat(math.NaN())
+	}
+	st.Recent = append(st.Recent, rp)
 	if n := r.Limits.TrendPoints; len(st.Recent) > n {
 		st.Recent = slices.Delete(st.Recent, 0, len(st.Recent)-n)
 	}
 	return changes
 }
 
-func (r *Rules) findings(st *RuleState, o Observation) map[string]finding {
+func (r *Rules) findings(st *RuleState, open map[string]*Alert, o Observation) map[string]finding {
 	fs := map[string]finding{}
 	add := func(f finding) { fs[AlertKey(f.rule, f.subject)] = f }
 	l := r.Limits
@@ -279,14 +293,17 @@ func (r *Rules) findings(st *RuleState, o Observation) map[string]finding {
 		{MetricCondition, o.ConditionNumber, l.Condition.Critical, func(p RecentPoint) float64 { return float64(p.Cond) }},
 		{MetricMaxVIF, o.MaxVIF, l.VIF.Critical, func(p RecentPoint) float64 { return float64(p.VIF) }},
 	} {
-		if !isFinite(m.v) || !(m.v > 0) {
+		if !isFinite(m.v) || !(m.v > 0) || m.metric == MetricCondition && o.singular() {
 			continue
 		}
 		recent := st.Recent
 		if n := l.TrendPoints - 1; len(recent) > n {
 			recent = recent[len(recent)-n:]
 		}
-		if f, ok := r.trend(recent, m.get, o.At, m.v, m.metric, m.crit, values, remedy, o); ok {
+		// A trend warns ahead of the critical level: it opens only below
+		// it, and then stays open while the rise goes on.
+		_, trendOpen := open[AlertKey(RuleTrend, m.metric)]
+		if f, ok := r.trend(recent, m.get, o.At, m.v, m.metric, m.crit, values, remedy, o); ok && (trendOpen || m.v < m.crit) {
 			add(f)
 		}
 		if f, ok := r.jump(recent, m.get, o.At, m.v, m.metric, values, remedy, o); ok {

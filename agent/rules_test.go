@@ -116,8 +116,8 @@ func TestLevelEscalation(t *testing.T) {
 	want := []string{
 		"level:condition_number:opened:warning",
 		"level:condition_number:escalated:critical",
-		"level:condition_number:updated:warning", // de-escalation: no notification
-		"level:condition_number:escalated:critical",
+		"level:condition_number:updated:critical", // no de-escalation while open: no flapping
+		"level:condition_number:updated:critical",
 	}
 	for i := range want {
 		if got[i] != want[i] {
@@ -294,7 +294,7 @@ func TestBlind(t *testing.T) {
 // same alerts, ids and data times whether the state stays in memory or
 // goes through its stored form between points, and whatever the wall clock.
 func TestReplayIsDeterministic(t *testing.T) {
-	series := append(drifting(12, 0.08, 16), drifting(40, -0.1, 12)...)
+	series := append(drifting(12, 0.08, 16), drifting(40, -0.1, 16)...)
 	run := func(roundTrip bool, shift time.Duration) []string {
 		s := newStepper(t, testLimits())
 		s.roundTrip = roundTrip

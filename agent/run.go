@@ -1,0 +1,379 @@
+package agent
+
+import (
+	"context"
+	"fmt"
+	"log/slog"
+	"slices"
+	"strings"
+	"time"
+
+	"plumb/agent/config"
+	"plumb/connectors"
+)
+
+// Clock tells the wall time; tests inject their own.
+type Clock interface{ Now() time.Time }
+
+// SystemClock is the real clock.
+type SystemClock struct{}
+
+func (SystemClock) Now() time.Time { return time.Now() }
+
+// Runner runs watches: it scans, stores buckets and points, evaluates the
+// rules and enqueues the notifications, each run in one transaction.
+type Runner struct {
+	Store  Store
+	Config *config.Config
+	Clock  Clock        // nil means SystemClock
+	Logger *slog.Logger // nil means slog.Default()
+	// OpenSource opens a source by URL; nil means connectors.Open with
+	// the agent's options.
+	OpenSource func(ctx context.Context, url string) (connectors.Source, error)
+}
+
+// RunOptions say what kind of run to do.
+type RunOptions struct {
+	Kind RunKind
+	// From, for a backfill, is the first bucket to rescan; zero means the
+	// whole history.
+	From time.Time
+	// Notify, for a backfill, delivers the events it records as they
+	// happened; without it a backfill delivers nothing and leaves the
+	// alerts still open to the next live run.
+	Notify bool
+}
+
+// Outcome is what a run did.
+type Outcome struct {
+	Run  Run
+	Open []Alert // the watch's open alerts after the run
+	// Verdict is the worst severity among the open alerts ("" for none).
+	Verdict Severity
+	Err     error // why the run failed (also in Run.Error)
+}
+
+func (r *Runner) now() time.Time {
+	if r.Clock == nil {
+		return time.Now()
+	}
+	return r.Clock.Now()
+}
+
+func (r *Runner) logger() *slog.Logger {
+	if r.Logger == nil {
+		return slog.Default()
+	}
+	return r.Logger
+}
+
+// pointObs is a computed point with its observation.
+type pointObs struct {
+	p Point
+	o Observation
+}
+
+// collected is what the scanning half of a run produced.
+type collected struct {
+	points       map[string][]pointObs // by segment, oldest first
+	buckets      []Bucket
+	replaceFrom  time.Time // buckets and points from here are replaced
+	replaceAll   bool
+	rebuilt      bool // the whole history was recomputed: replay the rules
+	read         int64
+	dropped      int64
+	scanned      int
+	skipped      []string // points that could not be analyzed, with why
+	latest       time.Time
+	segmentOrder []string
+}
+
+// Run runs one watch once. A failed run is recorded (and counted towards
+// the blind rule) and returned as Outcome.Err, with a nil error; the error
+// is for a run that could not even be recorded.
+func (r *Runner) Run(ctx context.Context, w *config.Watch, opt RunOptions) (*Outcome, error) {
+	if opt.Kind == "" {
+		opt.Kind = RunLive
+	}
+	log := r.logger().With("watch", w.Name)
+	started := r.now()
+	states, err := r.Store.States(ctx, w.Name)
+	if err != nil {
+		return nil, err
+	}
+	stored, err := r.Store.Alerts(ctx, AlertQuery{Watch: w.Name})
+	if err != nil {
+		return nil, err
+	}
+	res := &RunResult{Run: Run{Watch: w.Name, Kind: opt.Kind, StartedAt: started}}
+	col, scanErr := r.collect(ctx, w, opt)
+	if ctx.Err() != nil {
+		// Abandoned (shutdown): record nothing, so the next run redoes it.
+		return nil, fmt.Errorf("watch %q: run abandoned: %w", w.Name, context.Cause(ctx))
+	}
+	ev := newEvaluation(r, w, opt, stored, states)
+	now := r.now()
+	if scanErr != nil {
+		res.Run.Status, res.Run.Error = StatusFailed, scanErr.Error()
+		ev.failure(scanErr, now)
+		log.Warn("run failed", "err", scanErr, "consecutive_failures", ev.failures)
+	} else {
+		res.Run.Status = StatusOK
+		res.Run.RowsRead, res.Run.RowsDropped, res.Run.BucketsScanned = col.read, col.dropped, col.scanned
+		res.Buckets = col.buckets
+		res.ReplaceAllBuckets = col.replaceAll
+		if !col.replaceFrom.IsZero() {
+			res.ReplaceBucketsFrom = col.replaceFrom
+			res.ReplacePointsFrom = col.replaceFrom.Add(time.Microsecond)
+		}
+		if col.replaceAll {
+			res.ReplacePointsFrom = time.UnixMicro(-1 << 62)
+		}
+		for _, seg := range col.segmentOrder {
+			for _, po := range col.points[seg] {
+				res.Points = append(res.Points, po.p)
+			}
+		}
+		res.Run.Points = len(res.Points)
+		res.Run.AsOf = col.latest
+		if err := ev.success(ctx, col, now); err != nil {
+			return nil, err
+		}
+		for _, s := range col.skipped {
+			log.Info("point skipped", "why", s)
+		}
+	}
+	res.Run.FinishedAt = r.now()
+	ev.finish(res, now)
+	if _, err := r.Store.CommitRun(ctx, res); err != nil {
+		return nil, err
+	}
+	out := &Outcome{Run: res.Run, Err: scanErr}
+	for _, a := range ev.openAlerts() {
+		out.Open = append(out.Open, a)
+		if out.Verdict == "" || sevRank(a.Severity) > sevRank(out.Verdict) {
+			out.Verdict = a.Severity
+		}
+	}
+	log.Info("run", "kind", opt.Kind, "status", res.Run.Status, "rows_read", res.Run.RowsRead,
+		"points", res.Run.Points, "open_alerts", len(out.Open), "took", res.Run.FinishedAt.Sub(started).Round(time.Millisecond))
+	return out, nil
+}
+
+func (r *Runner) openSource(ctx context.Context, w *config.Watch) (connectors.Source, string, error) {
+	url := r.Config.SourceURL(w.Source)
+	open := r.OpenSource
+	if open == nil {
+		open = func(ctx context.Context, url string) (connectors.Source, error) {
+			return connectors.Open(ctx, url, connectors.Options{AppName: "plumb-agent"})
+		}
+	}
+	src, err := open(ctx, url)
+	if err != nil {
+		return nil, "", fmt.Errorf("watch %q: source %q: %w", w.Name, w.Source, err)
+	}
+	return src, url, nil
+}
+
+// collect scans what the run needs and computes its points.
+func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (*collected, error) {
+	src, url, err := r.openSource(ctx, w)
+	if err != nil {
+		return nil, err
+	}
+	defer src.Close()
+	req := connectors.Request{Table: w.Table, Query: w.Query, Where: w.Where,
+		TimeColumn: w.TimeColumn, Bucket: w.Bucket, Location: w.Location,
+		Segment: w.SegmentBy, MaxSegments: w.MaxSegments, QR: w.Precision != "fast"}
+	described, err := src.Describe(ctx, req)
+	if err != nil {
+		return nil, fmt.Errorf("watch %q: %w", w.Name, err)
+	}
+	regressors, cols, timeCol, err := chooseColumns(w, described)
+	if err != nil {
+		return nil, err
+	}
+	req.Columns = cols
+	col := &collected{points: map[string][]pointObs{}}
+
+	if w.Bucket == "" {
+		res, err := src.Scan(ctx, req)
+		if err != nil {
+			return nil, fmt.Errorf("watch %q: %w", w.Name, err)
+		}
+		col.read = res.Read
+		at := r.now().UTC().Truncate(time.Second)
+		bySeg := map[string][]acc{}
+		for _, g := range res.Groups {
+			col.dropped += g.Moments.Counts().Dropped
+			bySeg[g.Key.Segment] = append(bySeg[g.Key.Segment], acc{g.Moments, g.QR})
+		}
+		col.latest = at
+		r.points(w, regressors, cols, at, bySeg, col)
+		return col, nil
+	}
+
+	// Bucketed: rescan from the lookback (or everything), merge windows
+	// from the stored buckets.
+	last, have, err := r.Store.LastBucket(ctx, w.Name)
+	if err != nil {
+		return nil, err
+	}
+	full := !have || opt.Kind == RunBackfill && opt.From.IsZero()
+	var since time.Time
+	if have && !full {
+		lastB, err := r.Store.Buckets(ctx, w.Name, last, last.Add(time.Microsecond))
+		if err != nil {
+			return nil, err
+		}
+		if len(lastB) == 0 || !slices.Equal(lastB[0].Columns, cols) {
+			r.logger().Info("columns changed: rebuilding the history", "watch", w.Name, "columns", strings.Join(cols, ","))
+			full = true
+		}
+	}
+	switch {
+	case full:
+		col.replaceAll, col.rebuilt = true, true
+	case opt.Kind == RunBackfill:
+		since = floorBucket(opt.From, w.Bucket, w.Location)
+		col.rebuilt = true
+	default:
+		since = rescanFrom(last, w)
+	}
+	if !since.IsZero() {
+		req.Where = andWhere(req.Where, sinceFilter(url, *timeCol, since))
+	}
+	res, err := src.Scan(ctx, req)
+	if err != nil {
+		return nil, fmt.Errorf("watch %q: %w", w.Name, err)
+	}
+	col.read = res.Read
+	col.replaceFrom = since
+	scanned := map[time.Time]bool{}
+	accs := map[bucketKey]acc{}
+	for _, g := range res.Groups {
+		start := g.Key.Bucket.UTC()
+		if start.Before(since) {
+			continue // the filter's margin
+		}
+		col.dropped += g.Moments.Counts().Dropped
+		b, err := encodeGroup(w.Name, g, cols)
+		if err != nil {
+			return nil, fmt.Errorf("watch %q: encoding bucket: %w", w.Name, err)
+		}
+		col.buckets = append(col.buckets, b)
+		scanned[start] = true
+		accs[bucketKey{start, g.Key.Segment}] = acc{g.Moments, g.QR}
+	}
+	col.scanned = len(scanned)
+	if len(scanned) == 0 {
+		return col, nil
+	}
+	starts := make([]time.Time, 0, len(scanned))
+	for s := range scanned {
+		starts = append(starts, s)
+	}
+	slices.SortFunc(starts, func(a, b time.Time) int { return a.Compare(b) })
+	if !since.IsZero() {
+		// Older buckets that windows ending after since still cover.
+		from := windowStart(addBuckets(starts[0], w.Bucket, 1, w.Location), w)
+		older, err := r.Store.Buckets(ctx, w.Name, from, since)
+		if err != nil {
+			return nil, err
+		}
+		for _, b := range older {
+			if !slices.Equal(b.Columns, cols) {
+				continue
+			}
+			a, err := decodeBucket(b)
+			if err != nil {
+				return nil, fmt.Errorf("watch %q: stored %w", w.Name, err)
+			}
+			accs[bucketKey{b.Start, b.Segment}] = a
+		}
+	}
+	// One point per scanned bucket: the window ending at its end.
+	for _, s := range starts {
+		end := addBuckets(s, w.Bucket, 1, w.Location).UTC()
+		bySeg := orderedBySeg(accs, windowStart(end, w), end)
+		r.points(w, regressors, cols, end, bySeg, col)
+		col.latest = end
+	}
+	return col, nil
+}
+
+// bucketKey names a bucket accumulator within a run.
+type bucketKey struct {
+	start time.Time
+	seg   string
+}
+
+// orderedBySeg gathers, per segment, the accumulators of the buckets
+// starting in [from, end), in bucket order, so that merging does not
+// depend on map order.
+func orderedBySeg(accs map[bucketKey]acc, from, end time.Time) map[string][]acc {
+	type kv struct {
+		start time.Time
+		seg   string
+		a     acc
+	}
+	var list []kv
+	for k, a := range accs {
+		if !k.start.Before(from) && k.start.Before(end) {
+			list = append(list, kv{k.start, k.seg, a})
+		}
+	}
+	slices.SortFunc(list, func(a, b kv) int {
+		if c := a.start.Compare(b.start); c != 0 {
+			return c
+		}
+		return strings.Compare(a.seg, b.seg)
+	})
+	out := map[string][]acc{}
+	for _, x := range list {
+		out[x.seg] = append(out[x.seg], x.a)
+	}
+	return out
+}
+
+// points analyzes the window ending at at: the whole table (all segments
+// merged, in segment order) and, with segment_by, each segment.
+func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time, bySeg map[string][]acc, col *collected) {
+	segs := make([]string, 0, len(bySeg))
+	for s := range bySeg {
+		segs = append(segs, s)
+	}
+	slices.Sort(segs)
+	var all []acc
+	for _, s := range segs {
+		all = append(all, bySeg[s]...)
+	}
+	todo := []string{""}
+	if w.SegmentBy != "" {
+		todo = append(todo, segs...)
+	}
+	for _, seg := range todo {
+		parts := all
+		if seg != "" {
+			parts = bySeg[seg]
+		}
+		a := merge(cols, parts)
+		if a.m == nil || a.m.N() == 0 {
+			continue
+		}
+		rep, err := analyze(w, regressors, a)
+		if err != nil {
+			col.skipped = append(col.skipped, fmt.Sprintf("%s segment %q: %v", at.Format(time.RFC3339), seg, err))
+			continue
+		}
+		p, o, err := PointFromReport(w.Name, seg, at, rep)
+		if err != nil {
+			col.skipped = append(col.skipped, err.Error())
+			continue
+		}
+		if _, ok := col.points[seg]; !ok {
+			col.segmentOrder = append(col.segmentOrder, seg)
+		}
+		col.points[seg] = append(col.points[seg], pointObs{p, o})
+	}
+}

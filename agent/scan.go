@@ -1,0 +1,226 @@
+package agent
+
+import (
+	"fmt"
+	"slices"
+	"strconv"
+	"strings"
+	"time"
+
+	"plumb/agent/config"
+	"plumb/connectors"
+	"plumb/diagnostics"
+	"plumb/stream"
+)
+
+// chooseColumns picks the accumulated columns of a watch from what the
+// source described: the configured columns, or every numeric and boolean
+// column but the time, segment and target columns; the target last.
+func chooseColumns(w *config.Watch, described []connectors.Column) (regressors []string, all []string, timeCol *connectors.Column, err error) {
+	byName := map[string]connectors.Column{}
+	for _, c := range described {
+		byName[c.Name] = c
+	}
+	usable := func(c connectors.Column) bool {
+		return c.Kind == connectors.KindNumeric || c.Kind == connectors.KindBool
+	}
+	check := func(role, name string) error {
+		c, ok := byName[name]
+		if !ok {
+			names := make([]string, 0, len(described))
+			for _, d := range described {
+				names = append(names, d.Name)
+			}
+			return fmt.Errorf("watch %q: %s %q not found; the columns are %s", w.Name, role, name, connectors.List(names, 20))
+		}
+		if !usable(c) {
+			return fmt.Errorf("watch %q: %s %q has type %s; pick numeric columns", w.Name, role, name, c.Type)
+		}
+		return nil
+	}
+	if len(w.Columns) > 0 {
+		for _, n := range w.Columns {
+			if err := check("column", n); err != nil {
+				return nil, nil, nil, err
+			}
+		}
+		regressors = slices.Clone(w.Columns)
+	} else {
+		for _, c := range described {
+			if usable(c) && c.Name != w.TimeColumn && c.Name != w.SegmentBy && c.Name != w.Target {
+				regressors = append(regressors, c.Name)
+			}
+		}
+	}
+	if len(regressors) < 2 {
+		return nil, nil, nil, fmt.Errorf("watch %q: %d numeric column(s) to watch; multicollinearity needs two or more", w.Name, len(regressors))
+	}
+	all = slices.Clone(regressors)
+	if w.Target != "" {
+		if err := check("target", w.Target); err != nil {
+			return nil, nil, nil, err
+		}
+		all = append(all, w.Target)
+	}
+	if w.TimeColumn != "" {
+		c, ok := byName[w.TimeColumn]
+		if !ok {
+			return nil, nil, nil, fmt.Errorf("watch %q: time_column %q not found", w.Name, w.TimeColumn)
+		}
+		timeCol = &c
+	}
+	return regressors, all, timeCol, nil
+}
+
+// sinceFilter returns an SQL condition that keeps (at least) the rows whose
+// time column is at or after since. It is deliberately generous — two days
+// early, compared on the date prefix of ISO text — so that time zones and
+// text layouts can never drop a row that belongs to a rescanned bucket;
+// the extra rows fall into earlier buckets, which the run discards.
+//
+// TODO(connectors): a Request field for a lower time bound would let the
+// connector filter with its own time parsing and use an index.
+func sinceFilter(sourceURL string, col connectors.Column, since time.Time) string {
+	early := since.Add(-48 * time.Hour).UTC()
+	q := connectors.QuoteIdent(col.Name)
+	secs := strconv.FormatInt(early.Unix(), 10)
+	if strings.HasPrefix(sourceURL, "sqlite:") {
+		return fmt.Sprintf("(CASE WHEN typeof(%s) IN ('integer', 'real') THEN %s >= %s ELSE %s >= '%s' END)",
+			q, q, secs, q, early.Format("2006-01-02"))
+	}
+	if col.Kind == connectors.KindNumeric {
+		return fmt.Sprintf("%s >= %s", q, secs)
+	}
+	return fmt.Sprintf("%s >= '%s'::timestamptz", q, early.Format(time.RFC3339))
+}
+
+func andWhere(a, b string) string {
+	switch {
+	case a == "":
+		return b
+	case b == "":
+		return a
+	}
+	return "(" + a + ") AND " + b
+}
+
+// addBuckets moves t by n buckets in loc (calendar arithmetic for days,
+// weeks and months).
+func addBuckets(t time.Time, unit string, n int, loc *time.Location) time.Time {
+	t = t.In(loc)
+	switch unit {
+	case "hour":
+		return t.Add(time.Duration(n) * time.Hour)
+	case "day":
+		return t.AddDate(0, 0, n)
+	case "week":
+		return t.AddDate(0, 0, 7*n)
+	case "month":
+		return t.AddDate(0, n, 0)
+	}
+	panic("agent: unknown bucket " + unit)
+}
+
+// floorBucket returns the start of the bucket holding t.
+func floorBucket(t time.Time, unit string, loc *time.Location) time.Time {
+	b := connectors.NewBucketer(unit, loc)
+	return time.UnixMicro(b.Start(t.UnixMicro())).UTC()
+}
+
+// windowStart returns the earliest bucket start inside the window ending
+// at end.
+func windowStart(end time.Time, w *config.Watch) time.Time {
+	if w.Window.Buckets > 0 {
+		return addBuckets(end, w.Bucket, -w.Window.Buckets, w.Location).UTC()
+	}
+	return end.Add(-w.Window.Duration).UTC()
+}
+
+// rescanFrom returns the first bucket a run rescans, given the newest
+// stored bucket.
+func rescanFrom(last time.Time, w *config.Watch) time.Time {
+	if w.Lookback.Buckets > 0 {
+		return addBuckets(last, w.Bucket, -(w.Lookback.Buckets - 1), w.Location).UTC()
+	}
+	end := addBuckets(last, w.Bucket, 1, w.Location)
+	return floorBucket(end.Add(-w.Lookback.Duration), w.Bucket, w.Location)
+}
+
+// acc is a decoded bucket.
+type acc struct {
+	m *stream.Moments
+	q *stream.QR
+}
+
+func decodeBucket(b Bucket) (acc, error) {
+	m, err := stream.UnmarshalMoments(b.Moments)
+	if err != nil {
+		return acc{}, fmt.Errorf("bucket %s segment %q: %w", b.Start.Format(time.RFC3339), b.Segment, err)
+	}
+	a := acc{m: m}
+	if len(b.QR) > 0 {
+		if a.q, err = stream.UnmarshalQR(b.QR); err != nil {
+			return acc{}, fmt.Errorf("bucket %s segment %q: %w", b.Start.Format(time.RFC3339), b.Segment, err)
+		}
+	}
+	return a, nil
+}
+
+func encodeGroup(watch string, g connectors.Group, cols []string) (Bucket, error) {
+	mb, err := g.Moments.MarshalBinary()
+	if err != nil {
+		return Bucket{}, err
+	}
+	b := Bucket{Watch: watch, Segment: g.Key.Segment, Start: g.Key.Bucket.UTC(), Columns: cols, Rows: g.Moments.N(), Moments: mb}
+	if g.QR != nil {
+		if b.QR, err = g.QR.MarshalBinary(); err != nil {
+			return Bucket{}, err
+		}
+	}
+	return b, nil
+}
+
+// merge folds accumulators into one (nil when there are none).
+func merge(cols []string, parts []acc) acc {
+	if len(parts) == 0 {
+		return acc{}
+	}
+	out := acc{m: stream.NewMoments(cols)}
+	withQR := true
+	for _, p := range parts {
+		if p.q == nil {
+			withQR = false
+		}
+	}
+	if withQR {
+		out.q = stream.NewQR(cols)
+	}
+	for _, p := range parts {
+		out.m.Merge(p.m)
+		if withQR {
+			out.q.Merge(p.q)
+		}
+	}
+	return out
+}
+
+// analyze runs the diagnostics on one accumulator with the watch's
+// precision: fast uses the cross-products only, exact the QR factor, and
+// auto the QR factor when the cross-products cannot be trusted.
+func analyze(w *config.Watch, regressors []string, a acc) (*diagnostics.Report, error) {
+	opt := diagnostics.Options{
+		Target: w.Target, Columns: regressors, Groups: w.Groups,
+		VIFLimit: w.Limits.VIF.Critical, CondLimit: w.Limits.Condition.Critical,
+	}
+	switch {
+	case w.Precision == "exact" && a.q != nil:
+		return diagnostics.Analyze(a.m, a.q, opt)
+	case w.Precision == "fast" || a.q == nil:
+		return diagnostics.Analyze(a.m, nil, opt)
+	}
+	rep, err := diagnostics.Analyze(a.m, nil, opt)
+	if err != nil || rep.Trust.Trustworthy {
+		return rep, err
+	}
+	return diagnostics.Analyze(a.m, a.q, opt)
+}
