@@ -3,6 +3,7 @@ package postgres
 import (
 	"context"
 	"fmt"
+	"strings"
 
 	"github.com/jackc/pgx/v5"
 
@@ -168,11 +169,24 @@ func (s *Source) describeQuery(ctx context.Context, tx pgx.Tx, query string) (*t
 	if err != nil {
 		return nil, s.wrap(err, "query")
 	}
-	if len(sd.Fields) == 0 {
+	writes := len(sd.Fields) == 0
+	if !writes {
+		// A statement that modifies tables (INSERT … RETURNING, a
+		// data-modifying WITH) plans a ModifyTable node; planning runs
+		// nothing.
+		var plan string
+		if err := tx.QueryRow(ctx, "EXPLAIN (FORMAT JSON, COSTS OFF) "+q).Scan(&plan); err != nil {
+			return nil, s.wrap(err, "query")
+		}
+		writes = strings.Contains(plan, `"Node Type": "ModifyTable"`)
+	}
+	if writes {
+		// Run it as given: the read-only transaction makes PostgreSQL
+		// refuse it when the executor starts, before any row is touched.
 		if _, err := tx.Exec(ctx, q); err != nil {
 			return nil, s.wrap(err, "query")
 		}
-		return nil, fmt.Errorf("postgres %s: query returns no columns; give a SELECT: %w", s.name, connectors.ErrUnsupported)
+		return nil, fmt.Errorf("postgres %s: query returns no rows to read; give a SELECT: %w", s.name, connectors.ErrUnsupported)
 	}
 	oids := make([]uint32, len(sd.Fields))
 	for i, f := range sd.Fields {

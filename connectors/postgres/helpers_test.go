@@ -52,6 +52,8 @@ func exec(t testing.TB, url string, sql ...string) {
 	}
 }
 
+func pgtestStart(t testing.TB) string { return pgtest.Start(t) }
+
 func openPG(t testing.TB, url string, opts connectors.Options) *Source {
 	t.Helper()
 	src, err := Open(context.Background(), url, opts)

@@ -183,6 +183,8 @@ func (s *Source) wrap(err error, what string) error {
 		case "42703":
 			hint = "no such column"
 		}
+	case what == "cannot connect":
+		hint = "the server cannot be reached (is it running, and are host and port right?)"
 	case errors.Is(err, context.DeadlineExceeded), errors.Is(err, context.Canceled):
 		hint = "cancelled before the scan finished; no result was kept"
 	case errors.Is(err, io.ErrUnexpectedEOF), errors.Is(err, io.EOF), errors.As(err, &ne), strings.Contains(err.Error(), "conn closed"):

@@ -162,16 +162,47 @@ func (s *Server) Stop() {
 	os.RemoveAll(s.Dir)
 }
 
-// Kill ends the server at once with SIGKILL, as a crash would; its
-// directory is removed in cleanup.
+// Kill ends the server and its backends at once with SIGKILL, as a crash
+// would; its directory is removed in cleanup.
 func (s *Server) Kill() {
 	s.mu.Lock()
 	s.gone = true
 	s.mu.Unlock()
-	// The postmaster's children notice its death and exit; kill the whole
-	// process group so that no backend keeps serving a connection.
-	syscall.Kill(-s.cmd.Process.Pid, syscall.SIGKILL)
+	// Backends leave the postmaster's process group (setsid) and may go on
+	// streaming a result after it dies: kill its children too.
+	pid := s.cmd.Process.Pid
+	children := childrenOf(pid)
+	syscall.Kill(pid, syscall.SIGKILL)
+	for _, c := range children {
+		syscall.Kill(c, syscall.SIGKILL)
+	}
 	<-s.done
+}
+
+// childrenOf lists the processes whose parent is pid (from /proc).
+func childrenOf(pid int) []int {
+	var out []int
+	entries, _ := os.ReadDir("/proc")
+	for _, e := range entries {
+		c, err := strconv.Atoi(e.Name())
+		if err != nil {
+			continue
+		}
+		stat, err := os.ReadFile("/proc/" + e.Name() + "/stat")
+		if err != nil {
+			continue
+		}
+		// pid (comm) state ppid …; comm may hold spaces and parentheses.
+		rest := string(stat)
+		if i := strings.LastIndexByte(rest, ')'); i >= 0 {
+			rest = rest[i+1:]
+		}
+		f := strings.Fields(rest)
+		if len(f) > 1 && f[1] == strconv.Itoa(pid) {
+			out = append(out, c)
+		}
+	}
+	return out
 }
 
 // Binaries returns the newest server bin directory found, and its version.
