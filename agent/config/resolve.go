@@ -103,3 +103,26 @@ func (c *Config) SourceURL(name string) string {
 	}
 	return c.Sources[name]
 }
+
+// ResolveStore expands ${VAR} references in the store URL only, for
+// commands that read the store and nothing else.
+func (c *Config) ResolveStore(r Resolver) error {
+	env := r.Env
+	if env == nil {
+		env = os.LookupEnv
+	}
+	var missing []string
+	u := reEnvRef.ReplaceAllStringFunc(c.Store, func(ref string) string {
+		name := reEnvRef.FindStringSubmatch(ref)[1]
+		v, ok := env(name)
+		if !ok {
+			missing = append(missing, fmt.Sprintf("store: environment variable %s is not set", name))
+		}
+		return v
+	})
+	if len(missing) > 0 {
+		return &Error{Problems: missing}
+	}
+	c.resolvedStore = Secret(u)
+	return nil
+}

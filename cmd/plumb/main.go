@@ -103,5 +103,12 @@ defer to the model's governance.`,
 		return usageError{err}
 	})
 	root.AddCommand(newScanCmd())
+	root.AddCommand(newConfigCmd())
+	root.AddCommand(newMigrateCmd())
+	root.AddCommand(newCheckCmd())
+	root.AddCommand(newHistoryCmd())
+	root.AddCommand(newAlertsCmd())
+	root.AddCommand(newBackfillCmd())
+	root.AddCommand(newAgentCmd())
 	return root
 }

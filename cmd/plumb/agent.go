@@ -1,0 +1,145 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"os"
+	"time"
+
+	"github.com/spf13/cobra"
+
+	"plumb/agent"
+	"plumb/agent/config"
+	"plumb/agent/notify"
+	"plumb/agent/sqlstore"
+)
+
+// Shared by the agent's commands: opening the store, building notifiers,
+// the runner and the deliverer from the configuration.
+
+// openStore opens the configured state store, migrating it when migrate
+// is set.
+func openStore(ctx context.Context, c *config.Config, migrate bool, log *slog.Logger) (*sqlstore.Store, error) {
+	return sqlstore.Open(ctx, c.StoreURL(), sqlstore.Options{Migrate: migrate, Logger: log})
+}
+
+// lockStore makes this process the store's writer or explains who is.
+func lockStore(ctx context.Context, s agent.Store, holder string) (func() error, error) {
+	release, err := s.Lock(ctx, holder)
+	if errors.Is(err, agent.ErrLocked) {
+		return nil, fmt.Errorf("%w (one agent per store; plumb check and backfill need it too)", err)
+	}
+	return release, err
+}
+
+// buildNotifiers turns the configured notifiers into delivery channels.
+func buildNotifiers(c *config.Config, log *slog.Logger) map[string]agent.NotifierConfig {
+	out := map[string]agent.NotifierConfig{}
+	for name, n := range c.Notifiers {
+		nc := agent.NotifierConfig{Timeout: n.Timeout.D(), MaxAge: n.MaxAge.D()}
+		switch n.Kind() {
+		case "webhook":
+			nc.Notifier = &notify.Webhook{URL: n.Webhook, Secret: []byte(n.Secret.Reveal())}
+		case "log":
+			nc.Notifier = &notify.Log{Logger: log.With("notifier", name)}
+		case "smtp":
+			s := n.SMTP
+			nc.Notifier = &notify.SMTP{Addr: s.Addr, From: s.From, To: s.To, Username: s.Username,
+				Password: s.Password.Reveal(), StartTLS: s.StartTLS == nil || *s.StartTLS}
+		}
+		out[name] = nc
+	}
+	return out
+}
+
+// newLogger returns the agent's logger: JSON or text on w.
+func newLogger(w io.Writer, format string, level slog.Level) (*slog.Logger, error) {
+	opts := &slog.HandlerOptions{Level: level}
+	switch format {
+	case "json":
+		return slog.New(slog.NewJSONHandler(w, opts)), nil
+	case "text":
+		return slog.New(slog.NewTextHandler(w, opts)), nil
+	}
+	return nil, usagef("--log-format %q: want json or text", format)
+}
+
+func newAgentCmd() *cobra.Command {
+	var (
+		path, logFormat string
+		grace           time.Duration
+		jitter          time.Duration
+		verbose         bool
+	)
+	cmd := &cobra.Command{
+		Use:   "agent [--config FILE]",
+		Short: "Run every watch on its schedule and deliver the alerts (daemon)",
+		Long: `agent migrates the state store, takes its lock (one agent per store), and runs
+each watch on its cron schedule: incremental runs that rescan the lookback and
+newer buckets, trend, jump and level rules with hysteresis, and notifications
+through the configured webhooks, log and email, retried from the outbox until
+they are acknowledged.
+
+A watch that never ran, or whose last run is older than its previous tick,
+runs at once. Runs of one watch never overlap; each starts up to --jitter after
+its tick. On SIGTERM or SIGINT no new run starts; runs in flight get --grace to
+finish and are then abandoned without writing anything.`,
+		Example: `  PLUMB_WEBHOOK_SECRET=... plumb agent --config /etc/plumb/plumb.yaml`,
+		Args:    cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, args []string) error {
+			level := slog.LevelInfo
+			if verbose {
+				level = slog.LevelDebug
+			}
+			log, err := newLogger(cmd.ErrOrStderr(), logFormat, level)
+			if err != nil {
+				return err
+			}
+			return runAgent(cmd.Context(), path, log, grace, jitter)
+		},
+	}
+	addConfigFlag(cmd, &path)
+	cmd.Flags().StringVar(&logFormat, "log-format", "json", "log format: json or text")
+	cmd.Flags().DurationVar(&grace, "grace", 30*time.Second, "time runs in flight get to finish at shutdown")
+	cmd.Flags().DurationVar(&jitter, "jitter", 10*time.Second, "most a run starts after its tick (0 for none)")
+	cmd.Flags().BoolVarP(&verbose, "verbose", "v", false, "debug logging")
+	return cmd
+}
+
+func runAgent(ctx context.Context, path string, log *slog.Logger, grace, jitter time.Duration) error {
+	c, err := loadConfig(path, true)
+	if err != nil {
+		return err
+	}
+	// Open and lock with a context of their own: a signal during start-up
+	// should still leave the store consistent.
+	st, err := openStore(context.WithoutCancel(ctx), c, true, log.With("component", "migrations"))
+	if err != nil {
+		return err
+	}
+	defer st.Close()
+	host, _ := os.Hostname()
+	release, err := lockStore(ctx, st, fmt.Sprintf("plumb agent (%s)", host))
+	if err != nil {
+		return err
+	}
+	defer release()
+	if jitter == 0 {
+		jitter = -1
+	}
+	d := &agent.Daemon{
+		Runner:    &agent.Runner{Store: st, Config: c, Logger: log.With("component", "runner")},
+		Deliverer: &agent.Deliverer{Store: st, Notifiers: buildNotifiers(c, log), Logger: log.With("component", "delivery")},
+		Watches:   c.Watches,
+		Logger:    log.With("component", "scheduler"),
+		Grace:     grace,
+		Jitter:    jitter,
+	}
+	log.Info("agent started", "watches", len(c.Watches), "pid", os.Getpid())
+	err = d.Run(ctx)
+	log.Info("agent stopped")
+	return err
+}

@@ -1,0 +1,135 @@
+package main
+
+import (
+	"encoding/json"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"strings"
+	"time"
+
+	"github.com/spf13/cobra"
+	"golang.org/x/term"
+
+	"plumb/agent"
+)
+
+// historyPoint is one entry of `plumb history --format json` (an outside
+// contract: keep the names). at is the end of the window.
+type historyPoint struct {
+	At              time.Time `json:"at"`
+	ConditionNumber *float64  `json:"condition_number"`
+	MaxVIF          *float64  `json:"max_vif"`
+	Rank            int       `json:"rank"`
+	Rows            int64     `json:"rows"`
+	MaxVIFColumn    string    `json:"max_vif_column,omitempty"`
+}
+
+func newHistoryCmd() *cobra.Command {
+	var (
+		path, format, segment string
+		limit                 int
+	)
+	cmd := &cobra.Command{
+		Use:   "history WATCH [--config FILE] [--format text|json]",
+		Short: "Show a watch's timeline of condition number, max VIF, rank and rows",
+		Long: `history prints the watch's points, oldest first: for each window end (or run
+time, without buckets) the condition number, the largest VIF and its column,
+the rank of [1 X] and the rows used. Undefined values (a singular design) are
+null in JSON. On a terminal the text form ends with sparklines.`,
+		Args: cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			if format != "text" && format != "json" {
+				return usagef("--format %q: want text or json", format)
+			}
+			return runHistory(cmd, cmd.OutOrStdout(), path, args[0], segment, limit, format)
+		},
+	}
+	addConfigFlag(cmd, &path)
+	cmd.Flags().StringVar(&format, "format", "text", "output format: text or json")
+	cmd.Flags().StringVar(&segment, "segment", "", "a segment's history instead of the whole table's")
+	cmd.Flags().IntVar(&limit, "limit", 0, "only the latest N points")
+	return cmd
+}
+
+func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment string, limit int, format string) error {
+	c, err := loadStoreConfig(path)
+	if err != nil {
+		return err
+	}
+	if c.Watch(watch) == nil {
+		return usagef("no watch %q in the configuration", watch)
+	}
+	st, err := openStore(cmd.Context(), c, false, nil)
+	if err != nil {
+		return err
+	}
+	defer st.Close()
+	ps, err := st.Points(cmd.Context(), watch, agent.PointQuery{Segment: segment, Limit: limit})
+	if err != nil {
+		return err
+	}
+	out := make([]historyPoint, 0, len(ps))
+	for _, p := range ps {
+		out = append(out, historyPoint{At: p.At.UTC(), ConditionNumber: finite(p.ConditionNumber), MaxVIF: finite(p.MaxVIF),
+			Rank: p.Rank, Rows: p.RowsUsed, MaxVIFColumn: p.MaxVIFColumn})
+	}
+	if format == "json" {
+		enc := json.NewEncoder(stdout)
+		enc.SetIndent("", "  ")
+		return enc.Encode(out)
+	}
+	if len(out) == 0 {
+		fmt.Fprintf(stdout, "watch %s has no history yet\n", watch)
+		return nil
+	}
+	fmt.Fprintf(stdout, "%-20s %8s %5s %12s %12s  %s\n", "at", "rows", "rank", "condition", "max VIF", "column")
+	show := func(v *float64) string {
+		if v == nil {
+			return "singular"
+		}
+		return fmtNum(*v)
+	}
+	for _, p := range out {
+		fmt.Fprintf(stdout, "%-20s %8d %5d %12s %12s  %s\n", p.At.Format("2006-01-02 15:04"), p.Rows, p.Rank,
+			show(p.ConditionNumber), show(p.MaxVIF), p.MaxVIFColumn)
+	}
+	if f, ok := stdout.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
+		cond := make([]*float64, len(out))
+		vif := make([]*float64, len(out))
+		for i, p := range out {
+			cond[i], vif[i] = p.ConditionNumber, p.MaxVIF
+		}
+		fmt.Fprintf(stdout, "\ncondition %s\nmax VIF   %s\n", sparkline(cond, 60), sparkline(vif, 60))
+	}
+	return nil
+}
+
+// sparkline draws the latest width values on a log scale; undefined values
+// are drawn as the top bar in a different glyph.
+func sparkline(vs []*float64, width int) string {
+	if len(vs) > width {
+		vs = vs[len(vs)-width:]
+	}
+	bars := []rune("▁▂▃▄▅▆▇█")
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for _, v := range vs {
+		if v != nil && *v > 0 {
+			lo, hi = math.Min(lo, math.Log(*v)), math.Max(hi, math.Log(*v))
+		}
+	}
+	var b strings.Builder
+	for _, v := range vs {
+		switch {
+		case v == nil:
+			b.WriteRune('!')
+		case !(*v > 0) || hi <= lo:
+			b.WriteRune(bars[0])
+		default:
+			i := int((math.Log(*v) - lo) / (hi - lo) * float64(len(bars)-1))
+			b.WriteRune(bars[i])
+		}
+	}
+	return b.String()
+}
