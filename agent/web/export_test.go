@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/xml"
+	"image/png"
 	"io"
 	"os"
 	"path/filepath"
@@ -66,6 +67,46 @@ func TestWriteTimelineSVG(t *testing.T) {
 	} {
 		if counts[k] != want {
 			t.Errorf("%s: %d, want %d", k, counts[k], want)
+		}
+	}
+}
+
+func TestWriteTimelinePNG(t *testing.T) {
+	f := buildDemoFixture(t)
+	d, err := f.view.Watch(context.Background(), "district_daily")
+	if err != nil {
+		t.Fatal(err)
+	}
+	seg := d.Segment("")
+	var buf bytes.Buffer
+	if err := WriteTimelinePNG(&buf, "district_daily · whole table", seg.Timeline, seg.Forecasts, d.Summary.Limits); err != nil {
+		t.Fatal(err)
+	}
+	if dir := os.Getenv("PLUMB_WEB_DUMP"); dir != "" {
+		os.WriteFile(filepath.Join(dir, "timeline.png"), buf.Bytes(), 0o644)
+	}
+	img, err := png.Decode(bytes.NewReader(buf.Bytes()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	// 960 × 740 points at 144 dpi: twice the SVG's size in pixels.
+	if b := img.Bounds(); b.Dx() != 1920 || b.Dy() != 1480 {
+		t.Errorf("image is %v", b)
+	}
+	// The series colours are drawn: Okabe–Ito blue (condition number) and
+	// reddish purple (max VIF), and the vermillion of the critical level.
+	seen := map[[3]uint32]bool{}
+	bnd := img.Bounds()
+	for y := bnd.Min.Y; y < bnd.Max.Y; y++ {
+		for x := bnd.Min.X; x < bnd.Max.X; x++ {
+			r, g, b, _ := img.At(x, y).RGBA()
+			seen[[3]uint32{r >> 8, g >> 8, b >> 8}] = true
+		}
+	}
+	for name, hex := range map[string]string{"blue": colBlue, "purple": colPurple, "vermillion": colVermillion} {
+		c := parseHex(hex)
+		if !seen[[3]uint32{uint32(c[0]), uint32(c[1]), uint32(c[2])}] {
+			t.Errorf("no pixel of %s %s in the image", name, hex)
 		}
 	}
 }
