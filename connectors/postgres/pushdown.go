@@ -250,12 +250,14 @@ func (pd *push) from() string {
 	return "(" + pd.inner + ") AS r"
 }
 
-// ok is the condition for a complete row: every value finite (x − x is 0
-// only for finite x; NULL, NaN and ±Inf fail) and a usable weight.
+// ok is the condition for a complete row: every value finite (NULL fails
+// both comparisons, and PostgreSQL sorts NaN above +Inf) and a usable
+// weight. Range comparisons, unlike x − x = 0, leave the planner a sound
+// row estimate, so it keeps the parallel partial aggregation.
 func (pd *push) ok() string {
 	var c []string
 	for j := 0; j < pd.p; j++ {
-		c = append(c, fmt.Sprintf("x%d - x%d = 0", j, j))
+		c = append(c, fmt.Sprintf("x%d > '-Infinity'::float8 AND x%d < 'Infinity'::float8", j, j))
 	}
 	if pd.plan.Weight != nil {
 		c = append(c, pd.wok())
