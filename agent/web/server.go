@@ -2,8 +2,6 @@ package web
 
 import (
 	"context"
-	"crypto/sha256"
-	"crypto/subtle"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -169,28 +167,10 @@ func (s *Server) routes(metrics http.Handler) http.Handler {
 	mux.HandleFunc("GET /api/watches/{name}/report", s.apiReport)
 	mux.HandleFunc("GET /api/alerts", s.apiAlerts)
 	var h http.Handler = mux
-	h = securityHeaders(h)
 	if s.opt.Token != "" {
-		h = requireToken(s.opt.Token, h)
+		h = newAuth(s.opt.Token).wrap(h)
 	}
-	return h
-}
-
-// requireToken answers 401 to every request without the bearer token.
-// Both sides are hashed first so the comparison takes the same time
-// whatever the token's length.
-func requireToken(token string, next http.Handler) http.Handler {
-	want := sha256.Sum256([]byte(token))
-	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
-		got, ok := bearer(r.Header.Get("Authorization"))
-		sum := sha256.Sum256([]byte(got))
-		if subtle.ConstantTimeCompare(sum[:], want[:]) != 1 || !ok {
-			w.Header().Set("WWW-Authenticate", `Bearer realm="plumb"`)
-			http.Error(w, "401 unauthorized: send the token as \"Authorization: Bearer TOKEN\"", http.StatusUnauthorized)
-			return
-		}
-		next.ServeHTTP(w, r)
-	})
+	return securityHeaders(h)
 }
 
 func bearer(h string) (string, bool) {

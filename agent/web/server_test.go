@@ -152,6 +152,69 @@ func TestTokenRequired(t *testing.T) {
 	}
 }
 
+func TestBrowserLogin(t *testing.T) {
+	const token = "c0rrect-horse"
+	s, err := New(Options{View: &Memory{}, Listen: "0.0.0.0:0", Token: token})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ts := httptest.NewServer(s.Handler())
+	defer ts.Close()
+	noRedirect := &http.Client{CheckRedirect: func(*http.Request, []*http.Request) error { return http.ErrUseLastResponse }}
+	do := func(req *http.Request) (*http.Response, string) {
+		t.Helper()
+		resp, err := noRedirect.Do(req)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer resp.Body.Close()
+		b, _ := io.ReadAll(resp.Body)
+		return resp, string(b)
+	}
+	// A browser asking for a page gets 401 with a form that posts the token.
+	req, _ := http.NewRequest("GET", ts.URL+"/watches/x?segment=a", nil)
+	req.Header.Set("Accept", "text/html,application/xhtml+xml")
+	resp, body := do(req)
+	if resp.StatusCode != 401 || !strings.Contains(body, `action="/login"`) || !strings.Contains(body, `value="/watches/x?segment=a"`) {
+		t.Errorf("browser without a session: %d\n%s", resp.StatusCode, body)
+	}
+	if resp.Header.Get("Content-Security-Policy") == "" {
+		t.Errorf("the login page lacks the security headers")
+	}
+	post := func(form string) (*http.Response, string) {
+		req, _ := http.NewRequest("POST", ts.URL+"/login", strings.NewReader(form))
+		req.Header.Set("Content-Type", "application/x-www-form-urlencoded")
+		return do(req)
+	}
+	if resp, body := post("token=wrong&next=/"); resp.StatusCode != 401 || !strings.Contains(body, "not the token") || len(resp.Cookies()) != 0 {
+		t.Errorf("wrong token: %d, cookies %v", resp.StatusCode, resp.Cookies())
+	}
+	resp, _ = post("token=" + token + "&next=//evil.example/")
+	if resp.StatusCode != http.StatusSeeOther || resp.Header.Get("Location") != "/" {
+		t.Errorf("login with an off-site next: %d → %q, want 303 → /", resp.StatusCode, resp.Header.Get("Location"))
+	}
+	cookies := resp.Cookies()
+	if len(cookies) != 1 || !cookies[0].HttpOnly || cookies[0].SameSite != http.SameSiteStrictMode || strings.Contains(cookies[0].Value, token) {
+		t.Fatalf("session cookie: %+v", cookies)
+	}
+	for _, p := range []string{"/", "/metrics", "/api/watches"} {
+		req, _ := http.NewRequest("GET", ts.URL+p, nil)
+		req.AddCookie(cookies[0])
+		if resp, _ := do(req); resp.StatusCode != 200 {
+			t.Errorf("GET %s with the session: %d", p, resp.StatusCode)
+		}
+		req, _ = http.NewRequest("GET", ts.URL+p, nil)
+		req.AddCookie(&http.Cookie{Name: cookies[0].Name, Value: cookies[0].Value[:len(cookies[0].Value)-1] + "x"})
+		if resp, _ := do(req); resp.StatusCode != 401 {
+			t.Errorf("GET %s with a forged session: %d", p, resp.StatusCode)
+		}
+	}
+	resp, _ = post("token=" + token + "&next=/watches/x")
+	if resp.Header.Get("Location") != "/watches/x" {
+		t.Errorf("login returns to %q", resp.Header.Get("Location"))
+	}
+}
+
 func TestServerRun(t *testing.T) {
 	s, err := New(Options{View: &Memory{}, Listen: "127.0.0.1:0"})
 	if err != nil {
