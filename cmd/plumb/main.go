@@ -13,6 +13,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	_ "plumb/connectors/postgres"
 	_ "plumb/connectors/sqlite"
 )
 
