@@ -3,8 +3,11 @@
 // Prometheus /metrics endpoint.
 //
 // Everything it shows comes through View, a small read-only interface
-// over what the agent knows (its state store). The package never computes
-// diagnostics, trends or alerts itself: it lays them out.
+// over what the agent knows (its state store; agent/web/storeview adapts
+// it). The package computes no diagnostics or alerts itself: it lays out
+// what the View gives. TrendForecast is a helper for Views whose store
+// keeps no forecast; WriteTimelineSVG and WriteTimelinePNG draw the
+// timeline charts into files.
 package web
 
 import (
