@@ -4,8 +4,11 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"reflect"
 	"sort"
 	"strings"
+
+	"gonum.org/v1/gonum/mat"
 
 	"plumb/stream"
 )
@@ -19,17 +22,50 @@ var (
 	ErrBadOptions    = errors.New("bad options")
 )
 
+// Factor is what Analyze needs of a QR accumulator: the upper triangular
+// factor R of the design [1 X−c] over its columns (column 0 the intercept,
+// column j+1 data column j shifted by Origin(j)), the column names and the
+// number of rows. *stream.QR implements it.
+type Factor interface {
+	R(dst *mat.TriDense) *mat.TriDense
+	Origin(j int) float64
+	Names() []string
+	N() int64
+}
+
+// PreciseFactor is a Factor that may keep R in double-double: when
+// Extended reports true, R(i,j) + RLo(i,j) is the double-double entry, and
+// Analyze takes the precise path (PathQRPrecise): the re-factoring of the
+// chosen columns, the VIFs and the regression run in double-double.
+// *stream.QR implements it; NewQRExtended makes an extended one.
+type PreciseFactor interface {
+	Factor
+	Extended() bool
+	RLo(dst *mat.TriDense) *mat.TriDense
+}
+
+var _ PreciseFactor = (*stream.QR)(nil)
+
 // Analyze computes the diagnostics for the chosen columns. m must not be
-// nil. q may be nil (cross-product path only); when it is not, it must have
-// been built over the same columns, in the same order, from the same rows
-// as m, and the QR path is used. Analyze returns an error for bad data or
-// options (an unknown column, no rows, fewer usable rows than columns + 1)
-// naming the column; it panics only when m is nil or q does not match m.
-func Analyze(m *stream.Moments, q *stream.QR, opt Options) (*Report, error) {
+// nil. q may be nil, also a nil *stream.QR (cross-product path only); when
+// it is not, it must have been built over the same columns, in the same
+// order, from the same rows as m, and the QR path is used — the precise QR
+// path when q is an extended factor (see PreciseFactor). Analyze returns an
+// error for bad data or options (an unknown column, no rows, fewer usable
+// rows than columns + 1) naming the column; it panics only when m is nil or
+// q does not match m.
+//
+// Report.Trust says whether the path's results can be trusted; a caller
+// escalates cross-product → QR → precise QR until it is trustworthy (or,
+// when it needs more digits than RequiredDigits, until
+// Trust.ExpectedDigits reaches what it needs).
+func Analyze(m *stream.Moments, q Factor, opt Options) (*Report, error) {
 	if m == nil {
 		panic("diagnostics: Analyze with a nil Moments")
 	}
-	if q != nil {
+	if isNil(q) {
+		q = nil
+	} else {
 		checkSame(m, q)
 	}
 	opt = withDefaults(opt)
@@ -50,7 +86,21 @@ func Analyze(m *stream.Moments, q *stream.QR, opt Options) (*Report, error) {
 	return analyzeDesign(d, m, opt)
 }
 
-func checkSame(m *stream.Moments, q *stream.QR) {
+// isNil reports whether q is nil or holds a nil pointer (a nil *stream.QR
+// passed as a Factor is not a nil interface).
+func isNil(q Factor) bool {
+	if q == nil {
+		return true
+	}
+	v := reflect.ValueOf(q)
+	switch v.Kind() {
+	case reflect.Pointer, reflect.Interface, reflect.Map, reflect.Slice, reflect.Func, reflect.Chan:
+		return v.IsNil()
+	}
+	return false
+}
+
+func checkSame(m *stream.Moments, q Factor) {
 	mn, qn := m.Names(), q.Names()
 	if len(mn) != len(qn) {
 		panic(fmt.Sprintf("diagnostics: Moments has %d columns, QR %d", len(mn), len(qn)))
@@ -210,7 +260,7 @@ func analyzeDesign(d *design, m *stream.Moments, opt Options) (*Report, error) {
 	for j := range regs {
 		regs[j] = j
 	}
-	col := analyzeSet(d, regs)
+	col := analyzeCols(d, regs, d.flo.d != nil)
 	if !col.svdOK {
 		rep.Notes = append(rep.Notes, "the singular value decomposition of the scaled design did not converge; rank and dependencies assume full rank")
 	}

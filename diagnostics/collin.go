@@ -53,14 +53,20 @@ type collin struct {
 // rankTol returns the relative singular-value tolerance for nv columns.
 func (d *design) rankTol(nv int) float64 {
 	n := float64(max(nv, 1))
-	if d.path == PathQR {
+	if d.path != PathCrossProduct {
+		// Both QR paths decide the rank on the float64 factor.
 		return qrRankTol * n
 	}
 	return math.Sqrt(cpRankTol * n)
 }
 
-// analyzeSet runs the collinearity core on the regressors cols.
-func analyzeSet(d *design, cols []int) *collin {
+// analyzeSet runs the collinearity core on the regressors cols, in
+// float64 (the what-if searches run it many times).
+func analyzeSet(d *design, cols []int) *collin { return analyzeCols(d, cols, false) }
+
+// analyzeCols is analyzeSet; with precise (the design must have low parts)
+// the VIFs and the inverse behind them are computed in double-double.
+func analyzeCols(d *design, cols []int, precise bool) *collin {
 	c := &collin{d: d, cols: cols, inv: map[int]bool{}, isDep: map[int]bool{}, pos: map[int]int{}, vif: map[int]float64{}}
 	for _, j := range cols {
 		if !d.constant[j] && !d.nearConst[j] {
@@ -99,6 +105,22 @@ func analyzeSet(d *design, cols []int) *collin {
 	for a, j := range c.indep {
 		spos[a] = c.vpos(j)
 		c.pos[j] = a
+	}
+	if precise {
+		// Precise path: the same in double-double from f + flo, so that
+		// the VIFs are not limited by the rounding of f (about eps·κ).
+		isc := make([]float64, len(c.indep))
+		for a := range c.indep {
+			isc[a] = sc[spos[a]]
+		}
+		ti := ddTriInv(ddQR(ddFrom(d.f, d.flo, c.indep, isc)))
+		c.tinv = ti.hiPart()
+		for a, j := range c.indep {
+			if !c.inv[j] {
+				c.vif[j] = ti.rowNorm2(a).hi
+			}
+		}
+		return c
 	}
 	t := qrR(c.s.cols(spos, nil))
 	c.tinv = triInv(t)

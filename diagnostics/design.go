@@ -31,6 +31,14 @@ type design struct {
 	f    dense     // r×(k+hasY)
 	row0 []float64 // first row of the uncentered factor, √W·x̄ (as computed by the path)
 
+	// On the precise path, the low parts of f, row0 and mean (the
+	// double-double values are f + flo and so on); flo.d is nil on the
+	// other paths. Every diagnostic uses the float64 parts; the
+	// regression and the VIFs also use the low parts.
+	flo    dense
+	row0lo []float64
+	meanLo []float64
+
 	constant  []bool
 	nearConst []bool
 	// cpFallback records that the cross-product factor needed the
@@ -60,6 +68,9 @@ func (d *design) finish() {
 			d.constant[j] = true
 			for i := 0; i < d.f.r; i++ {
 				d.f.set(i, j, 0)
+				if d.flo.d != nil {
+					d.flo.set(i, j, 0)
+				}
 			}
 			continue
 		}
@@ -105,10 +116,12 @@ func newDesign(m *stream.Moments, idx []int, names []string, k int, hasY bool) *
 // designFromQR builds the design from the QR accumulator: the columns of
 // its R factor for the intercept and the chosen columns are re-factored (an
 // orthogonal reduction, so nothing is squared), which gives the R factor of
-// [1 X−c y−c] for exactly those columns.
-func designFromQR(m *stream.Moments, q *stream.QR, idx []int, names []string, k int, hasY bool) *design {
+// [1 X−c y−c] for exactly those columns. With low parts (an extended
+// factor) the re-factoring runs in double-double and the design keeps them:
+// the precise path.
+func designFromQR(m *stream.Moments, q Factor, idx []int, names []string, k int, hasY bool) *design {
 	full := q.R(nil)
-	P := q.P()
+	P := len(q.Names())
 	r := newDense(P+1, P+1)
 	for i := 0; i <= P; i++ {
 		for j := i; j <= P; j++ {
@@ -119,7 +132,49 @@ func designFromQR(m *stream.Moments, q *stream.QR, idx []int, names []string, k 
 	for j := range origin {
 		origin[j] = q.Origin(j)
 	}
+	if pf, ok := q.(PreciseFactor); ok && pf.Extended() {
+		lo := pf.RLo(nil)
+		rl := newDense(P+1, P+1)
+		for i := 0; i <= P; i++ {
+			for j := i; j <= P; j++ {
+				rl.set(i, j, lo.At(i, j))
+			}
+		}
+		return designFromRParts(m, r, rl, origin, idx, names, k, hasY)
+	}
 	return designFromR(m, r, origin, idx, names, k, hasY)
+}
+
+// designFromRParts is designFromR in double-double, from the high and low
+// parts of the factor: the design of the precise path.
+func designFromRParts(m *stream.Moments, hi, lo dense, origin []float64, idx []int, names []string, k int, hasY bool) *design {
+	d := newDesign(m, idx, names, k, hasY)
+	d.path = PathQRPrecise
+	sel := make([]int, len(idx)+1)
+	for b, j := range idx {
+		sel[b+1] = j + 1
+	}
+	r := ddQR(ddFrom(hi, lo, sel, nil))
+	sw := r.at(0, 0)
+	p := len(idx)
+	t := newDDMat(p, p)
+	for i := 0; i < p; i++ {
+		for j := i; j < p; j++ {
+			t.set(i, j, r.at(i+1, j+1))
+		}
+	}
+	d.f, d.flo = t.hiPart(), t.loPart()
+	d.meanLo = make([]float64, p)
+	d.row0lo = make([]float64, p)
+	for b, j := range idx {
+		c := ddf{origin[j], 0}
+		mean := c.add(r.at(0, b+1).div(sw))
+		row0 := r.at(0, b+1).add(c.mul(sw))
+		d.mean[b], d.meanLo[b] = mean.hi, mean.lo
+		d.row0[b], d.row0lo[b] = row0.hi, row0.lo
+	}
+	d.finish()
+	return d
 }
 
 // designFromR builds the design from the (P+1)×(P+1) upper triangular

@@ -14,7 +14,10 @@ const (
 
 // regression fits the target on the estimable regressors by back
 // substitution in the R factor of [X y] (centered, or uncentered without
-// an intercept), never forming XᵀX.
+// an intercept), never forming XᵀX. On the precise path the factor, the
+// back substitution, σ, the inverse for the standard errors and the
+// intercept are all formed in double-double from the design's low parts,
+// and rounded to float64 once at the end.
 func (rep *Report) regression(d *design, c *collin, opt Options) {
 	y := d.k
 	tname := d.names[y]
@@ -35,20 +38,38 @@ func (rep *Report) regression(d *design, c *collin, opt Options) {
 	}
 	p := len(fit)
 	cols := append(append([]int(nil), fit...), y)
+	precise := d.flo.d != nil
 	var t dense
+	var tdd ddMat     // precise path: t in double-double
 	var sst []float64 // per fit column: the sum of squares the variance divides by
 	var syy float64
 	if opt.NoIntercept {
 		// The uncentered factor [[√W, √W·x̄ᵀ], [0, f]] without its first
 		// column, re-factored: the R factor of [X y].
 		g := newDense(d.f.r+1, len(cols))
+		gl := newDense(d.f.r+1, len(cols))
 		for a, j := range cols {
 			g.set(0, a, d.row0[j])
+			if precise {
+				gl.set(0, a, d.row0lo[j])
+			}
 			for i := 0; i < d.f.r; i++ {
 				g.set(i+1, a, d.f.at(i, j))
+				if precise {
+					gl.set(i+1, a, d.flo.at(i, j))
+				}
 			}
 		}
-		t = qrR(g)
+		if precise {
+			all := make([]int, len(cols))
+			for a := range all {
+				all[a] = a
+			}
+			tdd = ddQR(ddFrom(g, gl, all, nil))
+			t = tdd.hiPart()
+		} else {
+			t = qrR(g)
+		}
 		for a := range cols {
 			nrm := g.colNorm(a)
 			if a < p {
@@ -62,12 +83,60 @@ func (rep *Report) regression(d *design, c *collin, opt Options) {
 			}
 		}
 	} else {
-		t = qrR(d.f.cols(cols, nil))
+		if precise {
+			tdd = ddQR(ddFrom(d.f, d.flo, cols, nil))
+			t = tdd.hiPart()
+		} else {
+			t = qrR(d.f.cols(cols, nil))
+		}
 		for _, j := range fit {
 			sst = append(sst, d.sst[j])
 		}
 		syy = d.sst[y]
 	}
+	df := int(d.n) - p
+	if !opt.NoIntercept {
+		df--
+	}
+	var o ols
+	if precise {
+		o = olsDD(d, tdd, fit, df, !opt.NoIntercept)
+	} else {
+		o = olsFloat(d, t, fit, df, !opt.NoIntercept)
+	}
+	reg.DF = df
+	reg.Sigma2 = o.sigma2
+	reg.Sigma = o.sigma
+	reg.R2 = 1 - o.ssr/syy
+	if !opt.NoIntercept {
+		reg.Coefficients = append(reg.Coefficients, Coefficient{Name: InterceptName, Estimate: o.b0, StdError: o.se0, T: tstat(o.b0, o.se0)})
+	}
+	varY := d.sd(y) * d.sd(y)
+	for a, j := range fit {
+		se := o.se[a]
+		reg.Coefficients = append(reg.Coefficients, Coefficient{Name: d.names[j], Estimate: o.b[a], StdError: se, T: tstat(o.b[a], se)})
+		reg.Attribution = append(reg.Attribution, splitVariance(d, c, j, reg.Sigma2, sst[a], o.inv[a], varY, opt))
+	}
+	rep.Regression = reg
+	rep.regressionErrors(d, fit, o.b, o.tinv, sst, syy, o.ssr, opt)
+}
+
+// ols is a least-squares fit from the R factor t of [X y]: the
+// coefficients b of the fit columns, the residual sum of squares, σ², σ,
+// the inverse of the regressors' factor, ((XᵀX)⁻¹)_jj and the standard
+// errors, and with an intercept b₀ and its standard error.
+type ols struct {
+	b             []float64
+	ssr           float64
+	sigma2, sigma float64
+	tinv          dense
+	inv, se       []float64
+	b0, se0       float64
+}
+
+// olsFloat fits in float64.
+func olsFloat(d *design, t dense, fit []int, df int, intercept bool) ols {
+	p := len(fit)
 	tx := newDense(p, p)
 	rhs := make([]float64, p)
 	for i := 0; i < p; i++ {
@@ -76,44 +145,78 @@ func (rep *Report) regression(d *design, c *collin, opt Options) {
 			tx.set(i, j, t.at(i, j))
 		}
 	}
-	b := backSolve(tx, rhs)
-	ssr := t.at(p, p) * t.at(p, p)
-	df := int(d.n) - p
-	if !opt.NoIntercept {
-		df--
+	o := ols{b: backSolve(tx, rhs), tinv: triInv(tx), inv: make([]float64, p), se: make([]float64, p)}
+	o.ssr = t.at(p, p) * t.at(p, p)
+	o.sigma2 = o.ssr / float64(df)
+	o.sigma = math.Sqrt(o.sigma2)
+	for a := range fit {
+		o.inv[a] = o.tinv.rowNorm2(a)
+		o.se[a] = o.sigma * math.Sqrt(o.inv[a])
 	}
-	reg.DF = df
-	reg.Sigma2 = ssr / float64(df)
-	reg.Sigma = math.Sqrt(reg.Sigma2)
-	reg.R2 = 1 - ssr/syy
-	tinv := triInv(tx)
-	if !opt.NoIntercept {
+	if intercept {
 		// b₀ = ȳ − Σ b_j x̄_j; Var(b₀) = σ²(1/W + ‖T⁻ᵀx̄‖²), a sum of
 		// positive terms.
-		b0 := d.mean[y]
+		y := d.k
+		o.b0 = d.mean[y]
 		z := make([]float64, p)
 		for a, j := range fit {
-			b0 -= b[a] * d.mean[j]
+			o.b0 -= o.b[a] * d.mean[j]
 			for i := a; i < p; i++ {
-				z[i] += tinv.at(a, i) * d.mean[j] // (T⁻ᵀx̄)_i
+				z[i] += o.tinv.at(a, i) * d.mean[j] // (T⁻ᵀx̄)_i
 			}
 		}
 		v0 := 1 / d.w
 		for _, zi := range z {
 			v0 += zi * zi
 		}
-		se := reg.Sigma * math.Sqrt(v0)
-		reg.Coefficients = append(reg.Coefficients, Coefficient{Name: InterceptName, Estimate: b0, StdError: se, T: tstat(b0, se)})
+		o.se0 = o.sigma * math.Sqrt(v0)
 	}
-	varY := d.sd(y) * d.sd(y)
-	for a, j := range fit {
+	return o
+}
+
+// olsDD is olsFloat in double-double, with the design's means taken with
+// their low parts; the results are rounded to float64 at the end.
+func olsDD(d *design, t ddMat, fit []int, df int, intercept bool) ols {
+	p := len(fit)
+	tx := newDDMat(p, p)
+	rhs := make([]ddf, p)
+	for i := 0; i < p; i++ {
+		rhs[i] = t.at(i, p)
+		for j := i; j < p; j++ {
+			tx.set(i, j, t.at(i, j))
+		}
+	}
+	b := ddBackSolve(tx, rhs)
+	tinv := ddTriInv(tx)
+	ssr := t.at(p, p).mul(t.at(p, p))
+	sigma2 := ssr.div(ddf{float64(df), 0})
+	sigma := sigma2.sqrt()
+	o := ols{b: make([]float64, p), tinv: tinv.hiPart(), inv: make([]float64, p), se: make([]float64, p),
+		ssr: ssr.hi, sigma2: sigma2.hi, sigma: sigma.hi}
+	for a := range fit {
+		o.b[a] = b[a].hi
 		inv := tinv.rowNorm2(a)
-		se := reg.Sigma * math.Sqrt(inv)
-		reg.Coefficients = append(reg.Coefficients, Coefficient{Name: d.names[j], Estimate: b[a], StdError: se, T: tstat(b[a], se)})
-		reg.Attribution = append(reg.Attribution, splitVariance(d, c, j, reg.Sigma2, sst[a], inv, varY, opt))
+		o.inv[a] = inv.hi
+		o.se[a] = sigma.mul(inv.sqrt()).hi
 	}
-	rep.Regression = reg
-	rep.regressionErrors(d, fit, b, tinv, sst, syy, ssr, opt)
+	if intercept {
+		mean := func(j int) ddf { return ddf{d.mean[j], d.meanLo[j]} }
+		b0 := mean(d.k)
+		z := make([]ddf, p)
+		for a, j := range fit {
+			b0 = b0.sub(b[a].mul(mean(j)))
+			for i := a; i < p; i++ {
+				z[i] = z[i].add(tinv.at(a, i).mul(mean(j)))
+			}
+		}
+		v0 := ddf{1, 0}.div(ddf{d.w, 0})
+		for _, zi := range z {
+			v0 = v0.add(zi.mul(zi))
+		}
+		o.b0 = b0.hi
+		o.se0 = sigma.mul(v0.sqrt()).hi
+	}
+	return o
 }
 
 // regressionErrors estimates, to first order, the relative rounding error
@@ -124,13 +227,19 @@ func (rep *Report) regression(d *design, c *collin, opt Options) {
 //
 //   - QR path (backward-stable columns, error γ·‖a_k‖ per column):
 //     δb_j ≈ γ·√((XᵀX)⁻¹_jj)·base;
+//   - precise QR path: the same with γ = (p+1)·2⁻¹⁰⁴ (double-double
+//     factor and solve), plus preciseFloor for the rounding of the results
+//     to float64;
 //   - cross-product path (each co-moment off by γ·‖x_j‖‖x_k‖):
 //     δb_j ≈ γ·Σ_k |(XᵀX)⁻¹_jk|·‖x_k‖·base, δb₀ ≈ Σ_j |x̄_j|·δb_j + γ|ȳ|,
 //     δσ/σ ≈ γ·‖y‖²/(2·SSR), and δSE_j/SE_j ≈ δσ/σ + γ·κ²/2.
 func (rep *Report) regressionErrors(d *design, fit []int, b []float64, tinv dense, sst []float64, syy, ssr float64, opt Options) {
 	reg := rep.Regression
 	p := len(fit)
-	gamma := float64(p+1) * eps
+	gamma, floor := float64(p+1)*eps, 0.0
+	if d.path == PathQRPrecise {
+		gamma, floor = float64(p+1)*ddEps, preciseFloor
+	}
 	nx := make([]float64, p)
 	base := math.Sqrt(syy)
 	for a := range fit {
@@ -155,7 +264,7 @@ func (rep *Report) regressionErrors(d *design, fit []int, b []float64, tinv dens
 	}
 	db := make([]float64, p)
 	for a := range fit {
-		if d.path == PathQR {
+		if d.path != PathCrossProduct {
 			db[a] = gamma * math.Sqrt(tinv.rowNorm2(a)) * base
 		} else {
 			ra := tinv.d[a*p : (a+1)*p]
@@ -165,14 +274,14 @@ func (rep *Report) regressionErrors(d *design, fit []int, b []float64, tinv dens
 			db[a] *= gamma * base
 		}
 		c := &reg.Coefficients[a+off]
-		e := rel(db[a], c.Estimate)
+		e := rel(db[a], c.Estimate) + floor
 		c.Digits = digits(e)
 		note(e, "estimate "+c.Name)
 	}
 	if off == 1 {
 		c := &reg.Coefficients[0]
 		var e float64
-		if d.path == PathQR {
+		if d.path != PathCrossProduct {
 			e = gamma * c.StdError / reg.Sigma * base
 			if reg.Sigma == 0 {
 				e = 0
@@ -183,7 +292,7 @@ func (rep *Report) regressionErrors(d *design, fit []int, b []float64, tinv dens
 				e += math.Abs(d.mean[j]) * db[a]
 			}
 		}
-		e = rel(e, c.Estimate)
+		e = rel(e, c.Estimate) + floor
 		c.Digits = digits(e)
 		note(e, "estimate "+InterceptName)
 	}

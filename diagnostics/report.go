@@ -34,10 +34,11 @@ const (
 // InterceptName names the intercept in proportions and coefficients.
 const InterceptName = "(intercept)"
 
-// Path names.
+// Path names (Report.Path): the accumulator the diagnostics came from.
 const (
-	PathCrossProduct = "cross-product"
-	PathQR           = "qr"
+	PathCrossProduct = "cross-product" // stream.Moments only
+	PathQR           = "qr"            // a float64 stream.QR
+	PathQRPrecise    = "qr-precise"    // an extended stream.QR (NewQRExtended), solved in double-double
 )
 
 // Reasons a VIF is undefined (ColumnReport.Undefined).

@@ -9,6 +9,15 @@ import (
 // standard errors and VIFs to seven significant digits.
 const RequiredDigits = 7
 
+// ddEps plays eps's part for the precise path: twice the unit roundoff of
+// double-double arithmetic, 2⁻¹⁰⁴ ≈ 4.9e-32.
+const ddEps = 0x1p-104
+
+// preciseFloor is the relative error the precise path's results keep
+// whatever the conditioning: their rounding to float64 and that of the
+// column scaling, a few eps.
+const preciseFloor = 4 * eps
+
 // condition sets rep.condX, the 2-norm condition number of the scaled
 // centered independent regressors; the regression's error estimates use it.
 func (rep *Report) condition(d *design, c *collin) {
@@ -32,11 +41,16 @@ func (rep *Report) trust(d *design) {
 	var t Trust
 	var errEst float64
 	what := "VIFs"
-	if d.path == PathCrossProduct {
+	switch d.path {
+	case PathCrossProduct:
 		// The centered cross-products square the condition number.
 		t.EstimatedCondition = capCond(kx * kx)
 		errEst = gamma * kx * kx
-	} else {
+	case PathQRPrecise:
+		// VIFs from the double-double factor, rounded at the end.
+		t.EstimatedCondition = capCond(kx)
+		errEst = float64(len(d.names)+1)*ddEps*kx + preciseFloor
+	default:
 		t.EstimatedCondition = capCond(kx)
 		errEst = gamma * kx
 	}
@@ -46,8 +60,11 @@ func (rep *Report) trust(d *design) {
 	t.ExpectedDigits = digits(errEst)
 	t.Trustworthy = t.ExpectedDigits >= RequiredDigits
 	name := "QR path: the scaled centered design"
-	if d.path == PathCrossProduct {
+	switch d.path {
+	case PathCrossProduct:
 		name = "cross-product path: the scaled centered cross-product matrix"
+	case PathQRPrecise:
+		name = "precise QR path (double-double factor): the scaled centered design"
 	}
 	switch {
 	case t.Trustworthy:
@@ -56,8 +73,11 @@ func (rep *Report) trust(d *design) {
 	case d.path == PathCrossProduct:
 		t.Reason = fmt.Sprintf("%s has condition about %.3g (1/eps = %.2g); %s would have only about %.0f correct digits (%d needed); use the QR accumulator",
 			name, t.EstimatedCondition, 1/eps, what, math.Floor(t.ExpectedDigits), RequiredDigits)
+	case d.path == PathQR:
+		t.Reason = fmt.Sprintf("%s has condition about %.3g; %s would have only about %.0f correct digits (%d needed) from a float64 factor; use the extended (double-double) QR accumulator",
+			name, t.EstimatedCondition, what, math.Floor(t.ExpectedDigits), RequiredDigits)
 	default:
-		t.Reason = fmt.Sprintf("%s has condition about %.3g; %s would have only about %.0f correct digits (%d needed): float64 cannot determine it more closely from these data",
+		t.Reason = fmt.Sprintf("%s has condition about %.3g; %s would have only about %.0f correct digits (%d needed) even from the double-double factor: the columns are too nearly dependent to determine it more closely",
 			name, t.EstimatedCondition, what, math.Floor(t.ExpectedDigits), RequiredDigits)
 	}
 	if d.path == PathCrossProduct && !t.Trustworthy && rep.Rank < len(rep.ProportionNames) {
