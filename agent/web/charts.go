@@ -89,9 +89,11 @@ type lineChart struct {
 	Levels          []level
 	Cone            *cone
 	Clipped         []clipRun
+	Alerts          []alertMark
 	Legend          []legendItem
 	LegendY         float64
 	Empty           string // message when there is nothing to draw
+	xs timeScale // the time axis, for marks added after the layout
 	// Fixed draws the chart at its own size at OffsetY inside another
 	// SVG (a file), rather than at the page's width.
 	Fixed   bool
@@ -243,6 +245,7 @@ func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float
 		}
 	}
 	xs := timeScale{T0: t0, T1: t1, P0: c.Plot.X, P1: c.Plot.Right()}
+	c.xs = xs
 	c.XTicks, c.YTicks = xs.ticks(), ys.ticks()
 
 	var d strings.Builder
@@ -333,7 +336,54 @@ func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float
 		c.Legend = append(c.Legend, legendItem{Label: "off the scale or rank deficient (∞)", Kind: "marker", Fill: colVermillion, Pattern: id + "-clip-fill"})
 	}
 	c.LegendY = c.Plot.Bottom() + 58
+	c.fitLegend()
 	return c
+}
+
+// fitLegend sizes the chart to its legend's rows (three items a row).
+func (c *lineChart) fitLegend() {
+	rows := (len(c.Legend) + 2) / 3
+	c.H = math.Max(c.H, c.LegendY+float64(rows)*20)
+}
+
+// alertMark is a diamond on the time axis where an alert opened.
+type alertMark struct {
+	X, Y     float64
+	Severity string
+	Rule     string
+	Fill     string
+	Title    string
+}
+
+// markAlerts puts a diamond above the time axis at the data time of each
+// alert of the segment that concerns the chart's metric; exact and
+// constant alerts go on the condition number's chart, where the rank
+// shows.
+func (c *lineChart) markAlerts(alerts []Alert, segment string) {
+	if c.Empty != "" {
+		return
+	}
+	kinds := map[string]bool{}
+	for _, a := range alerts {
+		mine := a.Metric == c.Metric || (a.Metric == "" && c.Metric == MetricCondition && (a.Rule == "exact" || a.Rule == "constant"))
+		if a.Segment != segment || !mine || a.AsOf.Before(c.xs.T0) || a.AsOf.After(c.xs.T1) {
+			continue
+		}
+		m := alertMark{X: c.xs.At(a.AsOf), Y: c.Plot.Bottom() - 8, Severity: a.Severity, Rule: a.Rule, Fill: colOrange,
+			Title: a.AsOf.UTC().Format(time.DateOnly) + " · " + a.Severity + " (" + a.Rule + "): " + a.Message}
+		if a.Severity == SeverityCritical {
+			m.Fill = colVermillion
+		}
+		c.Alerts = append(c.Alerts, m)
+		kinds[a.Severity] = true
+	}
+	if kinds[SeverityWarning] {
+		c.Legend = append(c.Legend, legendItem{Label: "warning alert opened", Kind: "diamond", Fill: colOrange, Pattern: "hollow"})
+	}
+	if kinds[SeverityCritical] {
+		c.Legend = append(c.Legend, legendItem{Label: "critical alert opened", Kind: "diamond", Fill: colVermillion})
+	}
+	c.fitLegend()
 }
 
 // clipRun is a stretch of points above the top of the axis, drawn as a

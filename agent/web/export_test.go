@@ -6,6 +6,7 @@ import (
 	"encoding/xml"
 	"image/png"
 	"io"
+	"math"
 	"os"
 	"path/filepath"
 	"testing"
@@ -89,9 +90,12 @@ func TestWriteTimelinePNG(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// 960 × 740 points at 144 dpi: twice the SVG's size in pixels.
-	if b := img.Bounds(); b.Dx() != 1920 || b.Dy() != 1480 {
-		t.Errorf("image is %v", b)
+	// The SVG's size in points at 144 dpi: twice as many pixels.
+	l := d.Summary.Limits
+	h := 40 + timelineChart("c", MetricCondition, seg.Timeline, seg.Forecast(MetricCondition), l.CondWarn, l.CondCritical).H +
+		timelineChart("v", MetricMaxVIF, seg.Timeline, seg.Forecast(MetricMaxVIF), l.VIFWarn, l.VIFCritical).H + 10
+	if b := img.Bounds(); b.Dx() != 1920 || b.Dy() != int(math.Round(2*h)) {
+		t.Errorf("image is %v, want 1920×%.0f", b, 2*h)
 	}
 	// The series colours are drawn: Okabe–Ito blue (condition number) and
 	// reddish purple (max VIF), and the vermillion of the critical level.

@@ -260,7 +260,7 @@ func fixtureAlerts(w fixtureWatch, seg string, at time.Time, p Point, rep *diagn
 		if sev != "" && levels["vif"] != sev && !(levels["vif"] == SeverityCritical) {
 			levels["vif"] = sev
 			out = append(out, Alert{ID: id("level", "max_vif"), Watch: w.name, Segment: seg, Rule: "level", Severity: sev,
-				AsOf: at, OpenedAt: at.Add(2 * time.Hour), Message: fmt.Sprintf("max VIF %s at or above the %s level", fmtNum(p.MaxVIF), sev)})
+				AsOf: at, OpenedAt: at.Add(2 * time.Hour), Metric: MetricMaxVIF, Message: fmt.Sprintf("max VIF %s at or above the %s level", fmtNum(p.MaxVIF), sev)})
 		}
 	}
 	return out

@@ -291,6 +291,8 @@ func (s *Server) watchPage(w http.ResponseWriter, r *http.Request) {
 		l := d.Summary.Limits
 		data.CondChart = timelineChart("tl-cond", MetricCondition, seg.Timeline, seg.Forecast(MetricCondition), l.CondWarn, l.CondCritical)
 		data.VIFChart = timelineChart("tl-vif", MetricMaxVIF, seg.Timeline, seg.Forecast(MetricMaxVIF), l.VIFWarn, l.VIFCritical)
+		data.CondChart.markAlerts(d.Alerts, seg.Segment)
+		data.VIFChart.markAlerts(d.Alerts, seg.Segment)
 		data.Forecasts = seg.Forecasts
 		if rep := seg.Report; rep != nil {
 			data.Report = rep

@@ -258,6 +258,9 @@ type Alert struct {
 	Columns  []string `json:"columns,omitempty"`
 	Equation string   `json:"equation,omitempty"`
 	Remedy   string   `json:"remedy,omitempty"`
+	// Metric is the metric a level, trend or jump alert is about
+	// (MetricCondition or MetricMaxVIF), "" for the other rules.
+	Metric string `json:"metric,omitempty"`
 }
 
 // Open reports whether the alert is not resolved.

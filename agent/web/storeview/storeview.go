@@ -208,7 +208,7 @@ func (v *View) detail(ctx context.Context, w *config.Watch, full bool) (*web.Wat
 	for _, a := range alerts {
 		wa := web.Alert{ID: a.ID, Watch: a.Watch, Rule: string(a.Rule), Severity: string(a.Severity), AsOf: a.AsOf,
 			OpenedAt: a.OpenedAt, Message: a.Message, Segment: a.Segment,
-			Columns: a.Detail.Columns, Equation: a.Detail.Equation, Remedy: a.Detail.Remedy}
+			Columns: a.Detail.Columns, Equation: a.Detail.Equation, Remedy: a.Detail.Remedy, Metric: a.Detail.Metric}
 		if !a.ResolvedAt.IsZero() {
 			t := a.ResolvedAt
 			wa.ResolvedAt = &t
