@@ -258,8 +258,13 @@ func (r *Rules) findings(st *RuleState, open map[string]*Alert, o Observation) m
 		if m.metric == MetricMaxVIF && o.MaxVIFColumn != "" {
 			what += " (" + o.MaxVIFColumn + ")"
 		}
+		msg := fmt.Sprintf("%s %s is at or above the %s level %s", what, num(m.v), word, num(limit))
+		if m.metric == MetricCondition && o.singular() {
+			msg = fmt.Sprintf("the design is singular (rank %d of %d): the condition number is effectively infinite, above the %s level %s",
+				o.Rank, o.Columns+1, word, num(limit))
+		}
 		add(finding{rule: RuleLevel, subject: m.metric, severity: sev,
-			message: r.prefix() + fmt.Sprintf("%s %s is at or above the %s level %s", what, num(m.v), word, num(limit)),
+			message: r.prefix() + msg,
 			detail: AlertDetail{Metric: m.metric, Value: finiteOr0(m.v), Limit: limit, Values: values,
 				Columns: r.involved(o, m.metric), Remedy: remedy}})
 	}

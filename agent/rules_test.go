@@ -322,3 +322,22 @@ func TestReplayIsDeterministic(t *testing.T) {
 		t.Fatalf("events:\n%s", joined)
 	}
 }
+
+func TestSingularLevelMessage(t *testing.T) {
+	s := newStepper(t, testLimits())
+	// 10 columns of rank 10 with the intercept: one short of 11.
+	ch := s.step(Observation{ConditionNumber: 4.5e15, Rank: 10, Columns: 10})
+	if len(ch) != 1 || !strings.Contains(ch[0].Alert.Message, "the design is singular (rank 10 of 11)") || ch[0].Alert.Severity != Critical {
+		t.Fatalf("changes %s: %+v", events(ch), ch)
+	}
+	// Singular points are left out of trends and jumps: a long run of
+	// them followed by a regular point opens no jump.
+	for i := 0; i < 10; i++ {
+		s.step(Observation{ConditionNumber: 4.5e15, Rank: 10, Columns: 10})
+	}
+	for _, c := range s.step(Observation{ConditionNumber: 12, Rank: 11, Columns: 10}) {
+		if c.Alert.Rule == RuleJump || c.Alert.Rule == RuleTrend {
+			t.Fatalf("a singular history produced %s", events([]Change{c}))
+		}
+	}
+}

@@ -140,7 +140,7 @@ func (r *Runner) Run(ctx context.Context, w *config.Watch, opt RunOptions) (*Out
 			return nil, err
 		}
 		for _, s := range col.skipped {
-			log.Info("point skipped", "why", s)
+			log.Debug("point skipped", "why", s)
 		}
 	}
 	res.Run.FinishedAt = r.now()
