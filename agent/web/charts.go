@@ -92,8 +92,8 @@ type lineChart struct {
 	Alerts          []alertMark
 	Legend          []legendItem
 	LegendY         float64
-	Empty           string // message when there is nothing to draw
-	xs timeScale // the time axis, for marks added after the layout
+	Empty           string    // message when there is nothing to draw
+	xs              timeScale // the time axis, for marks added after the layout
 	// Fixed draws the chart at its own size at OffsetY inside another
 	// SVG (a file), rather than at the page's width.
 	Fixed   bool
