@@ -14,6 +14,7 @@ when PLUMB_BENCH_PEER=1 and reports it beside plumb's own times.
 """
 import argparse
 import json
+import math
 import os
 import resource
 import sys
@@ -73,7 +74,10 @@ def main():
         "peer_s": peer,
         "peer_vs_floor": peer / floor,
         "peer_peak_rss_MB": rss,
-        "max_vif": max(vifs),
+        # An exact dependency (a total column) makes some VIFs infinite,
+        # which JSON cannot carry.
+        "infinite_vifs": sum(1 for v in vifs if math.isinf(v)),
+        "max_finite_vif": max((v for v in vifs if math.isfinite(v)), default=None),
     }
     if a.json:
         print(json.dumps(out))
@@ -81,7 +85,7 @@ def main():
         print(f"{out['rows']} rows × {out['columns']} columns")
         print(f"floor (COPY binary to /dev/null): {floor:8.2f} s")
         print(f"pandas.read_sql + statsmodels VIF: {peer:8.2f} s  = {peer / floor:.1f} × floor")
-        print(f"peak RSS: {rss:.0f} MB; largest VIF {max(vifs):.3g}")
+        print(f"peak RSS: {rss:.0f} MB; {out['infinite_vifs']} infinite VIFs, largest finite {out['max_finite_vif']:.3g}")
 
 
 if __name__ == "__main__":
