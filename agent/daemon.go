@@ -32,6 +32,8 @@ func (realTimer) After(d time.Duration) <-chan time.Time { return time.After(d) 
 //     previous tick (the agent was down) runs once at once, not once per
 //     missed tick; a watch that never ran runs at once (its first run
 //     backfills the history).
+//   - Failures: a watch whose runs keep failing backs off (1 minute,
+//     doubling to an hour) and then runs at the next tick.
 //   - Shutdown: when ctx ends no new run starts; runs in flight get Grace
 //     to finish, then their context is cancelled and they are abandoned
 //     without writing anything (the next start redoes them).
@@ -52,10 +54,25 @@ type Daemon struct {
 }
 
 type watchSched struct {
-	w       *config.Watch
-	sched   cron.Schedule
-	next    time.Time
-	running bool
+	w        *config.Watch
+	sched    cron.Schedule
+	next     time.Time
+	running  bool
+	failures int // consecutive failed runs
+}
+
+// failureBackoff is how long a watch whose runs keep failing waits at
+// least before its next run: 1 minute after the first failure, doubling to
+// at most an hour. The run then happens at the first tick after it.
+func failureBackoff(failures int) time.Duration {
+	if failures <= 0 {
+		return 0
+	}
+	d := time.Minute
+	for i := 1; i < failures && d < time.Hour; i++ {
+		d *= 2
+	}
+	return min(d, time.Hour)
 }
 
 type runDone struct {
@@ -153,7 +170,19 @@ func (d *Daemon) Run(ctx context.Context) error {
 	finish := func(r runDone) {
 		r.ws.running = false
 		inFlight--
-		r.ws.next = r.ws.sched.Next(clock.Now())
+		if r.err != nil || r.out != nil && r.out.Err != nil {
+			r.ws.failures++
+		} else {
+			r.ws.failures = 0
+		}
+		now := clock.Now()
+		r.ws.next = r.ws.sched.Next(now)
+		if r.ws.failures > 0 {
+			// The first tick at or after the backoff.
+			if after := r.ws.sched.Next(now.Add(failureBackoff(r.ws.failures) - time.Second)); after.After(r.ws.next) {
+				r.ws.next = after
+			}
+		}
 		if d.OnRun != nil {
 			d.OnRun(r.ws.w, r.out, r.err)
 		}

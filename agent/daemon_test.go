@@ -2,6 +2,8 @@ package agent_test
 
 import (
 	"context"
+	"errors"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -239,3 +241,46 @@ func TestDaemonNoOverlapAndShutdown(t *testing.T) {
 		t.Fatalf("an abandoned run was recorded: %d runs before, %d after", len(before), len(after))
 	}
 }
+
+func TestDaemonBacksOffFailingSource(t *testing.T) {
+	r := newDaemonRig(t, start.Add(6*time.Hour))
+	r.h.cfg.Watches[0].Schedule = "* * * * *" // every minute
+	r.h.run.OpenSource = func(ctx context.Context, url string) (connectors.Source, error) {
+		return nil, errDown
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	stopped := make(chan error, 1)
+	go func() { stopped <- r.d.Run(ctx) }()
+	failed := 0
+	for m := 0; m < 180; m++ {
+		settle(r.ft)
+		for drained := false; !drained; {
+			select {
+			case out := <-r.runs:
+				if out.Err == nil {
+					t.Fatal("run succeeded against a source that is down")
+				}
+				failed++
+			default:
+				drained = true
+			}
+		}
+		r.ft.Advance(time.Minute)
+	}
+	cancel()
+	if err := <-stopped; err != nil {
+		t.Fatal(err)
+	}
+	// Waits of 1, 2, 4, 8, 16, 32 minutes and then an hour: in 180
+	// minutes the runs start at minutes 0, 1, 3, 7, 15, 31, 63, 123 (by
+	// hand), 8 runs instead of 180.
+	if failed != 8 {
+		t.Fatalf("%d failed runs in 3 hours, want 8", failed)
+	}
+	runs, _ := r.h.store.Runs(context.Background(), "billing", 0)
+	if len(runs) != 8 || runs[0].Status != agent.StatusFailed || !strings.Contains(runs[0].Error, "source is down") {
+		t.Fatalf("recorded runs %d, latest %+v", len(runs), runs[0])
+	}
+}
+
+var errDown = errors.New("source is down")
