@@ -343,3 +343,15 @@ func TestAgentCommandStops(t *testing.T) {
 	}
 	release()
 }
+
+func TestSparkline(t *testing.T) {
+	f := func(v float64) *float64 { return &v }
+	// Log scale from 1 to 100: 10 is halfway, bar index int(0.5·7) = 3.
+	got := sparkline([]*float64{f(1), f(10), f(100), nil}, 60)
+	if got != "▁▄█!" {
+		t.Fatalf("sparkline %q", got)
+	}
+	if got := sparkline([]*float64{f(5), f(5), f(5)}, 2); got != "▁▁" {
+		t.Fatalf("flat sparkline %q", got)
+	}
+}
