@@ -23,6 +23,7 @@ type Grouper struct {
 	names       []string
 	p           int
 	qr          bool
+	extended    bool
 	weighted    bool
 	keyed       bool
 	bucketed    bool
@@ -53,6 +54,7 @@ type groupAcc struct {
 type GroupOptions struct {
 	Columns     []string
 	QR          bool
+	Extended    bool // QR factors in double-double
 	Weighted    bool
 	Bucketed    bool           // rows carry a bucket start
 	Segmented   bool           // rows carry a segment value
@@ -72,7 +74,8 @@ func NewGrouper(o GroupOptions) *Grouper {
 	g := &Grouper{
 		names:       append([]string(nil), o.Columns...),
 		p:           len(o.Columns),
-		qr:          o.QR,
+		qr:          o.QR || o.Extended,
+		extended:    o.Extended,
 		weighted:    o.Weighted,
 		bucketed:    o.Bucketed,
 		segmented:   o.Segmented,
@@ -101,7 +104,8 @@ func NewGrouper(o GroupOptions) *Grouper {
 func NewGrouperFor(p *Plan, qr bool) *Grouper {
 	return NewGrouper(GroupOptions{
 		Columns:     p.Names(),
-		QR:          qr,
+		QR:          qr || p.Extended,
+		Extended:    p.Extended,
 		Weighted:    p.Weight != nil,
 		Bucketed:    p.Time != nil,
 		Segmented:   p.Segment != nil,
@@ -116,7 +120,9 @@ func (g *Grouper) newAcc(bucket int64, seg string) *groupAcc {
 		a.key.Bucket = time.UnixMicro(bucket).In(g.loc)
 	}
 	a.key.Segment = seg
-	if g.qr {
+	if g.extended {
+		a.q = stream.NewQRExtended(g.names)
+	} else if g.qr {
 		a.q = stream.NewQR(g.names)
 	}
 	return a

@@ -20,6 +20,7 @@ type Plan struct {
 	Bucket      string
 	Location    *time.Location // never nil
 	MaxSegments int            // never 0
+	Extended    bool           // QR factors in double-double (Request.Extended)
 }
 
 // Names returns the names of the accumulated columns.
@@ -42,7 +43,7 @@ var Buckets = []string{"hour", "day", "week", "month"}
 // Errors name the source and the column, list what is available, and wrap
 // ErrNotFound, ErrColumnType or ErrUnsupported.
 func Resolve(source string, cols []Column, req Request, timeKinds ...Kind) (*Plan, error) {
-	p := &Plan{Source: source, Bucket: req.Bucket, Location: req.Location, MaxSegments: req.MaxSegments}
+	p := &Plan{Source: source, Bucket: req.Bucket, Location: req.Location, MaxSegments: req.MaxSegments, Extended: req.Extended}
 	if p.Location == nil {
 		p.Location = time.UTC
 	}

@@ -65,6 +65,10 @@ type Request struct {
 	Seed      int64
 
 	QR bool // accumulate the QR factor as well as the moments
+	// Extended keeps the QR factor in double-double (stream.NewQRExtended):
+	// about ten times slower, for data whose float64 factor cannot be
+	// trusted. It implies QR.
+	Extended bool
 
 	// Progress, when set, is called from the scanning goroutine now and then
 	// with the rows read so far and the total expected (0 when unknown).
@@ -109,7 +113,11 @@ func (r *Result) Merged() Group {
 		g.Moments.Merge(x.Moments)
 		if x.QR != nil {
 			if g.QR == nil {
-				g.QR = stream.NewQR(r.Columns)
+				if x.QR.Extended() {
+					g.QR = stream.NewQRExtended(r.Columns)
+				} else {
+					g.QR = stream.NewQR(r.Columns)
+				}
 			}
 			g.QR.Merge(x.QR)
 		}

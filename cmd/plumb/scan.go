@@ -79,7 +79,7 @@ serious; a condition index above 30 marks a strong near dependency.`,
 	fl.StringVar(&f.weight, "weight", "", "column of non-negative row weights")
 	fl.StringArrayVar(&f.groups, "group", nil, "column group for generalized VIF, NAME=a,b,c (repeatable)")
 	fl.StringVar(&f.format, "format", "text", "output format: text or json")
-	fl.StringVar(&f.precision, "precision", "auto", "auto (cross-products, QR when they cannot be trusted), fast (cross-products only) or exact (QR always)")
+	fl.StringVar(&f.precision, "precision", "auto", "auto (cross-products, then a QR factor, then a double-double QR factor, each only when the one before cannot be trusted), fast (cross-products only), exact (start at the QR factor) or precise (double-double QR from the start)")
 	fl.Float64Var(&f.vifLimit, "vif-limit", 10, "VIF above which a column counts as redundant")
 	fl.Float64Var(&f.condLimit, "condition-limit", 30, "condition index above which a near dependency is reported")
 	fl.StringVar(&f.timeColumn, "time-column", "", "time column for --bucket")
@@ -139,9 +139,9 @@ func (f *scanFlags) validate() error {
 		return usagef("--format %q: want text or json", f.format)
 	}
 	switch f.precision {
-	case "auto", "fast", "exact":
+	case "auto", "fast", "exact", "precise":
 	default:
-		return usagef("--precision %q: want auto, fast or exact", f.precision)
+		return usagef("--precision %q: want auto, fast, exact or precise", f.precision)
 	}
 	if (f.table == "") == (f.query == "") && f.db != "" {
 		return usagef("give one of --table or --query")
@@ -248,6 +248,7 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 	}
 	req.Columns = cols
 	req.QR = f.precision == "exact"
+	req.Extended = f.precision == "precise"
 
 	opt := diagnostics.Options{
 		Target: f.target, Columns: cols[:len(cols)-boolInt(f.target != "")], Groups: groups,
@@ -293,11 +294,13 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 	return writeText(stdout, &out)
 }
 
-// scanAndAnalyze runs the scan and the diagnostics; in auto precision a
-// cross-product result that cannot be trusted is redone on the QR path.
+// scanAndAnalyze runs the scan and the diagnostics. A result whose
+// numerical verdict is "not trustworthy" is redone one level up the ladder
+// cross-products → QR factor → double-double QR factor (from the level the
+// precision flag starts at; never with --precision fast).
 func scanAndAnalyze(ctx context.Context, src connectors.Source, req connectors.Request, opt diagnostics.Options, f *scanFlags, stderr io.Writer) (*connectors.Result, *diagnostics.Report, error) {
 	for {
-		bar := newProgress(stderr, f.quiet, req.QR)
+		bar := newProgress(stderr, f.quiet, req.QR || req.Extended)
 		req.Progress = bar.update
 		res, err := src.Scan(ctx, req)
 		bar.finish()
@@ -312,13 +315,22 @@ func scanAndAnalyze(ctx context.Context, src connectors.Source, req connectors.R
 		if err != nil {
 			return nil, nil, err
 		}
-		if rep.Trust.Trustworthy || req.QR || f.precision == "fast" {
+		if rep.Trust.Trustworthy || req.Extended || f.precision == "fast" {
 			return res, rep, nil
 		}
-		if !f.quiet {
-			fmt.Fprintf(stderr, "plumb: cross-products cannot be trusted here (%s); reading again on the QR path\n", rep.Trust.Reason)
+		if f.pushdown {
+			rep.Notes = append(rep.Notes, "the cross-products computed in the database cannot be trusted here; run without --pushdown to let plumb read the rows through a QR factor")
+			return res, rep, nil
+		}
+		next := "a QR factor"
+		if req.QR {
+			next = "a double-double QR factor"
+			req.Extended = true
 		}
 		req.QR = true
+		if !f.quiet {
+			fmt.Fprintf(stderr, "plumb: the %s path cannot be trusted here (%s); reading again through %s\n", rep.Path, rep.Trust.Reason, next)
+		}
 	}
 }
 

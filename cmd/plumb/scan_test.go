@@ -97,10 +97,15 @@ func scanJSONOf(t *testing.T, args ...string) scanJSON {
 		t.Fatalf("plumb scan %v: exit %d: %s", args, code, errs)
 	}
 	var s scanJSON
-	if err := json.Unmarshal([]byte(out), &s); err != nil {
-		t.Fatalf("plumb scan output is not JSON: %v\n%s", err, out)
-	}
+	decode(t, out, &s)
 	return s
+}
+
+func decode(t *testing.T, out string, v any) {
+	t.Helper()
+	if err := json.Unmarshal([]byte(out), v); err != nil {
+		t.Fatalf("plumb output is not JSON: %v\n%s", err, out)
+	}
 }
 
 func TestScanSampleText(t *testing.T) {

@@ -45,7 +45,7 @@ const pushdownShiftRows = 1000
 // when rows were dropped. The server returns O(p²) numbers per group
 // whatever the number of rows.
 func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connectors.Result, error) {
-	if req.QR {
+	if req.QR || req.Extended {
 		return nil, fmt.Errorf("--pushdown returns cross-products, not the QR factor; scan without --pushdown for QR accuracy: %w", connectors.ErrUnsupported)
 	}
 	conn, err := s.pool.Acquire(ctx)
