@@ -111,5 +111,7 @@ defer to the model's governance.`,
 	root.AddCommand(newAlertsCmd())
 	root.AddCommand(newBackfillCmd())
 	root.AddCommand(newAgentCmd())
+	root.AddCommand(newServeCmd())
+	root.AddCommand(newDemoCmd())
 	return root
 }

@@ -1,0 +1,81 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"net"
+	"os"
+
+	"github.com/spf13/cobra"
+
+	"plumb/agent"
+	"plumb/agent/config"
+	"plumb/agent/web"
+	"plumb/agent/web/storeview"
+)
+
+func newServeCmd() *cobra.Command {
+	var path, listen, logFormat string
+	cmd := &cobra.Command{
+		Use:   "serve [--config FILE] [--listen ADDR]",
+		Short: "Serve the dashboard, JSON API and /metrics for a state store (no schedules)",
+		Long: `serve reads the state store named by the configuration and serves, until
+interrupted: the dashboard (an overview of every watch and a page per watch with
+its timelines, VIF bars, correlation heat map, dependencies and run log), the
+JSON API under /api/, /healthz and /metrics in the Prometheus text format.
+It runs no watch and writes nothing.
+
+The server listens on ` + web.DefaultListen + ` unless told otherwise. Any address that
+is not loopback needs a bearer token in $` + web.TokenEnv + `: requests must send
+"Authorization: Bearer TOKEN" (browsers log in once at /login).`,
+		Example: `  plumb serve --config plumb.yaml
+  PLUMB_HTTP_TOKEN=$(cat /etc/plumb/token) plumb serve --config plumb.yaml --listen 0.0.0.0:9464`,
+		Args: cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, args []string) error {
+			log, err := newLogger(cmd.ErrOrStderr(), logFormat, slog.LevelInfo)
+			if err != nil {
+				return err
+			}
+			c, err := loadStoreConfig(path)
+			if err != nil {
+				return err
+			}
+			st, err := openStore(cmd.Context(), c, false, log)
+			if err != nil {
+				return err
+			}
+			defer st.Close()
+			return serveDashboard(cmd.Context(), cmd.OutOrStdout(), st, c, listen, log)
+		},
+	}
+	addConfigFlag(cmd, &path)
+	cmd.Flags().StringVar(&listen, "listen", web.DefaultListen, "address to listen on (host:port)")
+	cmd.Flags().StringVar(&logFormat, "log-format", "text", "log format: json or text")
+	return cmd
+}
+
+// serveDashboard serves the dashboard of st until ctx is done, printing
+// the address it listens on.
+func serveDashboard(ctx context.Context, stdout io.Writer, st agent.Store, c *config.Config, listen string, log *slog.Logger) error {
+	srv, err := web.New(web.Options{
+		View:   storeview.New(st, c),
+		Listen: listen,
+		Token:  os.Getenv(web.TokenEnv),
+		Logger: log.With("component", "http"),
+	})
+	if errors.Is(err, web.ErrTokenRequired) {
+		return usageError{err}
+	}
+	if err != nil {
+		return err
+	}
+	ln, err := net.Listen("tcp", listen)
+	if err != nil {
+		return fmt.Errorf("dashboard: cannot listen on %s: %w", listen, err)
+	}
+	fmt.Fprintf(stdout, "dashboard on http://%s/ (metrics at /metrics); interrupt to stop\n", ln.Addr())
+	return srv.Serve(ctx, ln)
+}
