@@ -112,10 +112,14 @@ func (s Scenario) Rows() []Row {
 			com := math.Round(x.com + 20*rng.NormFloat64())
 			total := res + com
 			if d < s.ChangeDay {
-				total += math.Round(70 + 15*rng.NormFloat64()) // other connections, no longer counted after the change
+				total += math.Round(90 + 30*rng.NormFloat64()) // other connections, no longer counted after the change
 			}
 			temp := round1(baseTemp + 0.8*rng.NormFloat64())
-			rainfall := round1(math.Max(0, rain*(0.7+0.6*rng.Float64())))
+			rainfall := math.Max(0, rain*(0.7+0.6*rng.Float64()))
+			if rng.Float64() < 0.2 {
+				rainfall += rng.ExpFloat64() * 1.5 // a local shower
+			}
+			rainfall = round1(rainfall)
 			pressure := round3(x.pressure + 0.12*rng.NormFloat64())
 			if name == s.StuckDistrict && d >= s.StuckDay {
 				pressure = 3.415

@@ -59,7 +59,7 @@ watches:
     columns: [temperature_c, rainfall_mm, population_served, metered_volume_m3, billed_volume_m3]
     time_column: day
     bucket: day
-    window: 14 buckets
+    window: 28 buckets
     lookback: 3 buckets
     segment_by: district
     schedule: "15 6 * * *"
@@ -75,7 +75,7 @@ watches:
     columns: [residential_connections, commercial_connections, total_connections, pipe_age_years, pressure_bar]
     time_column: day
     bucket: day
-    window: 14 buckets
+    window: 28 buckets
     lookback: 3 buckets
     segment_by: district
     schedule: "15 6 * * *"
