@@ -15,6 +15,7 @@ import (
 	"plumb/agent/config"
 	"plumb/agent/notify"
 	"plumb/agent/sqlstore"
+	"plumb/agent/web"
 )
 
 // Shared by the agent's commands: opening the store, building notifiers,
@@ -70,6 +71,7 @@ func newLogger(w io.Writer, format string, level slog.Level) (*slog.Logger, erro
 func newAgentCmd() *cobra.Command {
 	var (
 		path, logFormat string
+		listen          string
 		grace           time.Duration
 		jitter          time.Duration
 		verbose         bool
@@ -98,7 +100,7 @@ finish and are then abandoned without writing anything.`,
 			if err != nil {
 				return err
 			}
-			return runAgent(cmd.Context(), path, log, grace, jitter)
+			return runAgent(cmd.Context(), path, log, grace, jitter, listen)
 		},
 	}
 	addConfigFlag(cmd, &path)
@@ -106,10 +108,11 @@ finish and are then abandoned without writing anything.`,
 	cmd.Flags().DurationVar(&grace, "grace", 30*time.Second, "time runs in flight get to finish at shutdown")
 	cmd.Flags().DurationVar(&jitter, "jitter", 10*time.Second, "most a run starts after its tick (0 for none)")
 	cmd.Flags().BoolVarP(&verbose, "verbose", "v", false, "debug logging")
+	cmd.Flags().StringVar(&listen, "listen", web.DefaultListen, `address of the dashboard and /metrics ("off" for none); not loopback needs $`+web.TokenEnv)
 	return cmd
 }
 
-func runAgent(ctx context.Context, path string, log *slog.Logger, grace, jitter time.Duration) error {
+func runAgent(ctx context.Context, path string, log *slog.Logger, grace, jitter time.Duration, listen string) error {
 	c, err := loadConfig(path, true)
 	if err != nil {
 		return err
@@ -137,6 +140,15 @@ func runAgent(ctx context.Context, path string, log *slog.Logger, grace, jitter 
 		Logger:    log.With("component", "scheduler"),
 		Grace:     grace,
 		Jitter:    jitter,
+	}
+	var waitHTTP func() error
+	if listen != "off" {
+		hctx, stopHTTP := context.WithCancel(ctx)
+		defer stopHTTP()
+		if waitHTTP, _, err = startDashboard(hctx, st, c, listen, log); err != nil {
+			return err
+		}
+		defer func() { stopHTTP(); waitHTTP() }()
 	}
 	log.Info("agent started", "watches", len(c.Watches), "pid", os.Getpid())
 	err = d.Run(ctx)

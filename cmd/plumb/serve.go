@@ -60,6 +60,18 @@ is not loopback needs a bearer token in $` + web.TokenEnv + `: requests must sen
 // serveDashboard serves the dashboard of st until ctx is done, printing
 // the address it listens on.
 func serveDashboard(ctx context.Context, stdout io.Writer, st agent.Store, c *config.Config, listen string, log *slog.Logger) error {
+	wait, addr, err := startDashboard(ctx, st, c, listen, log)
+	if err != nil {
+		return err
+	}
+	fmt.Fprintf(stdout, "dashboard on http://%s/ (metrics at /metrics); interrupt to stop\n", addr)
+	return wait()
+}
+
+// startDashboard listens at once (so that a taken port fails the start)
+// and serves in the background until ctx is done; wait returns the
+// server's error.
+func startDashboard(ctx context.Context, st agent.Store, c *config.Config, listen string, log *slog.Logger) (wait func() error, addr string, err error) {
 	srv, err := web.New(web.Options{
 		View:   storeview.New(st, c),
 		Listen: listen,
@@ -67,15 +79,17 @@ func serveDashboard(ctx context.Context, stdout io.Writer, st agent.Store, c *co
 		Logger: log.With("component", "http"),
 	})
 	if errors.Is(err, web.ErrTokenRequired) {
-		return usageError{err}
+		return nil, "", usageError{err}
 	}
 	if err != nil {
-		return err
+		return nil, "", err
 	}
 	ln, err := net.Listen("tcp", listen)
 	if err != nil {
-		return fmt.Errorf("dashboard: cannot listen on %s: %w", listen, err)
+		return nil, "", fmt.Errorf("dashboard: cannot listen on %s: %w", listen, err)
 	}
-	fmt.Fprintf(stdout, "dashboard on http://%s/ (metrics at /metrics); interrupt to stop\n", ln.Addr())
-	return srv.Serve(ctx, ln)
+	log.Info("dashboard listening", "addr", ln.Addr().String())
+	done := make(chan error, 1)
+	go func() { done <- srv.Serve(ctx, ln) }()
+	return func() error { return <-done }, ln.Addr().String(), nil
 }
