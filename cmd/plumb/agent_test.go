@@ -303,7 +303,9 @@ func TestAgentCommandStops(t *testing.T) {
 	ctx, cancel := context.WithCancel(context.Background())
 	done := make(chan int, 1)
 	var out, errb bytes.Buffer
-	go func() { done <- run(ctx, []string{"agent", "--config", cfg, "--jitter", "0", "--listen", "127.0.0.1:0"}, &out, &errb) }()
+	go func() {
+		done <- run(ctx, []string{"agent", "--config", cfg, "--jitter", "0", "--listen", "127.0.0.1:0"}, &out, &errb)
+	}()
 	deadline := time.Now().Add(60 * time.Second)
 	for {
 		if st, err := sqlstore.Open(context.Background(), "sqlite:"+state, sqlstore.Options{}); err == nil {
