@@ -16,24 +16,29 @@ import (
 type pushStrategy int
 
 const (
-	// pushAuto: pushRegr where it applies (PostgreSQL 12+, unweighted),
-	// else pushShifted.
+	// pushAuto: pushShifted for a whole table (and for weights and engines
+	// without the updating aggregates), pushRegr for buckets and segments
+	// on PostgreSQL 12+.
 	pushAuto pushStrategy = iota
 	// pushRegr: regr_sxy and avg, which PostgreSQL 12 and later compute by
-	// the Youngs–Cramer updating algorithm and combine across parallel
-	// workers pairwise (float8_regr_accum, float8_regr_combine). Its error
-	// grows with a column's |mean|/spread, so columns whose provisional
-	// mean is large against their spread are shifted by it first; the
-	// others cost no more than the bare sums of products.
+	// the Youngs–Cramer updating algorithm per group and combine across
+	// parallel workers pairwise (float8_regr_accum, float8_regr_combine).
+	// Its error grows with a column's |mean|/spread, so columns whose
+	// provisional mean is large against their spread are shifted by it
+	// first. Each group is centred on its own mean, which a shift taken
+	// from the whole table is not, so buckets and segments use it.
 	pushRegr
-	// pushShifted: sums of products of values all shifted by provisional
-	// means, for weights and for engines without the updating aggregates.
+	// pushShifted: plain float8 sums of values and of products all
+	// shifted by provisional means, Σ(x−c) and Σ(x−c)(y−c′). The shifted
+	// values are computed once per row (see fence), so the aggregate costs
+	// little more than the bare sums of products; the updating aggregates
+	// cost half as much again.
 	pushShifted
 )
 
-// shiftRatio: a column is shifted when its provisional |mean| exceeds this
-// many standard deviations (the Youngs–Cramer error is about
-// ε·√n·|mean|/sd, so at most ~1e-10 relative for 10⁸ rows).
+// shiftRatio: under pushRegr, a column is shifted when its provisional
+// |mean| exceeds this many standard deviations (the Youngs–Cramer error is
+// about ε·√n·|mean|/sd, so at most ~1e-10 relative for 10⁸ rows).
 const shiftRatio = 100
 
 // pushdownShiftRows is how many complete rows the shift query averages.
@@ -44,6 +49,12 @@ const pushdownShiftRows = 1000
 // segment over the complete rows, and the per-column missing counts only
 // when rows were dropped. The server returns O(p²) numbers per group
 // whatever the number of rows.
+//
+// The aggregate first keeps the rows without NULLs, a test far cheaper than
+// two range comparisons per value. NaN and ±Infinity are rare in a table
+// and show in each group's min and max (PostgreSQL orders NaN above
+// +Infinity); only when one of them does is the aggregate run again over
+// the finite rows.
 func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connectors.Result, error) {
 	if req.QR || req.Extended {
 		return nil, fmt.Errorf("--pushdown returns cross-products, not the QR factor; scan without --pushdown for QR accuracy: %w", connectors.ErrUnsupported)
@@ -69,9 +80,9 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 	}
 	strategy := s.push
 	if strategy == pushAuto {
-		strategy = pushRegr
-		if s.version < 120000 || plan.Weight != nil {
-			strategy = pushShifted
+		strategy = pushShifted
+		if s.version >= 120000 && plan.Weight == nil && (plan.Time != nil || plan.Segment != nil) {
+			strategy = pushRegr
 		}
 	}
 	if strategy == pushRegr && plan.Weight != nil {
@@ -89,7 +100,7 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 		Partitions: 1,
 		Pushdown:   true,
 	}
-	groups := map[gkey]*connectors.Stats{}
+	rowsIn := map[gkey]int64{}
 	var order []gkey
 
 	// 1. Rows per group, rows without a time, inexact values.
@@ -108,9 +119,7 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 			res.NoTime += n
 			return nil
 		}
-		st := pd.newStats()
-		st.Dropped = n // until the aggregate says how many were used
-		groups[k] = st
+		rowsIn[k] = n
 		order = append(order, k)
 		return nil
 	})
@@ -121,28 +130,40 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 		return nil, err
 	}
 
-	// 2. The aggregate over complete rows.
+	// 2. The aggregate over complete rows: first over the rows without
+	// NULLs, again over the finite ones if a NaN or an infinity showed.
 	if err := pd.shift(ctx, tx, s, strategy == pushShifted); err != nil {
 		return nil, err
 	}
-	q := pd.shiftedSQL()
-	if strategy == pushRegr {
-		q = pd.regrSQL()
-	}
-	rows, err = tx.Query(ctx, q, pgx.QueryResultFormats{pgx.BinaryFormatCode})
-	if err != nil {
-		return nil, s.wrap(err, t.source)
-	}
-	err = forRows(rows, func(v []any) error {
-		k, _ := pd.key(v)
-		st := groups[k]
-		if st == nil {
-			return fmt.Errorf("aggregate returned a group the count did not: %v", k)
+	var groups map[gkey]*connectors.Stats
+	for _, cond := range []string{pd.notNull(), pd.ok()} {
+		groups = make(map[gkey]*connectors.Stats, len(order))
+		for _, k := range order {
+			st := pd.newStats()
+			st.Dropped = rowsIn[k] // until the aggregate says how many were used
+			groups[k] = st
 		}
-		return pd.fill(st, v[2:], strategy)
-	})
-	if err != nil {
-		return nil, s.wrap(err, t.source)
+		rows, err = tx.Query(ctx, pd.aggSQL(strategy, cond), pgx.QueryResultFormats{pgx.BinaryFormatCode})
+		if err != nil {
+			return nil, s.wrap(err, t.source)
+		}
+		err = forRows(rows, func(v []any) error {
+			k, _ := pd.key(v)
+			if v[2].(int64) == 0 {
+				return nil // an ungrouped aggregate over no rows
+			}
+			st := groups[k]
+			if st == nil {
+				return fmt.Errorf("aggregate returned a group the count did not: %v", k)
+			}
+			return pd.fill(st, v[2:], strategy)
+		})
+		if err != nil {
+			return nil, s.wrap(err, t.source)
+		}
+		if allFinite(groups) {
+			break
+		}
 	}
 
 	// 3. Missing counts, only when rows were dropped.
@@ -268,6 +289,41 @@ func (pd *push) ok() string {
 	return strings.Join(c, " AND ")
 }
 
+// notNull is the first, cheaper condition for a complete row: no NULL
+// value or weight, and a time. A NaN or an infinity passes it; allFinite
+// finds them afterwards. With a weight it is ok, as a weight's sign is not
+// in the aggregate's min and max.
+func (pd *push) notNull() string {
+	if pd.plan.Weight != nil {
+		return pd.ok()
+	}
+	var c []string
+	for j := 0; j < pd.p; j++ {
+		c = append(c, fmt.Sprintf("x%d IS NOT NULL", j))
+	}
+	if pd.plan.Time != nil {
+		c = append(c, "bk IS NOT NULL")
+	}
+	return strings.Join(c, " AND ")
+}
+
+// allFinite reports whether every value the aggregate folded in was finite:
+// a NaN makes a column's max NaN (PostgreSQL sorts it above +Infinity),
+// +Infinity its max and -Infinity its min.
+func allFinite(groups map[gkey]*connectors.Stats) bool {
+	for _, st := range groups {
+		if st.Used == 0 {
+			continue
+		}
+		for j := range st.Min {
+			if !(st.Min[j] > math.Inf(-1) && st.Max[j] < math.Inf(1)) {
+				return false
+			}
+		}
+	}
+	return true
+}
+
 // wok mirrors the stream package: a weight is usable when 0 ≤ w < +Inf
 // (NaN compares above +Inf in PostgreSQL, so it fails too).
 func (pd *push) wok() string { return "(w >= 0 AND w < 'Infinity'::float8)" }
@@ -278,28 +334,6 @@ func (pd *push) countSQL() string {
 		list = append(list, fmt.Sprintf("count(*) FILTER (WHERE f%d)", i))
 	}
 	return "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from() + " GROUP BY bk, sk"
-}
-
-func (pd *push) regrSQL() string {
-	list := []string{"bk", "sk", "count(*)"}
-	for j := 0; j < pd.p; j++ {
-		list = append(list, "avg("+pd.d(j)+")")
-	}
-	for i := 0; i < pd.p; i++ {
-		for j := i; j < pd.p; j++ {
-			list = append(list, "regr_sxy("+pd.d(i)+", "+pd.d(j)+")")
-		}
-	}
-	list = append(list, pd.minMax()...)
-	return "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from() + " WHERE " + pd.ok() + " GROUP BY bk, sk"
-}
-
-func (pd *push) minMax() []string {
-	var list []string
-	for j := 0; j < pd.p; j++ {
-		list = append(list, fmt.Sprintf("min(x%d)", j), fmt.Sprintf("max(x%d)", j))
-	}
-	return list
 }
 
 // shift takes provisional means and spreads from the first complete rows
@@ -331,34 +365,86 @@ func (pd *push) shift(ctx context.Context, tx pgx.Tx, s *Source, all bool) error
 	return nil
 }
 
-// d is column j as aggregated: shifted when it has a shift.
-func (pd *push) d(j int) string {
-	if pd.shiftBy[j] == 0 {
-		return fmt.Sprintf("x%d", j)
-	}
-	return fmt.Sprintf("(x%d - %s)", j, float8Literal(pd.shiftBy[j]))
-}
+// grouped reports whether the aggregate has groups: without a time or a
+// segment it has none, and no GROUP BY.
+func (pd *push) grouped() bool { return pd.plan.Time != nil || pd.plan.Segment != nil }
 
-func (pd *push) shiftedSQL() string {
-	d := pd.d
-	w := ""
-	list := []string{"bk", "sk", "count(*)"}
+// aggSQL is the aggregate over the rows meeting cond: per group the rows
+// used, the sums (Σ(x−c), or avg for pushRegr), the cross-products
+// (Σ(x−c)(y−c′), or regr_sxy) and each column's min and max.
+//
+// The shifted values are computed once per row, in a subquery that
+// PostgreSQL cannot flatten into the aggregate because its select list
+// calls a volatile function (clock_timestamp(), which is parallel safe, so
+// the parallel partial aggregation stays): flattened, every x − c would be
+// evaluated again in each of the p(p+1)/2 products, which costs more than
+// the products themselves. An engine that flattens it anyway computes the
+// same sums, only slower.
+func (pd *push) aggSQL(strategy pushStrategy, cond string) string {
+	sub := []string{"bk", "sk"}
 	if pd.plan.Weight != nil {
-		w = "w * "
-		list = append(list, "sum(w)")
-	} else {
-		list = append(list, "count(*)::float8")
+		sub = append(sub, "w")
 	}
+	fence := false
+	d := make([]string, pd.p)  // column j as aggregated
+	wd := make([]string, pd.p) // w·d_j under a weight
 	for j := 0; j < pd.p; j++ {
-		list = append(list, "sum("+w+d(j)+")")
-	}
-	for i := 0; i < pd.p; i++ {
-		for j := i; j < pd.p; j++ {
-			list = append(list, "sum("+w+d(i)+" * "+d(j)+")")
+		sub = append(sub, fmt.Sprintf("x%d", j))
+		d[j] = fmt.Sprintf("x%d", j)
+		e := d[j] // d_j in the subquery's own terms
+		if pd.shiftBy[j] != 0 {
+			e = fmt.Sprintf("(x%d - %s)", j, float8Literal(pd.shiftBy[j]))
+			sub = append(sub, e+fmt.Sprintf(" AS d%d", j))
+			d[j] = fmt.Sprintf("d%d", j)
+			fence = true
+		}
+		wd[j] = d[j]
+		if pd.plan.Weight != nil {
+			sub = append(sub, fmt.Sprintf("w * %s AS wd%d", e, j))
+			wd[j] = fmt.Sprintf("wd%d", j)
+			fence = true
 		}
 	}
-	list = append(list, pd.minMax()...)
-	return "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from() + " WHERE " + pd.ok() + " GROUP BY bk, sk"
+	if fence {
+		sub = append(sub, "clock_timestamp() AS plumb_fence")
+	}
+	list := []string{"NULL::timestamptz", "NULL::text", "count(*)"}
+	if pd.grouped() {
+		list[0], list[1] = "bk", "sk"
+	}
+	switch {
+	case strategy == pushRegr:
+		for j := 0; j < pd.p; j++ {
+			list = append(list, "avg("+d[j]+")")
+		}
+		for i := 0; i < pd.p; i++ {
+			for j := i; j < pd.p; j++ {
+				list = append(list, "regr_sxy("+d[i]+", "+d[j]+")")
+			}
+		}
+	default:
+		if pd.plan.Weight != nil {
+			list = append(list, "sum(w)")
+		} else {
+			list = append(list, "count(*)::float8")
+		}
+		for j := 0; j < pd.p; j++ {
+			list = append(list, "sum("+wd[j]+")")
+		}
+		for i := 0; i < pd.p; i++ {
+			for j := i; j < pd.p; j++ {
+				list = append(list, "sum("+wd[i]+" * "+d[j]+")")
+			}
+		}
+	}
+	for j := 0; j < pd.p; j++ {
+		list = append(list, fmt.Sprintf("min(x%d)", j), fmt.Sprintf("max(x%d)", j))
+	}
+	q := "SELECT " + strings.Join(list, ", ") + " FROM (SELECT " + strings.Join(sub, ", ") + " FROM " + pd.from() + " WHERE " + cond + ") AS s"
+	if pd.grouped() {
+		q += " GROUP BY bk, sk"
+	}
+	return q
 }
 
 func (pd *push) missingSQL() string {
