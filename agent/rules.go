@@ -30,7 +30,9 @@ import (
 //     (Mann–Kendall z ≥ 1.645) and reaches the critical level within the
 //     horizon: warning, saying when.
 //   - jump: the latest change of the log value is far outside the recent
-//     changes (robust z ≥ jump) and at least 10 %: warning.
+//     changes (robust z ≥ jump) and at least 25 %, in the band where it is
+//     news: the value before or after it at least half the warn level, the
+//     value after it under the warn level: warning.
 //   - blind: blind_after consecutive failed runs: warning, resolved by the
 //     next run that succeeds.
 //
@@ -56,6 +58,13 @@ const (
 	// changes little, so its point-to-point spread is tiny and the robust
 	// z alone would flag ordinary days; below 25 % a change is not news).
 	minJump = 0.25
+	// jumpBand is the fraction of the warn level from which a jump is
+	// news (common practice, no source). Near the metrics' floor of 1 a
+	// change of 25 % is a small change in collinearity — a VIF moving from
+	// 1.4 to 1.8 is an R² moving from 0.29 to 0.44 — and on windows of a
+	// few dozen rows one influential day entering or leaving does that.
+	// At or above the warn level the level rule speaks instead.
+	jumpBand = 0.5
 )
 
 // RuleState is what the rules remember between points.
@@ -290,13 +299,13 @@ func (r *Rules) findings(st *RuleState, open map[string]*Alert, o Observation) m
 
 	// Trends and jumps over the recent points and this one.
 	for _, m := range []struct {
-		metric string
-		v      float64
-		crit   float64
-		get    func(RecentPoint) float64
+		metric     string
+		v          float64
+		warn, crit float64
+		get        func(RecentPoint) float64
 	}{
-		{MetricCondition, o.ConditionNumber, l.Condition.Critical, func(p RecentPoint) float64 { return float64(p.Cond) }},
-		{MetricMaxVIF, o.MaxVIF, l.VIF.Critical, func(p RecentPoint) float64 { return float64(p.VIF) }},
+		{MetricCondition, o.ConditionNumber, l.Condition.Warn, l.Condition.Critical, func(p RecentPoint) float64 { return float64(p.Cond) }},
+		{MetricMaxVIF, o.MaxVIF, l.VIF.Warn, l.VIF.Critical, func(p RecentPoint) float64 { return float64(p.VIF) }},
 	} {
 		if !isFinite(m.v) || !(m.v > 0) || m.metric == MetricCondition && o.singular() {
 			continue
@@ -311,7 +320,7 @@ func (r *Rules) findings(st *RuleState, open map[string]*Alert, o Observation) m
 		if f, ok := r.trend(recent, m.get, o.At, m.v, m.metric, m.crit, values, remedy, o); ok && (trendOpen || m.v < m.crit) {
 			add(f)
 		}
-		if f, ok := r.jump(recent, m.get, o.At, m.v, m.metric, values, remedy, o); ok {
+		if f, ok := r.jump(recent, m.get, o.At, m.v, m.metric, m.warn, values, remedy, o); ok {
 			add(f)
 		}
 	}
@@ -358,7 +367,7 @@ func (r *Rules) trend(recent []RecentPoint, get func(RecentPoint) float64, at ti
 }
 
 func (r *Rules) jump(recent []RecentPoint, get func(RecentPoint) float64, at time.Time, v float64, metric string,
-	values map[string]float64, remedy string, o Observation) (finding, bool) {
+	warn float64, values map[string]float64, remedy string, o Observation) (finding, bool) {
 	if len(recent) == 0 {
 		return finding{}, false
 	}
@@ -371,6 +380,9 @@ func (r *Rules) jump(recent []RecentPoint, get func(RecentPoint) float64, at tim
 	}
 	prev := get(recent[len(recent)-1])
 	if len(changes) < minJumpChanges || !(prev > 0) || !isFinite(prev) {
+		return finding{}, false
+	}
+	if math.Max(prev, v) < jumpBand*warn || v >= warn {
 		return finding{}, false
 	}
 	d := math.Log(v / prev)

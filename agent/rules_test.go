@@ -263,6 +263,46 @@ func TestJump(t *testing.T) {
 	}
 }
 
+// TestJumpBand checks that a jump is judged only from half the warn level
+// up to it: the same +50 % near the floor of the metric, or above the warn
+// level (where the level rule speaks), opens no jump; a drop from within
+// the band does. Levels are the rule's design (warn 15 in testLimits).
+func TestJumpBand(t *testing.T) {
+	jumps := func(start, factor float64) (string, []Change) {
+		t.Helper()
+		s := newStepper(t, testLimits())
+		vals := drifting(start, 0, 10)
+		for _, v := range vals {
+			s.step(cond(v))
+		}
+		ch := s.step(cond(vals[9] * factor))
+		var out []Change
+		for _, c := range ch {
+			if c.Alert.Rule == RuleJump {
+				out = append(out, c)
+			}
+		}
+		return events(out), out
+	}
+	// 3 → 4.5 stays under half the warn level (7.5).
+	if got, _ := jumps(3, 1.5); got != "" {
+		t.Errorf("a jump near the floor alerted: %s", got)
+	}
+	// 16 → 24 is above the warn level: the level alert covers it.
+	if got, _ := jumps(16, 1.5); got != "" {
+		t.Errorf("a jump above the warn level alerted: %s", got)
+	}
+	// 6 → 9 lands within the band.
+	if got, _ := jumps(6, 1.5); got != "jump:condition_number:opened:warning" {
+		t.Errorf("a jump into the band: %q", got)
+	}
+	// 12 → 6: a drop from within the band.
+	got, ch := jumps(12, 0.5)
+	if got != "jump:condition_number:opened:warning" || !strings.Contains(ch[0].Alert.Message, "dropped from") {
+		t.Errorf("a drop from the band: %q", got)
+	}
+}
+
 func TestBlind(t *testing.T) {
 	r := &Rules{Watch: "district_daily", Limits: testLimits()}
 	open := map[string]*Alert{}
