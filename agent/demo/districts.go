@@ -2,12 +2,20 @@
 // demand feature table per supply district. The data are invented, drawn
 // from a fixed seed, and carry three stories that plumb should notice:
 //
-//   - metered and billed volume converge as smart meters roll out, so their
+//   - metered and billed volume converge as smart meters roll out (half of
+//     the accounts are billed on a reading around RolloutDay), so their
 //     VIFs drift upward day after day;
 //   - from ChangeDay on, an upstream change writes total_connections as the
 //     exact sum of residential and commercial connections (before it, the
 //     total also counted a varying number of other connections);
 //   - the pressure sensor of one district sticks from StuckDay on.
+//
+// Apart from these stories the columns are not collinear, within a
+// district or with the districts pooled: the districts are laid out to a
+// similar size (as district metered areas usually are; common practice,
+// no source), so that their level differences do not turn the pooled
+// table's district-level columns into copies of one another, and where
+// they differ they differ along orthogonal contrasts.
 package demo
 
 import (
@@ -33,6 +41,7 @@ type Scenario struct {
 	Start         time.Time // first day (UTC)
 	Days          int
 	Districts     []string
+	RolloutDay    int // day index by which half of the accounts are billed on a meter reading
 	ChangeDay     int // day index from which total_connections is an exact sum
 	StuckDay      int // day index from which StuckDistrict's pressure is constant
 	StuckDistrict string
@@ -44,6 +53,7 @@ var Default = Scenario{
 	Start:         time.Date(2026, 6, 1, 0, 0, 0, 0, time.UTC),
 	Days:          120,
 	Districts:     []string{"harbour", "hillside", "northfield", "riverside"},
+	RolloutDay:    62,
 	ChangeDay:     70,
 	StuckDay:      85,
 	StuckDistrict: "hillside",
@@ -66,21 +76,27 @@ type Row struct {
 	DemandM3               float64
 }
 
+// contrasts place the districts' levels: the centered columns of this
+// 4×3 pattern are orthogonal, so that pooled over four districts the
+// level differences of different columns are uncorrelated.
+var contrasts = [4][3]float64{{1, 1, -1}, {1, -1, 1}, {-1, 1, 1}, {-1, -1, -1}}
+
 // Rows generates the scenario's rows, day by day, districts in order.
 func (s Scenario) Rows() []Row {
 	rng := rand.New(rand.NewPCG(s.Seed, s.Seed^0x9e3779b97f4a7c15))
 	type district struct {
-		pop, growth, res, com, age, pressure float64
+		res, com, perConn, growth, age, pressure float64
 	}
 	ds := make([]district, len(s.Districts))
 	for i := range ds {
+		c := contrasts[i%len(contrasts)]
 		ds[i] = district{
-			pop:      18000 + 9000*rng.Float64(),
-			growth:   0.5 + 1.5*rng.Float64(),
-			res:      7000 + 3000*rng.Float64(),
-			com:      300 + 400*rng.Float64(),
-			age:      15 + 30*rng.Float64(),
-			pressure: 3.2 + 0.8*rng.Float64(),
+			res:      8000 + 35*c[0] + 10*rng.NormFloat64(),
+			com:      500 + 15*c[1] + 5*rng.NormFloat64(),
+			perConn:  2.6 + 0.1*c[2] + 0.02*rng.NormFloat64(), // people per residential connection
+			growth:   3 + 1.5*rng.Float64(),                   // new residential connections a day
+			age:      30 + 8*c[1] + 2*rng.NormFloat64(),
+			pressure: 3.5 + 0.15*c[2] + 0.03*rng.NormFloat64(),
 		}
 	}
 	round1 := func(x float64) float64 { return math.Round(x*10) / 10 }
@@ -99,7 +115,7 @@ func (s Scenario) Rows() []Row {
 		}
 		// Smart meters roll out over the period: the share of accounts
 		// billed on a real reading rather than an estimate.
-		rollout := 0.2 + 0.795/(1+math.Exp(-(float64(d)-62)/11))
+		rollout := 0.2 + 0.795/(1+math.Exp(-(float64(d)-float64(s.RolloutDay))/8))
 		for i, name := range s.Districts {
 			x := &ds[i]
 			// Mains renewal now and then lowers the network's mean age.
@@ -107,12 +123,16 @@ func (s Scenario) Rows() []Row {
 			if rng.Float64() < 0.08 {
 				x.age -= 0.05 + 0.25*rng.Float64()
 			}
-			pop := x.pop + x.growth*float64(d) + 120*rng.NormFloat64()
-			res := math.Round(x.res + 0.3*float64(d) + 40*rng.NormFloat64())
+			// Active connections move from day to day as accounts open,
+			// close and are disconnected.
+			res := math.Round(x.res + x.growth*float64(d) + 40*rng.NormFloat64())
 			com := math.Round(x.com + 20*rng.NormFloat64())
+			pop := res*x.perConn + 60*rng.NormFloat64()
 			total := res + com
 			if d < s.ChangeDay {
-				total += math.Round(90 + 30*rng.NormFloat64()) // other connections, no longer counted after the change
+				// Other connections (standpipes, building sites), no
+				// longer counted after the change.
+				total += math.Max(0, math.Round(60+45*rng.NormFloat64()))
 			}
 			temp := round1(baseTemp + 0.8*rng.NormFloat64())
 			rainfall := math.Max(0, rain*(0.7+0.6*rng.Float64()))
@@ -124,7 +144,7 @@ func (s Scenario) Rows() []Row {
 			if name == s.StuckDistrict && d >= s.StuckDay {
 				pressure = 3.415
 			}
-			metered := pop*0.145 + 95*(temp-15) - 22*rainfall + 260*rng.NormFloat64()
+			metered := pop*0.145 + 60*(temp-15) - 10*rainfall + 300*rng.NormFloat64()
 			estimate := metered*(0.9+0.08*rng.NormFloat64()) + 500*rng.NormFloat64()
 			billed := rollout*metered*(1+0.004*rng.NormFloat64()) + (1-rollout)*estimate
 			leak := 18*x.age + 260*(pressure-3.5)

@@ -26,7 +26,8 @@ func rowValues(r Row) []float64 {
 		r.MeteredVolumeM3, r.BilledVolumeM3}
 }
 
-// window analyzes one district's rows of days [from, to).
+// window analyzes one district's rows of days [from, to), or every
+// district's when district is "".
 func window(t *testing.T, rows []Row, district string, from, to int, cols []string) *diagnostics.Report {
 	t.Helper()
 	m := stream.NewMoments(features)
@@ -34,7 +35,7 @@ func window(t *testing.T, rows []Row, district string, from, to int, cols []stri
 	b := stream.NewBlock(len(features), 64, false)
 	for _, r := range rows {
 		d := int(r.Day.Sub(Default.Start).Hours() / 24)
-		if r.District != district || d < from || d >= to {
+		if district != "" && r.District != district || d < from || d >= to {
 			continue
 		}
 		vals, _ := b.AppendRow()
@@ -115,5 +116,54 @@ func TestWriteSQLite(t *testing.T) {
 	}
 	if n != Default.Days*len(Default.Districts) || sum-want > 1e-6*want || want-sum > 1e-6*want {
 		t.Errorf("%d rows, demand sum %v; want %d and %v", n, sum, Default.Days*len(Default.Districts), want)
+	}
+}
+
+// TestQuietOutsideStories checks that, apart from its stories, the
+// scenario is not collinear on the column sets of plumb demo's watches:
+// pooled over the districts (a whole-table watch) and within each one.
+// VIF 5 is the common-practice "worth a look" level (no source).
+func TestQuietOutsideStories(t *testing.T) {
+	s := Default
+	rows := s.Rows()
+	cases := []struct {
+		name     string
+		cols     []string
+		segments []string
+		window   int
+		to       int // last day (exclusive) of the windows checked
+	}{
+		// Before the meters converge.
+		{"volumes", []string{"temperature_c", "rainfall_mm", "metered_volume_m3", "billed_volume_m3"}, []string{""}, 14, s.RolloutDay - 10},
+		// Before the change day.
+		{"connections", []string{"residential_connections", "commercial_connections", "total_connections"}, []string{""}, 28, s.ChangeDay},
+		// Before the sensor sticks, within each district and pooled.
+		{"demand", []string{"temperature_c", "rainfall_mm", "pressure_bar", "metered_volume_m3"}, append([]string{""}, s.Districts...), 28, s.StuckDay},
+	}
+	for _, c := range cases {
+		for _, seg := range c.segments {
+			worst := 0.0
+			for end := c.window; end <= c.to; end++ {
+				rep := window(t, rows, seg, end-c.window, end, c.cols)
+				if rep.Rank != len(c.cols)+1 {
+					t.Errorf("%s %q days %d-%d: rank %d", c.name, seg, end-c.window, end-1, rep.Rank)
+				}
+				for _, col := range c.cols {
+					worst = max(worst, vifOf(t, rep, col))
+				}
+			}
+			if worst >= 5 {
+				t.Errorf("%s %q: max VIF %.3g on a full window before its story; want under 5", c.name, seg, worst)
+			}
+		}
+	}
+	// The stories themselves, pooled: the volumes converge and the total
+	// becomes exact in the whole table too.
+	vols := cases[0].cols
+	if v := vifOf(t, window(t, rows, "", s.Days-14, s.Days, vols), "billed_volume_m3"); v < 30 {
+		t.Errorf("pooled billed volume VIF %.3g in the last two weeks: want above 30", v)
+	}
+	if rep := window(t, rows, "", s.ChangeDay, s.ChangeDay+28, cases[1].cols); rep.Rank != 3 {
+		t.Errorf("pooled connections after the change: rank %d, want 3 of 4", rep.Rank)
 	}
 }

@@ -7,6 +7,7 @@ import (
 	"io"
 	"io/fs"
 	"log/slog"
+	"math"
 	"os"
 	"path/filepath"
 	"sort"
@@ -22,23 +23,70 @@ import (
 	"plumb/agent/web"
 )
 
-// demoConfigYAML is the configuration `plumb demo` writes: three watches over
-// the scenario's table. The condition limits are set for this table: with
-// the intercept included and columns whose means are far from zero (a
-// district's population, its connections), the uncentered condition
-// number starts in the hundreds, so the rule-of-thumb 15/30 would mark
-// every day critical. VIF limits are the common-practice 5 and 10.
+// demoConfigYAML is the configuration `plumb demo` writes: one watch per
+// story, each on the columns the story is about, so that each is told once
+// and nothing else in the table cries wolf. The reasons for the limits are
+// in the YAML's comments, which the user reads.
 const demoConfigYAML = `# Written by plumb demo. Edit freely; plumb config check --config %[3]s explains it.
+#
+# Condition-number limits: plumb's condition number is that of [1 X] with
+# each column scaled to unit length but not centered, so a column whose
+# spread is small beside its mean (a district's connections, ~8000 +- 40)
+# is nearly a multiple of the intercept and lifts it far above the 15/30
+# rule of thumb, which is meant for centered or well-spread columns. The
+# levels below are set per watch at about 2.5 to 3 times what this table
+# shows on ordinary days once a window is full (the pooled volumes 28-42,
+# the pooled connections 320-490, one district's demand regression 75-135),
+# so that they speak only when a dependency forms. VIF limits are the common-practice 5 and 10.
 store: sqlite:%[1]s
 sources:
   districts: sqlite:%[2]s
 notifiers:
   log: {log: true}
 watches:
-  # The whole feature table, with the regression the analysts fit.
+  # Consumption signals, all districts pooled: metered and billed volume
+  # converge as smart meters roll out (one utility-wide rollout, so the
+  # watch is not segmented: the story is told once).
+  - name: district_volumes
+    source: districts
+    table: district_daily
+    columns: [temperature_c, rainfall_mm, metered_volume_m3, billed_volume_m3]
+    time_column: day
+    bucket: day
+    window: 14 buckets
+    lookback: 3 buckets
+    schedule: "15 6 * * *"
+    limits:
+      vif: {warn: 5, critical: 10}
+      condition: {warn: %[4]s, critical: %[5]s}
+      horizon: 14d
+    notify: [log]
+  # Connection counts, all districts pooled: an upstream change makes the
+  # total the exact sum of its parts. An exact dependency shows once the
+  # whole 28-day window lies after the change.
+  - name: district_connections
+    source: districts
+    table: district_daily
+    columns: [residential_connections, commercial_connections, total_connections]
+    time_column: day
+    bucket: day
+    window: 28 buckets
+    lookback: 3 buckets
+    schedule: "15 6 * * *"
+    limits:
+      vif: {warn: 5, critical: 10}
+      condition: {warn: %[6]s, critical: %[7]s}
+      horizon: 14d
+    notify: [log]
+  # The demand regression the analysts fit per district, on the columns
+  # that move within a district from day to day (population, connections
+  # and pipe age barely do over two weeks: per district they would only
+  # measure the intercept again). A stuck pressure sensor makes its column
+  # constant in that district's segment; a 14-day window sees it sooner.
   - name: district_daily
     source: districts
     table: district_daily
+    columns: [temperature_c, rainfall_mm, pressure_bar, metered_volume_m3]
     target: demand_m3
     time_column: day
     bucket: day
@@ -48,43 +96,14 @@ watches:
     schedule: "15 6 * * *"
     limits:
       vif: {warn: 5, critical: 10}
-      condition: {warn: 3000, critical: 10000}
-      horizon: 14d
-    notify: [log]
-  # Consumption signals: metered and billed volume converge as smart
-  # meters roll out.
-  - name: district_volumes
-    source: districts
-    table: district_daily
-    columns: [temperature_c, rainfall_mm, population_served, metered_volume_m3, billed_volume_m3]
-    time_column: day
-    bucket: day
-    window: 28 buckets
-    lookback: 3 buckets
-    segment_by: district
-    schedule: "15 6 * * *"
-    limits:
-      vif: {warn: 5, critical: 10}
-      condition: {warn: 1000, critical: 3000}
-      horizon: 14d
-    notify: [log]
-  # Connection counts: an upstream change makes the total an exact sum.
-  - name: district_connections
-    source: districts
-    table: district_daily
-    columns: [residential_connections, commercial_connections, total_connections, pipe_age_years, pressure_bar]
-    time_column: day
-    bucket: day
-    window: 28 buckets
-    lookback: 3 buckets
-    segment_by: district
-    schedule: "15 6 * * *"
-    limits:
-      vif: {warn: 5, critical: 10}
-      condition: {warn: 3000, critical: 10000}
+      condition: {warn: %[8]s, critical: %[9]s}
       horizon: 14d
     notify: [log]
 `
+
+// demoLimits are the condition-number levels of the demo's watches
+// (warn, critical), in the order of demoConfigYAML.
+var demoLimits = []string{"100", "300", "1000", "3000", "400", "1500"}
 
 // demoFiles are the files plumb demo owns in its folder.
 var demoFiles = []string{"districts.db", "state.db", "plumb.yaml"}
@@ -162,7 +181,7 @@ func runDemo(ctx context.Context, stdout, stderr io.Writer, sc demo.Scenario, di
 	if err := sc.WriteSQLite(ctx, dbPath); err != nil {
 		return err
 	}
-	if err := os.WriteFile(cfgPath, []byte(fmt.Sprintf(demoConfigYAML, statePath, dbPath, cfgPath)), 0o644); err != nil {
+	if err := os.WriteFile(cfgPath, []byte(fmt.Sprintf(demoConfigYAML, demoConfigArgs(statePath, dbPath, cfgPath)...)), 0o644); err != nil {
 		return fmt.Errorf("demo configuration: %w", err)
 	}
 	c, err := loadConfig(cfgPath, true)
@@ -205,47 +224,231 @@ func runDemo(ctx context.Context, stdout, stderr io.Writer, sc demo.Scenario, di
 	return serveDashboard(ctx, stdout, st, c, listen, log)
 }
 
-// demoReport prints each watch's latest state and the alerts the backfill
-// recorded, in the order of the data days that raised them.
+// demoReport prints each watch's latest state, what plumb noticed (one
+// line per watch, segment and rule) and, per story of the scenario, when
+// plumb noticed it against when it happened in the data. Days are the
+// scenario's day numbers (day 0 is its first day); a window is dated by
+// its last day.
 func demoReport(ctx context.Context, w io.Writer, st agent.Store, c *config.Config, sc demo.Scenario) error {
 	tw := tabwriter.NewWriter(w, 2, 4, 2, ' ', 0)
 	fmt.Fprintln(tw, "watch\twindows\tlast condition number\tlast max VIF\trank")
+	points := map[string][]agent.Point{}
 	for _, wt := range c.Watches {
-		ps, err := st.Points(ctx, wt.Name, agent.PointQuery{})
+		ps, err := st.Points(ctx, wt.Name, agent.PointQuery{AllSegs: true})
 		if err != nil {
 			return err
 		}
-		if len(ps) == 0 {
+		points[wt.Name] = ps
+		var whole []agent.Point
+		for _, p := range ps {
+			if p.Segment == "" {
+				whole = append(whole, p)
+			}
+		}
+		if len(whole) == 0 {
 			fmt.Fprintf(tw, "%s\t0\t\t\t\n", wt.Name)
 			continue
 		}
-		last := ps[len(ps)-1]
+		last := whole[len(whole)-1]
 		vif := fmtNum(last.MaxVIF)
 		if last.MaxVIFColumn != "" {
 			vif += " (" + last.MaxVIFColumn + ")"
 		}
-		fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t%d of %d\n", wt.Name, len(ps), fmtNum(last.ConditionNumber), vif, last.Rank, last.Columns+1)
+		fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t%d of %d\n", wt.Name, len(whole), fmtNum(last.ConditionNumber), vif, last.Rank, last.Columns+1)
 	}
 	tw.Flush()
 	alerts, err := st.Alerts(ctx, agent.AlertQuery{})
 	if err != nil {
 		return err
 	}
-	sort.SliceStable(alerts, func(i, j int) bool { return alerts[i].AsOf.Before(alerts[j].AsOf) })
-	fmt.Fprintf(w, "\nWhen plumb would have alerted (%d alerts; day = the data day that raised it):\n", len(alerts))
+	day := func(at time.Time) int { return int(at.Sub(sc.Start).Hours()/24) - 1 } // a window's last day
+	date := func(d int) string { return sc.Start.AddDate(0, 0, d).Format(time.DateOnly) }
+	// A watch's first windows hold fewer buckets than its window: their
+	// few rows inflate VIFs by chance. Their alerts are counted apart.
+	var settled, warmup []agent.Alert
+	lastWarm := -1
 	for _, a := range alerts {
-		where := a.Watch
-		if a.Segment != "" {
-			where += "/" + a.Segment
+		if wt := c.Watch(a.Watch); wt != nil && a.Rule != agent.RuleBlind && day(a.AsOf) < wt.Window.Buckets-1 {
+			warmup = append(warmup, a)
+			if !a.Open() {
+				lastWarm = max(lastWarm, day(a.ResolvedAsOf))
+			} else {
+				lastWarm = math.MaxInt
+			}
+			continue
+		}
+		settled = append(settled, a)
+	}
+	groups := groupAlerts(settled)
+	fmt.Fprintf(w, "\nWhat plumb noticed (%d alerts; day = the last data day of the window that raised it, day 0 = %s):\n",
+		len(alerts), date(0))
+	if len(warmup) > 0 {
+		state := "one is still open"
+		if lastWarm < math.MaxInt {
+			state = fmt.Sprintf("all resolved by day %d", lastWarm)
+		}
+		fmt.Fprintf(w, "  %d alert(s) on the first windows, before they held a full window of rows (few rows inflate VIFs by chance): %s\n",
+			len(warmup), state)
+	}
+	tw = tabwriter.NewWriter(w, 2, 4, 2, ' ', 0)
+	for _, g := range groups {
+		where := g.watch
+		if g.segment != "" {
+			where += "/" + g.segment
 		}
 		state := "still open"
-		if !a.Open() {
-			state = "resolved " + a.ResolvedAt.UTC().Format(time.DateOnly)
+		if !g.open {
+			state = fmt.Sprintf("resolved day %d", day(g.resolved))
 		}
-		day := int(a.AsOf.Sub(sc.Start).Hours()/24) + 1
-		fmt.Fprintf(w, "  day %3d %s  %-8s %-8s %s: %s (%s)\n", day, a.AsOf.UTC().Format(time.DateOnly), a.Severity, a.Rule, where,
-			strings.TrimSpace(a.Message), state)
+		times := ""
+		if g.count > 1 {
+			times = fmt.Sprintf(" (opened %d times)", g.count)
+		}
+		fmt.Fprintf(tw, "  %s\t%s\tday %d\t%s\t%s%s\t%s\n", where, g.rule, day(g.first.AsOf), g.severity, state, times,
+			strings.TrimPrefix(strings.TrimSpace(g.first.Message), "segment "+g.segment+": "))
+	}
+	tw.Flush()
+
+	fmt.Fprintln(w, "\nThe stories in the data, and when plumb noticed them:")
+	for _, line := range demoStories(c, sc, points, settled, day) {
+		fmt.Fprintln(w, "  "+line)
 	}
 	fmt.Fprintf(w, "\n%s\n", caution)
 	return nil
+}
+
+// alertGroup is the alerts of one watch, segment and rule.
+type alertGroup struct {
+	watch, segment string
+	rule           agent.Rule
+	first          agent.Alert // the earliest opened
+	severity       agent.Severity
+	count          int
+	open           bool
+	resolved       time.Time // data time of the last resolution, when none is open
+}
+
+// groupAlerts folds alerts into one group per watch, segment and rule, in
+// the order of the data days they first opened.
+func groupAlerts(alerts []agent.Alert) []alertGroup {
+	sort.SliceStable(alerts, func(i, j int) bool { return alerts[i].AsOf.Before(alerts[j].AsOf) })
+	var out []alertGroup
+	index := map[string]int{}
+	for _, a := range alerts {
+		k := a.Watch + "\x00" + a.Segment + "\x00" + string(a.Rule)
+		i, ok := index[k]
+		if !ok {
+			i = len(out)
+			index[k] = i
+			out = append(out, alertGroup{watch: a.Watch, segment: a.Segment, rule: a.Rule, first: a, severity: a.Severity})
+		}
+		g := &out[i]
+		g.count++
+		if a.Severity == agent.Critical {
+			g.severity = agent.Critical
+		}
+		if a.Open() {
+			g.open = true
+		} else if a.ResolvedAsOf.After(g.resolved) {
+			g.resolved = a.ResolvedAsOf
+		}
+	}
+	return out
+}
+
+// demoStories says, per story of the scenario, when it happened in the
+// data and when plumb noticed it.
+func demoStories(c *config.Config, sc demo.Scenario, points map[string][]agent.Point, alerts []agent.Alert, day func(time.Time) int) []string {
+	firstAlert := func(watch, segment string, rule agent.Rule, subject string) (agent.Alert, bool) {
+		var best agent.Alert
+		found := false
+		for _, a := range alerts {
+			if a.Watch == watch && a.Segment == segment && a.Rule == rule && (subject == "" || a.Subject == subject) &&
+				(!found || a.AsOf.Before(best.AsOf)) {
+				best, found = a, true
+			}
+		}
+		return best, found
+	}
+	firstAbove := func(watch, segment string, level float64) (int, bool) {
+		full := 0
+		if wt := c.Watch(watch); wt != nil {
+			full = wt.Window.Buckets - 1
+		}
+		for _, p := range points[watch] {
+			if p.Segment == segment && day(p.At) >= full && p.MaxVIF >= level {
+				return day(p.At), true
+			}
+		}
+		return 0, false
+	}
+	window := func(watch string) int {
+		if wt := c.Watch(watch); wt != nil {
+			return wt.Window.Buckets
+		}
+		return 0
+	}
+	var out []string
+
+	// Smart meters: the trend warning, then the levels.
+	s := fmt.Sprintf("smart meters: half of the accounts billed on a reading by day %d; district_volumes", sc.RolloutDay)
+	var parts []string
+	if a, ok := firstAlert("district_volumes", "", agent.RuleTrend, ""); ok {
+		parts = append(parts, fmt.Sprintf("trend warning on day %d", day(a.AsOf)))
+	}
+	if wt := c.Watch("district_volumes"); wt != nil {
+		if d, ok := firstAbove(wt.Name, "", wt.Limits.VIF.Warn); ok {
+			parts = append(parts, fmt.Sprintf("max VIF at the warn level %s on day %d", fmtNum(wt.Limits.VIF.Warn), d))
+		}
+		if d, ok := firstAbove(wt.Name, "", wt.Limits.VIF.Critical); ok {
+			parts = append(parts, fmt.Sprintf("critical level %s crossed on day %d", fmtNum(wt.Limits.VIF.Critical), d))
+		}
+	}
+	if len(parts) == 0 {
+		parts = append(parts, "nothing noticed")
+	}
+	out = append(out, s+": "+strings.Join(parts, ", ")+".")
+
+	// The exact total.
+	s = fmt.Sprintf("exact total: from day %d total_connections is the sum of its parts; district_connections", sc.ChangeDay)
+	if a, ok := firstAlert("district_connections", "", agent.RuleExact, ""); ok {
+		s += fmt.Sprintf(" reports the exact dependency on day %d", day(a.AsOf))
+		if n := window("district_connections"); n > 0 {
+			s += fmt.Sprintf(", the first %d-day window wholly after the change (day %d+%d)", n, sc.ChangeDay, n-1)
+		}
+		if eq := a.Detail.Equation; eq != "" {
+			s += ": " + eq
+		}
+		if l, ok := firstAlert("district_connections", "", agent.RuleLevel, ""); ok && l.AsOf.Before(a.AsOf) {
+			s += fmt.Sprintf("; the near dependency reached the VIF warn level on day %d", day(l.AsOf))
+		}
+		s += "."
+	} else {
+		s += ": not noticed."
+	}
+	out = append(out, s)
+
+	// The stuck sensor.
+	s = fmt.Sprintf("stuck sensor: %s's pressure reads 3.415 from day %d; district_daily/%s", sc.StuckDistrict, sc.StuckDay, sc.StuckDistrict)
+	if a, ok := firstAlert("district_daily", sc.StuckDistrict, agent.RuleConstant, "pressure_bar"); ok {
+		s += fmt.Sprintf(" reports pressure_bar constant on day %d", day(a.AsOf))
+		if n := window("district_daily"); n > 0 {
+			s += fmt.Sprintf(", the first %d-day window wholly after it (day %d+%d)", n, sc.StuckDay, n-1)
+		}
+		if l, ok := firstAlert("district_daily", sc.StuckDistrict, agent.RuleLevel, ""); ok && l.AsOf.Before(a.AsOf) && day(l.AsOf) >= sc.StuckDay {
+			s += fmt.Sprintf("; its condition number passed the levels from day %d, as the last varying readings left the window", day(l.AsOf))
+		}
+		s += "."
+	} else {
+		s += ": not noticed."
+	}
+	return append(out, s)
+}
+
+func demoConfigArgs(statePath, dbPath, cfgPath string) []any {
+	args := []any{statePath, dbPath, cfgPath}
+	for _, l := range demoLimits {
+		args = append(args, l)
+	}
+	return args
 }

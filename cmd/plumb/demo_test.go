@@ -7,6 +7,8 @@ import (
 	"net/http"
 	"os"
 	"path/filepath"
+	"regexp"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -26,13 +28,47 @@ func TestDemoThenServe(t *testing.T) {
 			t.Errorf("demo did not write %s: %v", f, err)
 		}
 	}
-	// The scenario's upstream change on day 70 (2026-08-10) makes the
-	// total an exact sum: the report must show the exact alert on that
-	// data day, and the stuck hillside sensor from day 85 (2026-08-25).
-	for _, want := range []string{"exact", "2026-08-", "hillside", "constant", "omitted-variable bias"} {
+	// Each story once, at the day the data make possible: the volumes'
+	// trend warning before their critical level; the exact total on day 97,
+	// the first 28-day window wholly after the change of day 70; the stuck
+	// hillside sensor on day 112, the first 28-day window after day 85.
+	for _, want := range []string{
+		"smart meters: half of the accounts billed on a reading by day 62; district_volumes: trend warning on day ",
+		"district_connections reports the exact dependency on day 97",
+		"total_connections = 1·residential_connections + 1·commercial_connections + 0",
+		"district_daily/hillside reports pressure_bar constant on day 112",
+		"omitted-variable bias",
+	} {
 		if !strings.Contains(out, want) {
 			t.Errorf("demo report lacks %q:\n%s", want, out)
 		}
+	}
+	if m := regexp.MustCompile(`trend warning on day (\d+), .*critical level 10 crossed on day (\d+)`).FindStringSubmatch(out); m == nil {
+		t.Errorf("smart-meter story lacks the trend warning or the critical level:\n%s", out)
+	} else if tr, _ := strconv.Atoi(m[1]); tr >= must(strconv.Atoi(m[2])) {
+		t.Errorf("trend warning on day %s, critical on day %s: want the warning first", m[1], m[2])
+	}
+	// Short: one line per watch, segment and rule, and each is one of the
+	// stories (the first windows' alerts are summed up in one line).
+	stories := map[string]bool{
+		"district_volumes trend": true, "district_volumes level": true,
+		"district_connections level": true, "district_connections trend": true, "district_connections exact": true,
+		"district_daily/hillside level": true, "district_daily/hillside constant": true,
+	}
+	_, section, _ := strings.Cut(out, "What plumb noticed")
+	section, _, _ = strings.Cut(section, "The stories in the data")
+	lines := strings.Split(strings.TrimSpace(section), "\n")[1:]
+	for _, l := range lines {
+		f := strings.Fields(l)
+		if len(f) < 2 || strings.Contains(l, "on the first windows") {
+			continue
+		}
+		if !stories[f[0]+" "+f[1]] {
+			t.Errorf("report line outside the stories: %q", l)
+		}
+	}
+	if len(lines) > len(stories)+2 {
+		t.Errorf("%d report lines, want at most %d:\n%s", len(lines), len(stories)+2, section)
 	}
 	// Running it again replaces its own files.
 	if code, _, errs := runCLI(t, "demo", "--dir", dir, "--no-serve", "--start", "2026-06-01"); code != 0 {
@@ -100,4 +136,11 @@ func TestServeRefusesOpenAddressWithoutToken(t *testing.T) {
 	if code != exitUsage || !strings.Contains(errs, "PLUMB_HTTP_TOKEN") {
 		t.Errorf("exit %d, stderr %q: want a usage error naming PLUMB_HTTP_TOKEN", code, errs)
 	}
+}
+
+func must(v int, err error) int {
+	if err != nil {
+		panic(err)
+	}
+	return v
 }

@@ -6,6 +6,7 @@ import (
 	"io"
 	"math"
 	"os"
+	"path/filepath"
 	"strings"
 	"time"
 
@@ -13,6 +14,8 @@ import (
 	"golang.org/x/term"
 
 	"plumb/agent"
+	"plumb/agent/web"
+	"plumb/agent/web/storeview"
 )
 
 // historyPoint is one entry of `plumb history --format json` (an outside
@@ -28,20 +31,35 @@ type historyPoint struct {
 
 func newHistoryCmd() *cobra.Command {
 	var (
-		path, format, segment string
-		limit                 int
+		path, format, segment, plot string
+		limit                       int
 	)
 	cmd := &cobra.Command{
-		Use:   "history WATCH [--config FILE] [--format text|json]",
+		Use:   "history WATCH [--config FILE] [--format text|json] [--plot FILE.svg|FILE.png]",
 		Short: "Show a watch's timeline of condition number, max VIF, rank and rows",
 		Long: `history prints the watch's points, oldest first: for each window end (or run
 time, without buckets) the condition number, the largest VIF and its column,
 the rank of [1 X] and the rows used. Undefined values (a singular design) are
-null in JSON. On a terminal the text form ends with sparklines.`,
+null in JSON. On a terminal the text form ends with sparklines.
+
+With --plot it writes instead the dashboard's timeline chart of the watch (or
+of --segment) to a file: condition number and max VIF with the warn and
+critical levels and the trend forecast, as SVG or PNG after the file's
+extension.`,
+		Example: `  plumb history district_volumes --config plumb.yaml
+  plumb history district_daily --segment hillside --plot hillside.svg
+  plumb history district_volumes --plot volumes.png`,
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if format != "text" && format != "json" {
 				return usagef("--format %q: want text or json", format)
+			}
+			if plot != "" {
+				ext := strings.ToLower(filepath.Ext(plot))
+				if ext != ".svg" && ext != ".png" {
+					return usagef("--plot %q: want a file name ending in .svg or .png", plot)
+				}
+				return runHistoryPlot(cmd, cmd.OutOrStdout(), path, args[0], segment, plot)
 			}
 			return runHistory(cmd, cmd.OutOrStdout(), path, args[0], segment, limit, format)
 		},
@@ -50,6 +68,7 @@ null in JSON. On a terminal the text form ends with sparklines.`,
 	cmd.Flags().StringVar(&format, "format", "text", "output format: text or json")
 	cmd.Flags().StringVar(&segment, "segment", "", "a segment's history instead of the whole table's")
 	cmd.Flags().IntVar(&limit, "limit", 0, "only the latest N points")
+	cmd.Flags().StringVar(&plot, "plot", "", "write the timeline chart to this .svg or .png file instead")
 	return cmd
 }
 
@@ -103,6 +122,52 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 		}
 		fmt.Fprintf(stdout, "\ncondition %s\nmax VIF   %s\n", sparkline(cond, 60), sparkline(vif, 60))
 	}
+	return nil
+}
+
+// runHistoryPlot writes the timeline chart the watch page shows, from the
+// same view of the store as plumb serve.
+func runHistoryPlot(cmd *cobra.Command, stdout io.Writer, path, watch, segment, plot string) error {
+	c, err := loadStoreConfig(path)
+	if err != nil {
+		return err
+	}
+	if c.Watch(watch) == nil {
+		return usagef("no watch %q in the configuration", watch)
+	}
+	st, err := openStore(cmd.Context(), c, false, nil)
+	if err != nil {
+		return err
+	}
+	defer st.Close()
+	d, err := storeview.New(st, c).Watch(cmd.Context(), watch)
+	if err != nil {
+		return err
+	}
+	seg := d.Segment(segment)
+	if seg == nil {
+		return usagef("watch %q has no segment %q", watch, segment)
+	}
+	title := watch + " · whole table"
+	if segment != "" {
+		title = watch + " · " + segment
+	}
+	f, err := os.Create(plot)
+	if err != nil {
+		return fmt.Errorf("--plot: %w", err)
+	}
+	write := web.WriteTimelineSVG
+	if strings.EqualFold(filepath.Ext(plot), ".png") {
+		write = web.WriteTimelinePNG
+	}
+	if err := write(f, title, seg.Timeline, seg.Forecasts, d.Summary.Limits); err != nil {
+		f.Close()
+		return fmt.Errorf("--plot %s: %w", plot, err)
+	}
+	if err := f.Close(); err != nil {
+		return fmt.Errorf("--plot: %w", err)
+	}
+	fmt.Fprintf(stdout, "wrote %s (%d windows)\n", plot, len(seg.Timeline))
 	return nil
 }
 
