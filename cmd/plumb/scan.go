@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"strings"
+	"time"
 
 	"github.com/spf13/cobra"
 
@@ -32,6 +33,7 @@ type scanFlags struct {
 	seed                    int64
 	parallel                int
 	pushdown                bool
+	statementTimeout        time.Duration
 	quiet                   bool
 }
 
@@ -91,6 +93,7 @@ serious; a condition index above 30 marks a strong near dependency.`,
 	fl.Int64Var(&f.seed, "seed", 1, "seed for --sample")
 	fl.IntVar(&f.parallel, "parallel", 1, "partitions read at once on separate connections (PostgreSQL)")
 	fl.BoolVar(&f.pushdown, "pushdown", false, "compute the cross-products inside the database (PostgreSQL)")
+	fl.DurationVar(&f.statementTimeout, "statement-timeout", 0, "longest a statement may run, e.g. 90s or 2h; SQLite also waits this long for a writer's lock (default: the connector's: 1h for PostgreSQL; for SQLite no limit and a 5s wait)")
 	fl.BoolVarP(&f.quiet, "quiet", "q", false, "no progress bar")
 	return cmd
 }
@@ -160,6 +163,9 @@ func (f *scanFlags) validate() error {
 	if f.parallel < 1 {
 		return usagef("--parallel %d: want 1 or more", f.parallel)
 	}
+	if f.statementTimeout < 0 {
+		return usagef("--statement-timeout %v: want a positive duration such as 90s, or 0 for the connector's default", f.statementTimeout)
+	}
 	if !(f.vifLimit > 1) {
 		return usagef("--vif-limit %v: want a number above 1", f.vifLimit)
 	}
@@ -221,7 +227,7 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 	if err != nil {
 		return err
 	}
-	src, err := connectors.Open(ctx, f.db, connectors.Options{Parallel: f.parallel, Pushdown: f.pushdown})
+	src, err := connectors.Open(ctx, f.db, connectors.Options{Parallel: f.parallel, Pushdown: f.pushdown, StatementTimeout: f.statementTimeout})
 	if err != nil {
 		return err
 	}

@@ -268,7 +268,12 @@ type progress struct {
 	mu    sync.Mutex
 }
 
+// newProgress reports no rows read yet, so that a rate measured by the
+// caller starts with the scan rather than with the first block.
 func newProgress(fn func(read, total int64), total int64) *progress {
+	if fn != nil {
+		fn(0, total)
+	}
 	return &progress{fn: fn, total: total}
 }
 

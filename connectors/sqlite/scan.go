@@ -53,6 +53,8 @@ func (s *Source) Scan(ctx context.Context, req connectors.Request) (*connectors.
 	var total int64
 	if req.Progress != nil {
 		total, _ = s.estimate(ctx, t, req)
+		// No rows yet: a rate measured by the caller starts here.
+		req.Progress(0, total)
 	}
 	query := sc.sql(where)
 
