@@ -172,7 +172,7 @@ func lre(x, c float64) float64 {
 
 // nistCases: the eleven StRD linear datasets with the models of their
 // certified fits and the LRE required of the path a caller ends on (the
-// issue's acceptance levels).
+// required acceptance levels).
 var nistCases = []struct {
 	name   string
 	degree int // 0: predictors as given; d: powers x..x^d
@@ -224,7 +224,7 @@ func minLREOf(d *nistData, rep *Report) (float64, string) {
 //   - a caller that follows the verdicts, going cross-product → QR →
 //     precise QR while the verdict is untrustworthy or promises fewer
 //     digits than it needs (7, or 10 on Norris, Pontius, NoInt1, NoInt2,
-//     Longley, Wampler1 and Wampler2: the levels), ends on a
+//     Longley, Wampler1 and Wampler2: the required levels), ends on a
 //     path that reaches them;
 //   - the precise path reaches them on every dataset by itself;
 //   - the cross-product path never trusts itself on Filip.

@@ -18,7 +18,7 @@ import (
 // names each file, the generating scripts and the library versions.
 var refDir = filepath.Join("..", "testdata", "ref")
 
-// Tolerances of the reference comparison (issue 2, "Checks").
+// Tolerances of the reference comparison (the acceptance levels for reference libraries).
 const (
 	refRelTol     = 1e-9  // VIFs, eigenvalues, condition indices: relative
 	refPropRelTol = 1e-9  // proportions: relative ...

@@ -161,7 +161,7 @@ func TestWeightsAndTimeZones(t *testing.T) {
 		if a.NoTime != b.NoTime || (req.TimeColumn == "ts" && a.NoTime == 0) {
 			t.Errorf("%s: rows without time %d streaming, %d pushdown", name, a.NoTime, b.NoTime)
 		}
-		// Weighted pushdown uses shifted sums: within the 1e-9.
+		// Weighted pushdown uses shifted sums: within the required 1e-9.
 		tol := 1e-12
 		if req.Weight != "" {
 			tol = 1e-9

@@ -61,7 +61,7 @@ func TestPushdownNonFinite(t *testing.T) {
 				// the whole table: as close as the streaming merge order
 				// allows (the bound the other pushdown tests use). Shifted
 				// sums in groups whose means lie far from the table's
-				// shift lose a few more digits, within the 1e-9.
+				// shift lose a few more digits, within the required 1e-9.
 				tol := 1e-12
 				if s.strategy == pushShifted && r.grouped {
 					tol = 1e-9

@@ -34,13 +34,13 @@ func TestModesAgree(t *testing.T) {
 		{"copy", connectors.Options{}, func(s *Source) { s.mode = readCopy }, 0},
 		{"rows", connectors.Options{}, func(s *Source) { s.mode = readRows }, 0},
 		// Other block boundaries and a pairwise merge: to 1e-12 (the
-		// issue's bound for partitioned scans).
+		// required bound for partitioned scans).
 		{"parallel 3", connectors.Options{Parallel: 3}, func(s *Source) {}, 1e-12},
 		// Updating aggregates inside PostgreSQL, the default pushdown.
 		{"pushdown regr", connectors.Options{Pushdown: true}, func(s *Source) { s.push = pushRegr }, 1e-12},
 		// Plain sums shifted by one global provisional mean lose about
 		// ε·(|group mean − shift|/group spread)² in small groups: here
-		// ~5e-12 in the monthly groups, within the 1e-9 for
+		// ~5e-12 in the monthly groups, within the required 1e-9 for
 		// pushdown.
 		{"pushdown shifted", connectors.Options{Pushdown: true}, func(s *Source) { s.push = pushShifted }, 1e-10},
 	}
