@@ -184,7 +184,7 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 	defer src.Close()
 	req := connectors.Request{Table: w.Table, Query: w.Query, Where: w.Where,
 		TimeColumn: w.TimeColumn, Bucket: w.Bucket, Location: w.Location,
-		Segment: w.SegmentBy, MaxSegments: w.MaxSegments, QR: w.Precision != "fast"}
+		Segment: w.SegmentBy, MaxSegments: w.MaxSegments, QR: w.Precision != "fast", Extended: w.Precision == "precise"}
 	described, err := src.Describe(ctx, req)
 	if err != nil {
 		return nil, fmt.Errorf("watch %q: %w", w.Name, err)

@@ -186,13 +186,19 @@ func merge(cols []string, parts []acc) acc {
 		return acc{}
 	}
 	out := acc{m: stream.NewMoments(cols)}
-	withQR := true
+	withQR, extended := true, false
 	for _, p := range parts {
 		if p.q == nil {
 			withQR = false
+		} else if p.q.Extended() {
+			extended = true
 		}
 	}
-	if withQR {
+	switch {
+	case withQR && extended:
+		// Keep the low parts: float64 buckets merge into it as exact.
+		out.q = stream.NewQRExtended(cols)
+	case withQR:
 		out.q = stream.NewQR(cols)
 	}
 	for _, p := range parts {
@@ -205,15 +211,16 @@ func merge(cols []string, parts []acc) acc {
 }
 
 // analyze runs the diagnostics on one accumulator with the watch's
-// precision: fast uses the cross-products only, exact the QR factor, and
-// auto the QR factor when the cross-products cannot be trusted.
+// precision: fast uses the cross-products only, exact the QR factor,
+// precise the double-double QR factor, and auto the QR factor when the
+// cross-products cannot be trusted.
 func analyze(w *config.Watch, regressors []string, a acc) (*diagnostics.Report, error) {
 	opt := diagnostics.Options{
 		Target: w.Target, Columns: regressors, Groups: w.Groups,
 		VIFLimit: w.Limits.VIF.Critical, CondLimit: w.Limits.Condition.Critical,
 	}
 	switch {
-	case w.Precision == "exact" && a.q != nil:
+	case (w.Precision == "exact" || w.Precision == "precise") && a.q != nil:
 		return diagnostics.Analyze(a.m, a.q, opt)
 	case w.Precision == "fast" || a.q == nil:
 		return diagnostics.Analyze(a.m, nil, opt)

@@ -39,7 +39,7 @@
 //	    segment_by: district              # optional: diagnostics per value too
 //	    max_segments: 1000
 //	    schedule: "0 * * * *"             # 5-field cron, or @hourly, @daily …
-//	    precision: auto                   # auto, fast or exact
+//	    precision: auto                   # auto, fast, exact or precise (double-double QR)
 //	    limits:
 //	      vif: {warn: 5, critical: 10}
 //	      condition: {warn: 15, critical: 30}

@@ -330,9 +330,9 @@ func (v *validator) watch(c *Config, i int, w *Watch) {
 	switch w.Precision {
 	case "":
 		w.Precision = "auto"
-	case "auto", "fast", "exact":
+	case "auto", "fast", "exact", "precise":
 	default:
-		v.addf(p("precision"), "%s: precision %q: want auto, fast or exact", label, w.Precision)
+		v.addf(p("precision"), "%s: precision %q: want auto, fast, exact or precise", label, w.Precision)
 	}
 
 	v.limits(p("limits"), label, &w.Limits)
