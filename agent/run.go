@@ -189,7 +189,7 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 	if err != nil {
 		return nil, fmt.Errorf("watch %q: %w", w.Name, err)
 	}
-	regressors, cols, timeCol, err := chooseColumns(w, described)
+	regressors, cols, timeCol, err := chooseColumns(w, described, req)
 	if err != nil {
 		return nil, err
 	}

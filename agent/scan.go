@@ -14,62 +14,25 @@ import (
 )
 
 // chooseColumns picks the accumulated columns of a watch from what the
-// source described: the configured columns, or every numeric and boolean
-// column but the time, segment and target columns; the target last.
-func chooseColumns(w *config.Watch, described []connectors.Column) (regressors []string, all []string, timeCol *connectors.Column, err error) {
-	byName := map[string]connectors.Column{}
-	for _, c := range described {
-		byName[c.Name] = c
+// source described (connectors.Choose: the configured columns, or every
+// numeric and boolean column but the time, segment and target columns; the
+// target last) and returns the regressors, all accumulated columns and the
+// time column.
+func chooseColumns(w *config.Watch, described []connectors.Column, req connectors.Request) (regressors []string, all []string, timeCol *connectors.Column, err error) {
+	req.Columns = w.Columns
+	p, err := connectors.Choose("watch "+strconv.Quote(w.Name), described, req, w.Target)
+	if err != nil {
+		return nil, nil, nil, err
 	}
-	usable := func(c connectors.Column) bool {
-		return c.Kind == connectors.KindNumeric || c.Kind == connectors.KindBool
-	}
-	check := func(role, name string) error {
-		c, ok := byName[name]
-		if !ok {
-			names := make([]string, 0, len(described))
-			for _, d := range described {
-				names = append(names, d.Name)
-			}
-			return fmt.Errorf("watch %q: %s %q not found; the columns are %s", w.Name, role, name, connectors.List(names, 20))
-		}
-		if !usable(c) {
-			return fmt.Errorf("watch %q: %s %q has type %s; pick numeric columns", w.Name, role, name, c.Type)
-		}
-		return nil
-	}
-	if len(w.Columns) > 0 {
-		for _, n := range w.Columns {
-			if err := check("column", n); err != nil {
-				return nil, nil, nil, err
-			}
-		}
-		regressors = slices.Clone(w.Columns)
-	} else {
-		for _, c := range described {
-			if usable(c) && c.Name != w.TimeColumn && c.Name != w.SegmentBy && c.Name != w.Target {
-				regressors = append(regressors, c.Name)
-			}
-		}
+	all = p.Names()
+	regressors = all
+	if w.Target != "" {
+		regressors = slices.Clone(all[:len(all)-1])
 	}
 	if len(regressors) < 2 {
 		return nil, nil, nil, fmt.Errorf("watch %q: %d numeric column(s) to watch; multicollinearity needs two or more", w.Name, len(regressors))
 	}
-	all = slices.Clone(regressors)
-	if w.Target != "" {
-		if err := check("target", w.Target); err != nil {
-			return nil, nil, nil, err
-		}
-		all = append(all, w.Target)
-	}
-	if w.TimeColumn != "" {
-		c, ok := byName[w.TimeColumn]
-		if !ok {
-			return nil, nil, nil, fmt.Errorf("watch %q: time_column %q not found", w.Name, w.TimeColumn)
-		}
-		timeCol = &c
-	}
-	return regressors, all, timeCol, nil
+	return regressors, all, p.Time, nil
 }
 
 // sinceFilter returns an SQL condition that keeps (at least) the rows whose

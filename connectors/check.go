@@ -11,8 +11,12 @@ import (
 // source and the column and wraps ErrInsufficient. Incremental scans of a
 // few new buckets are expected to be small and should not call it.
 func Check(source string, r *Result) error {
-	g := r.Merged()
-	c := g.Moments.Counts()
+	return CheckMerged(source, r, r.Merged())
+}
+
+// CheckMerged is Check for a caller that already holds r.Merged().
+func CheckMerged(source string, r *Result, all Group) error {
+	c := all.Moments.Counts()
 	p := len(r.Columns)
 	if r.Read == 0 {
 		return fmt.Errorf("%s: no rows to read (check --where and --sample): %w", source, ErrInsufficient)

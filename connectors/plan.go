@@ -2,6 +2,7 @@ package connectors
 
 import (
 	"fmt"
+	"slices"
 	"sort"
 	"strings"
 	"time"
@@ -139,6 +140,34 @@ func Resolve(source string, cols []Column, req Request, timeKinds ...Kind) (*Pla
 		}
 		p.Values = append(p.Values, *c)
 	}
+	return p, nil
+}
+
+// Choose resolves the columns to accumulate before a scan, for a request
+// whose response column, when there is one, is target: the request's
+// columns, or every numeric and boolean column but the time, segment,
+// weight and target columns; the target comes last in Values. It is
+// Resolve with the target's rules added; the time column's type is left to
+// the source's own Resolve at scan time. The caller keeps the target out
+// of req.Columns.
+func Choose(source string, cols []Column, req Request, target string) (*Plan, error) {
+	p, err := Resolve(source, cols, req, KindTime, KindNumeric, KindBool, KindOther)
+	if err != nil || target == "" {
+		return p, err
+	}
+	c, err := findColumn(source, cols, target)
+	if err != nil {
+		return nil, fmt.Errorf("target: %w", err)
+	}
+	if c.Kind != KindNumeric && c.Kind != KindBool {
+		return nil, fmt.Errorf("target: column %q of %s has type %s; want a numeric column: %w", c.Name, source, c.Type, ErrColumnType)
+	}
+	p.Values = slices.DeleteFunc(p.Values, func(v Column) bool { return v.Name == c.Name })
+	if len(p.Values) == 0 {
+		return nil, fmt.Errorf("%s has no numeric columns besides the target %q (found %s): %w",
+			source, c.Name, describeColumns(cols), ErrColumnType)
+	}
+	p.Values = append(p.Values, *c)
 	return p, nil
 }
 

@@ -3,7 +3,6 @@ package main
 import (
 	"context"
 	"encoding/json"
-	"errors"
 	"fmt"
 	"io"
 	"strings"
@@ -13,7 +12,6 @@ import (
 
 	"plumb/connectors"
 	"plumb/diagnostics"
-	"plumb/stream"
 )
 
 // scanFlags are the flags of `plumb scan`.
@@ -248,7 +246,7 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 	if err != nil {
 		return err
 	}
-	cols, skipped, err := chooseColumns(what, described, f)
+	cols, skipped, err := chooseColumns(what, described, req, f)
 	if err != nil {
 		return err
 	}
@@ -260,9 +258,9 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 		Target: f.target, Columns: cols[:len(cols)-boolInt(f.target != "")], Groups: groups,
 		VIFLimit: f.vifLimit, CondLimit: f.condLimit,
 	}
-	res, rep, err := scanAndAnalyze(ctx, src, req, opt, f, stderr)
+	res, rep, err := scanAndAnalyze(ctx, what, src, req, opt, f, stderr)
 	if err != nil {
-		return fmt.Errorf("%s: %w", what, err)
+		return err
 	}
 	out := scanOutput{
 		Source: connectors.Redact(f.db), Table: f.table, Query: f.query, Target: f.target,
@@ -304,22 +302,22 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 // numerical verdict is "not trustworthy" is redone one level up the ladder
 // cross-products → QR factor → double-double QR factor (from the level the
 // precision flag starts at; never with --precision fast).
-func scanAndAnalyze(ctx context.Context, src connectors.Source, req connectors.Request, opt diagnostics.Options, f *scanFlags, stderr io.Writer) (*connectors.Result, *diagnostics.Report, error) {
+func scanAndAnalyze(ctx context.Context, what string, src connectors.Source, req connectors.Request, opt diagnostics.Options, f *scanFlags, stderr io.Writer) (*connectors.Result, *diagnostics.Report, error) {
 	for {
 		bar := newProgress(stderr, f.quiet, req.QR || req.Extended)
 		req.Progress = bar.update
 		res, err := src.Scan(ctx, req)
 		bar.finish()
 		if err != nil {
-			return nil, nil, err
+			return nil, nil, fmt.Errorf("%s: %w", what, err)
 		}
 		all := res.Merged()
-		if err := checkRows(all.Moments, res.Read); err != nil {
+		if err := connectors.CheckMerged(what, res, all); err != nil {
 			return nil, nil, err
 		}
 		rep, err := diagnostics.Analyze(all.Moments, all.QR, opt)
 		if err != nil {
-			return nil, nil, err
+			return nil, nil, fmt.Errorf("%s: %w", what, err)
 		}
 		if rep.Trust.Trustworthy || req.Extended || f.precision == "fast" {
 			return res, rep, nil
@@ -348,112 +346,32 @@ func boolInt(b bool) int {
 }
 
 // chooseColumns returns the columns to accumulate (regressors, then the
-// target) and the numeric-less columns that were skipped.
-func chooseColumns(what string, described []connectors.Column, f *scanFlags) ([]string, []skippedColumn, error) {
-	byName := make(map[string]connectors.Column, len(described))
-	for _, c := range described {
-		byName[c.Name] = c
-	}
-	usable := func(c connectors.Column) bool {
-		return c.Kind == connectors.KindNumeric || c.Kind == connectors.KindBool
-	}
-	need := func(role, name string) error {
-		c, ok := byName[name]
-		if !ok {
-			return fmt.Errorf("%s: %scolumn %q does not exist; columns are %s", what, role, name, columnList(described))
+// target) and the non-numeric columns that were skipped. Mistakes in
+// --columns itself are usage errors; the rest is connectors.Choose's.
+func chooseColumns(what string, described []connectors.Column, req connectors.Request, f *scanFlags) ([]string, []skippedColumn, error) {
+	seen := map[string]bool{}
+	req.Columns = nil
+	for _, name := range f.columns {
+		name = strings.TrimSpace(name)
+		if name == "" {
+			continue
 		}
-		if !usable(c) {
-			return fmt.Errorf("%s: %scolumn %q is %s (type %s); pick numeric columns", what, role, name, c.Kind, c.Type)
+		if seen[name] {
+			return nil, nil, usagef("--columns names %q twice", name)
 		}
-		return nil
-	}
-	if f.target != "" {
-		if err := need("target ", f.target); err != nil {
-			return nil, nil, err
+		seen[name] = true
+		if name == f.target {
+			return nil, nil, usagef("column %q is the target; leave it out of --columns", name)
 		}
+		req.Columns = append(req.Columns, name)
 	}
-	if f.weight != "" {
-		if err := need("weight ", f.weight); err != nil {
-			return nil, nil, err
-		}
+	p, err := connectors.Choose(what, described, req, f.target)
+	if err != nil {
+		return nil, nil, err
 	}
-	for _, name := range []string{f.timeColumn, f.segment} {
-		if name != "" {
-			if _, ok := byName[name]; !ok {
-				return nil, nil, fmt.Errorf("%s: column %q does not exist; columns are %s", what, name, columnList(described))
-			}
-		}
-	}
-	var cols []string
 	var skipped []skippedColumn
-	if len(f.columns) > 0 {
-		seen := map[string]bool{}
-		for _, name := range f.columns {
-			name = strings.TrimSpace(name)
-			if name == "" {
-				continue
-			}
-			if seen[name] {
-				return nil, nil, usagef("--columns names %q twice", name)
-			}
-			seen[name] = true
-			if name == f.target {
-				return nil, nil, usagef("column %q is the target; leave it out of --columns", name)
-			}
-			if err := need("", name); err != nil {
-				return nil, nil, err
-			}
-			cols = append(cols, name)
-		}
-	} else {
-		for _, c := range described {
-			switch {
-			case c.Name == f.target || c.Name == f.weight || c.Name == f.timeColumn || c.Name == f.segment:
-			case usable(c):
-				cols = append(cols, c.Name)
-			default:
-				skipped = append(skipped, skippedColumn{Name: c.Name, Type: c.Type})
-			}
-		}
+	for _, c := range p.Skipped {
+		skipped = append(skipped, skippedColumn{Name: c.Name, Type: c.Type})
 	}
-	if len(cols) == 0 {
-		return nil, nil, fmt.Errorf("%s: no numeric columns to examine; columns are %s", what, columnList(described))
-	}
-	if f.target != "" {
-		cols = append(cols, f.target)
-	}
-	return cols, skipped, nil
-}
-
-func columnList(cols []connectors.Column) string {
-	names := make([]string, len(cols))
-	for i, c := range cols {
-		names[i] = fmt.Sprintf("%s (%s)", c.Name, c.Type)
-	}
-	if len(names) == 0 {
-		return "none"
-	}
-	return strings.Join(names, ", ")
-}
-
-// checkRows turns an empty or too small scan into an error that says why.
-func checkRows(m *stream.Moments, read int64) error {
-	c := m.Counts()
-	p := m.P()
-	switch {
-	case read == 0 && c.Used == 0 && c.Dropped == 0:
-		return errors.New("no rows to examine (the table or query returned none)")
-	case c.Used == 0:
-		var parts []string
-		missing := c.Missing(nil)
-		for j, n := range missing {
-			if n > 0 {
-				parts = append(parts, fmt.Sprintf("%s in %d", m.Names()[j], n))
-			}
-		}
-		return fmt.Errorf("all %d rows dropped for NULL, NaN or ±Inf values (%s)", c.Dropped, strings.Join(parts, ", "))
-	case c.Used < int64(p)+1:
-		return fmt.Errorf("only %d usable rows for %d columns; at least %d are needed (%d dropped for missing values)", c.Used, p, p+1, c.Dropped)
-	}
-	return nil
+	return p.Names(), skipped, nil
 }
