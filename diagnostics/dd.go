@@ -1,6 +1,10 @@
 package diagnostics
 
-import "math"
+import (
+	"math"
+
+	"plumb/internal/eft"
+)
 
 // Double-double arithmetic for the precise path: a value is the unevaluated
 // sum hi + lo of two float64 with |lo| ≤ ½ulp(hi), about 106 significant
@@ -14,35 +18,13 @@ import "math"
 // ddf is a double-double number hi + lo.
 type ddf struct{ hi, lo float64 }
 
-// twoSum returns s = fl(a+b) and the exact error a + b − s.
-func twoSum(a, b float64) (s, e float64) {
-	s = a + b
-	bb := s - a
-	e = (a - (s - bb)) + (b - bb)
-	return s, e
-}
-
-// fastTwoSum is twoSum for |a| ≥ |b| (or a = 0).
-func fastTwoSum(a, b float64) (s, e float64) {
-	s = a + b
-	e = b - (s - a)
-	return s, e
-}
-
-// twoProd returns p = fl(a·b) and the exact error a·b − p.
-func twoProd(a, b float64) (p, e float64) {
-	p = a * b
-	e = math.FMA(a, b, -p)
-	return p, e
-}
-
 func (a ddf) add(b ddf) ddf {
-	s, e := twoSum(a.hi, b.hi)
-	t, f := twoSum(a.lo, b.lo)
+	s, e := eft.TwoSum(a.hi, b.hi)
+	t, f := eft.TwoSum(a.lo, b.lo)
 	e += t
-	s, e = fastTwoSum(s, e)
+	s, e = eft.FastTwoSum(s, e)
 	e += f
-	s, e = fastTwoSum(s, e)
+	s, e = eft.FastTwoSum(s, e)
 	return ddf{s, e}
 }
 
@@ -51,9 +33,9 @@ func (a ddf) neg() ddf { return ddf{-a.hi, -a.lo} }
 func (a ddf) sub(b ddf) ddf { return a.add(b.neg()) }
 
 func (a ddf) mul(b ddf) ddf {
-	p, e := twoProd(a.hi, b.hi)
+	p, e := eft.TwoProd(a.hi, b.hi)
 	e += a.hi*b.lo + a.lo*b.hi
-	p, e = fastTwoSum(p, e)
+	p, e = eft.FastTwoSum(p, e)
 	return ddf{p, e}
 }
 
@@ -65,7 +47,7 @@ func (a ddf) div(b ddf) ddf {
 	q2 := r.hi / b.hi
 	r = r.sub(b.mul(ddf{q2, 0}))
 	q3 := r.hi / b.hi
-	q1, q2 = fastTwoSum(q1, q2)
+	q1, q2 = eft.FastTwoSum(q1, q2)
 	return ddf{q1, q2}.add(ddf{q3, 0})
 }
 
@@ -76,9 +58,9 @@ func (a ddf) sqrt() ddf {
 		return ddf{}
 	}
 	s := math.Sqrt(a.hi)
-	p, e := twoProd(s, s)
+	p, e := eft.TwoProd(s, s)
 	r := a.sub(ddf{p, e})
-	h, l := fastTwoSum(s, r.hi/(2*s))
+	h, l := eft.FastTwoSum(s, r.hi/(2*s))
 	return ddf{h, l}
 }
 

@@ -5,6 +5,8 @@ import (
 	"math/big"
 	"math/rand/v2"
 	"testing"
+
+	"plumb/internal/eft"
 )
 
 // The precise path's double-double arithmetic against math/big at 2200
@@ -33,7 +35,7 @@ func randDDF(r *rand.Rand) ddf {
 	if r.IntN(2) == 0 {
 		h = -h
 	}
-	s, e := fastTwoSum(h, h*0x1p-53*(2*r.Float64()-1))
+	s, e := eft.FastTwoSum(h, h*0x1p-53*(2*r.Float64()-1))
 	return ddf{s, e}
 }
 
@@ -53,13 +55,13 @@ func TestDDScalar(t *testing.T) {
 		if i%4 == 0 {
 			b = ddf{-a.hi, -a.lo * (1 + r.Float64())} // cancellation
 		}
-		s, e := twoSum(a.hi, b.hi)
+		s, e := eft.TwoSum(a.hi, b.hi)
 		if (ddf{s, e}).big().Cmp(bf(a.hi).Add(bf(a.hi), bf(b.hi))) != 0 {
-			t.Fatalf("twoSum(%v, %v) not exact", a.hi, b.hi)
+			t.Fatalf("eft.TwoSum(%v, %v) not exact", a.hi, b.hi)
 		}
-		p, e := twoProd(a.hi, b.hi)
+		p, e := eft.TwoProd(a.hi, b.hi)
 		if (ddf{p, e}).big().Cmp(bf(a.hi).Mul(bf(a.hi), bf(b.hi))) != 0 {
-			t.Fatalf("twoProd(%v, %v) not exact", a.hi, b.hi)
+			t.Fatalf("eft.TwoProd(%v, %v) not exact", a.hi, b.hi)
 		}
 		for k, c := range []struct {
 			got  ddf

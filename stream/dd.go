@@ -1,6 +1,10 @@
 package stream
 
-import "math"
+import (
+	"math"
+
+	"plumb/internal/eft"
+)
 
 // Double-double arithmetic: a value is an unevaluated sum hi + lo of two
 // float64 with |lo| ≤ ½ulp(hi), about 106 significant bits. The error-free
@@ -10,40 +14,18 @@ import "math"
 // is what the backward stability of Householder QR needs (the same kind of
 // bound as for inner products).
 
-// twoSum returns s = fl(a+b) and the exact error e = a + b − s.
-func twoSum(a, b float64) (s, e float64) {
-	s = a + b
-	bb := s - a
-	e = (a - (s - bb)) + (b - bb)
-	return s, e
-}
-
-// fastTwoSum is twoSum for |a| ≥ |b| (or a = 0).
-func fastTwoSum(a, b float64) (s, e float64) {
-	s = a + b
-	e = b - (s - a)
-	return s, e
-}
-
-// twoProd returns p = fl(a·b) and the exact error e = a·b − p.
-func twoProd(a, b float64) (p, e float64) {
-	p = a * b
-	e = math.FMA(a, b, -p)
-	return p, e
-}
-
 // ddAdd returns (ah+al) + (bh+bl).
 func ddAdd(ah, al, bh, bl float64) (float64, float64) {
-	s, e := twoSum(ah, bh)
+	s, e := eft.TwoSum(ah, bh)
 	e += al + bl
-	return fastTwoSum(s, e)
+	return eft.FastTwoSum(s, e)
 }
 
 // ddMul returns (ah+al)·(bh+bl).
 func ddMul(ah, al, bh, bl float64) (float64, float64) {
-	p, e := twoProd(ah, bh)
+	p, e := eft.TwoProd(ah, bh)
 	e += ah*bl + al*bh
-	return fastTwoSum(p, e)
+	return eft.FastTwoSum(p, e)
 }
 
 // ddDiv returns (ah+al)/(bh+bl).
@@ -55,7 +37,7 @@ func ddDiv(ah, al, bh, bl float64) (float64, float64) {
 	ph, pl = ddMul(q2, 0, bh, bl)
 	rh, _ = ddAdd(rh, rl, -ph, -pl)
 	q3 := rh / bh
-	q1, q2 = fastTwoSum(q1, q2)
+	q1, q2 = eft.FastTwoSum(q1, q2)
 	return ddAdd(q1, q2, q3, 0)
 }
 
@@ -65,9 +47,9 @@ func ddSqrt(ah, al float64) (float64, float64) {
 		return 0, 0
 	}
 	s := math.Sqrt(ah)
-	ph, pl := twoProd(s, s)
+	ph, pl := eft.TwoProd(s, s)
 	rh, _ := ddAdd(ah, al, -ph, -pl)
-	return fastTwoSum(s, rh/(2*s))
+	return eft.FastTwoSum(s, rh/(2*s))
 }
 
 // ddDot returns (sh+sl) + Σ (xh+xl)ᵢ·(yh+yl)ᵢ.
@@ -75,11 +57,11 @@ func ddDot(sh, sl float64, xh, xl, yh, yl []float64) (float64, float64) {
 	xl, yh, yl = xl[:len(xh)], yh[:len(xh)], yl[:len(xh)]
 	for i, a := range xh {
 		b := yh[i]
-		p, e := twoProd(a, b)
+		p, e := eft.TwoProd(a, b)
 		e += a*yl[i] + xl[i]*b
-		s, f := twoSum(sh, p)
+		s, f := eft.TwoSum(sh, p)
 		f += sl + e
-		sh, sl = fastTwoSum(s, f)
+		sh, sl = eft.FastTwoSum(s, f)
 	}
 	return sh, sl
 }
@@ -88,11 +70,11 @@ func ddDot(sh, sl float64, xh, xl, yh, yl []float64) (float64, float64) {
 func ddAxpy(ah, al float64, xh, xl, yh, yl []float64) {
 	xl, yh, yl = xl[:len(xh)], yh[:len(xh)], yl[:len(xh)]
 	for i, x := range xh {
-		p, e := twoProd(ah, x)
+		p, e := eft.TwoProd(ah, x)
 		e += ah*xl[i] + al*x
-		s, f := twoSum(yh[i], p)
+		s, f := eft.TwoSum(yh[i], p)
 		f += yl[i] + e
-		yh[i], yl[i] = fastTwoSum(s, f)
+		yh[i], yl[i] = eft.FastTwoSum(s, f)
 	}
 }
 
@@ -125,11 +107,11 @@ func tsqrDD(rh, rl []float64, n int, bh, bl []float64, ld, k int, tri bool) {
 		var nh, nl float64
 		for i, x := range vh {
 			xh, xl := x*sc, vl[i]*sc
-			p, pe := twoProd(xh, xh)
+			p, pe := eft.TwoProd(xh, xh)
 			pe += 2 * xh * xl
-			s, f := twoSum(nh, p)
+			s, f := eft.TwoSum(nh, p)
 			f += nl + pe
-			nh, nl = fastTwoSum(s, f)
+			nh, nl = eft.FastTwoSum(s, f)
 		}
 		sh, sl := ddMul(ah*sc, al*sc, ah*sc, al*sc)
 		sh, sl = ddAdd(sh, sl, nh, nl)

@@ -5,6 +5,8 @@ import (
 	"math/big"
 	"math/rand/v2"
 	"testing"
+
+	"plumb/internal/eft"
 )
 
 // The double-double kernels against arbitrary-precision arithmetic
@@ -35,36 +37,7 @@ func randDD(rng *rand.Rand) (float64, float64) {
 		h = -h
 	}
 	l := h * 0x1p-53 * (2*rng.Float64() - 1)
-	return fastTwoSum(h, l)
-}
-
-// TestDDErrorFree: twoSum, fastTwoSum and twoProd return the rounded result
-// and its exact error (definition of the transformations; Knuth, Dekker).
-func TestDDErrorFree(t *testing.T) {
-	rng := rand.New(rand.NewPCG(401, 0))
-	for i := range 20000 {
-		a, _ := randDD(rng)
-		b, _ := randDD(rng)
-		if i%4 == 0 {
-			b = -a * (1 + 0x1p-40*rng.Float64()) // heavy cancellation
-		}
-		s, e := twoSum(a, b)
-		if s != a+b || bigDD(s, e).Cmp(bigF(a).Add(bigF(a), bigF(b))) != 0 {
-			t.Fatalf("twoSum(%v, %v) = %v, %v: not exact", a, b, s, e)
-		}
-		x, y := a, b
-		if math.Abs(x) < math.Abs(y) {
-			x, y = y, x
-		}
-		s, e = fastTwoSum(x, y)
-		if s != x+y || bigDD(s, e).Cmp(bigF(x).Add(bigF(x), bigF(y))) != 0 {
-			t.Fatalf("fastTwoSum(%v, %v) = %v, %v: not exact", x, y, s, e)
-		}
-		p, e := twoProd(a, b)
-		if p != a*b || bigDD(p, e).Cmp(bigF(a).Mul(bigF(a), bigF(b))) != 0 {
-			t.Fatalf("twoProd(%v, %v) = %v, %v: not exact", a, b, p, e)
-		}
-	}
+	return eft.FastTwoSum(h, l)
 }
 
 // TestDDArithmetic: ddAdd within 4u²·(|a| + |b|) (the "sloppy" sum's bound,

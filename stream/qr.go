@@ -7,6 +7,8 @@ import (
 	"gonum.org/v1/gonum/floats"
 	lapackgonum "gonum.org/v1/gonum/lapack/gonum"
 	"gonum.org/v1/gonum/mat"
+
+	"plumb/internal/eft"
 )
 
 // QR accumulates the R factor of the design [1 X] for the named columns
@@ -181,7 +183,7 @@ func (q *QR) addExtended(b *Block, buf, w []float64, ld int) {
 	for j, c := range q.origin {
 		hi, lo := buf[(j+1)*ld:(j+1)*ld+k], blo[(j+1)*ld:(j+1)*ld+k]
 		for i, x := range hi {
-			hi[i], lo[i] = twoSum(x, -c)
+			hi[i], lo[i] = eft.TwoSum(x, -c)
 		}
 	}
 	oh, ol := buf[:k], blo[:k]
@@ -323,7 +325,7 @@ func (q *QR) mergeExtended(o *QR) {
 	}
 	r0h, r0l := sh[0], sl[0]
 	for j := 0; j < q.p; j++ {
-		dh, dl := twoSum(o.origin[j], -q.origin[j])
+		dh, dl := eft.TwoSum(o.origin[j], -q.origin[j])
 		ph, pl := ddMul(dh, dl, r0h, r0l)
 		sh[(j+1)*n], sl[(j+1)*n] = ddAdd(sh[(j+1)*n], sl[(j+1)*n], ph, pl)
 	}
