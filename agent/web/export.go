@@ -12,17 +12,8 @@ import (
 // SVG document, for `plumb history WATCH --plot FILE.svg`. title heads the
 // drawing, e.g. the watch and segment.
 func WriteTimelineSVG(w io.Writer, title string, tl []Point, forecasts []Forecast, l Limits) error {
-	find := func(metric string) *Forecast {
-		for i := range forecasts {
-			if forecasts[i].Metric == metric {
-				return &forecasts[i]
-			}
-		}
-		return nil
-	}
 	const head = 40.0
-	cond := timelineChart("cond", MetricCondition, tl, find(MetricCondition), l.CondWarn, l.CondCritical)
-	vif := timelineChart("vif", MetricMaxVIF, tl, find(MetricMaxVIF), l.VIFWarn, l.VIFCritical)
+	cond, vif := timelineCharts(tl, forecasts, l)
 	cond.Fixed, cond.OffsetY = true, head
 	vif.Fixed, vif.OffsetY = true, head+cond.H
 	data := struct {
@@ -45,4 +36,12 @@ func WriteTimelineSVG(w io.Writer, title string, tl []Point, forecasts []Forecas
 		return fmt.Errorf("timeline chart: %w", err)
 	}
 	return nil
+}
+
+// timelineCharts lays out the two timeline charts of a chart file: the
+// condition number and the max VIF, each with its levels and forecast.
+func timelineCharts(tl []Point, forecasts []Forecast, l Limits) (cond, vif *lineChart) {
+	cond = timelineChart("cond", MetricCondition, tl, forecastOf(forecasts, MetricCondition), l.CondWarn, l.CondCritical)
+	vif = timelineChart("vif", MetricMaxVIF, tl, forecastOf(forecasts, MetricMaxVIF), l.VIFWarn, l.VIFCritical)
+	return cond, vif
 }

@@ -21,17 +21,8 @@ import (
 // FILE.png`. The layout is the SVG's; the hatch of the forecast band
 // becomes a translucent fill with an outline.
 func WriteTimelinePNG(w io.Writer, title string, tl []Point, forecasts []Forecast, l Limits) error {
-	find := func(metric string) *Forecast {
-		for i := range forecasts {
-			if forecasts[i].Metric == metric {
-				return &forecasts[i]
-			}
-		}
-		return nil
-	}
 	const head = 40.0
-	cond := timelineChart("cond", MetricCondition, tl, find(MetricCondition), l.CondWarn, l.CondCritical)
-	vif := timelineChart("vif", MetricMaxVIF, tl, find(MetricMaxVIF), l.VIFWarn, l.VIFCritical)
+	cond, vif := timelineCharts(tl, forecasts, l)
 	width, height := cond.W, head+cond.H+vif.H+10
 	c := vgimg.NewWith(vgimg.UseWH(vg.Length(width), vg.Length(height)), vgimg.UseDPI(144),
 		vgimg.UseBackgroundColor(color.White))

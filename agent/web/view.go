@@ -162,10 +162,13 @@ type SegmentDetail struct {
 }
 
 // Forecast returns the forecast of metric, or nil.
-func (s *SegmentDetail) Forecast(metric string) *Forecast {
-	for i := range s.Forecasts {
-		if s.Forecasts[i].Metric == metric {
-			return &s.Forecasts[i]
+func (s *SegmentDetail) Forecast(metric string) *Forecast { return forecastOf(s.Forecasts, metric) }
+
+// forecastOf returns the forecast of metric in fs, nil when there is none.
+func forecastOf(fs []Forecast, metric string) *Forecast {
+	for i := range fs {
+		if fs[i].Metric == metric {
+			return &fs[i]
 		}
 	}
 	return nil

@@ -14,6 +14,8 @@ import (
 	"golang.org/x/term"
 
 	"plumb/agent"
+	"plumb/agent/config"
+	"plumb/agent/sqlstore"
 	"plumb/agent/web"
 	"plumb/agent/web/storeview"
 )
@@ -73,14 +75,7 @@ extension.`,
 }
 
 func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment string, limit int, format string) error {
-	c, err := loadStoreConfig(path)
-	if err != nil {
-		return err
-	}
-	if c.Watch(watch) == nil {
-		return usagef("no watch %q in the configuration", watch)
-	}
-	st, err := openStore(cmd.Context(), c, false, nil)
+	_, st, err := openWatchStore(cmd, path, watch)
 	if err != nil {
 		return err
 	}
@@ -125,17 +120,27 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 	return nil
 }
 
+// openWatchStore reads the configuration, checks that it names watch and
+// opens its state store without migrating it.
+func openWatchStore(cmd *cobra.Command, path, watch string) (*config.Config, *sqlstore.Store, error) {
+	c, err := loadStoreConfig(path)
+	if err != nil {
+		return nil, nil, err
+	}
+	if c.Watch(watch) == nil {
+		return nil, nil, usagef("no watch %q in the configuration", watch)
+	}
+	st, err := openStore(cmd.Context(), c, false, nil)
+	if err != nil {
+		return nil, nil, err
+	}
+	return c, st, nil
+}
+
 // runHistoryPlot writes the timeline chart the watch page shows, from the
 // same view of the store as plumb serve.
 func runHistoryPlot(cmd *cobra.Command, stdout io.Writer, path, watch, segment, plot string) error {
-	c, err := loadStoreConfig(path)
-	if err != nil {
-		return err
-	}
-	if c.Watch(watch) == nil {
-		return usagef("no watch %q in the configuration", watch)
-	}
-	st, err := openStore(cmd.Context(), c, false, nil)
+	c, st, err := openWatchStore(cmd, path, watch)
 	if err != nil {
 		return err
 	}
