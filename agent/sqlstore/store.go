@@ -522,41 +522,27 @@ func (s *Store) commit(ctx context.Context, tx *sql.Tx, r *agent.RunResult) (int
 	return id, nil
 }
 
+// outboxColumns are the columns readDeliveries scans, in order.
+const outboxColumns = `id, event_id, alert_id, notifier, event, body, created_at, attempts, next_attempt_at,
+		last_error, delivered_at, given_up_at`
+
 // Due returns outbox entries to attempt at now.
 func (s *Store) Due(ctx context.Context, now time.Time, limit int) ([]agent.Delivery, error) {
 	if limit <= 0 {
 		limit = 100
 	}
-	rows, err := s.db.QueryContext(ctx, s.q(`SELECT id, event_id, alert_id, notifier, event, body, created_at, attempts,
-		next_attempt_at, last_error FROM plumb_outbox
+	rows, err := s.db.QueryContext(ctx, s.q(`SELECT `+outboxColumns+` FROM plumb_outbox
 		WHERE delivered_at IS NULL AND given_up_at IS NULL AND next_attempt_at <= ?
 		ORDER BY id LIMIT ?`), now.UnixMicro(), limit)
 	if err != nil {
 		return nil, s.wrap("reading the outbox", err)
 	}
-	defer rows.Close()
-	var out []agent.Delivery
-	for rows.Next() {
-		var (
-			d             agent.Delivery
-			body          string
-			created, next int64
-			last          sql.NullString
-		)
-		if err := rows.Scan(&d.ID, &d.EventID, &d.AlertID, &d.Notifier, &d.Event, &body, &created, &d.Attempts, &next, &last); err != nil {
-			return nil, s.wrap("reading the outbox", err)
-		}
-		d.Body = []byte(body)
-		d.CreatedAt, d.NextAttemptAt, d.LastError = fromMicro(created), fromMicro(next), last.String
-		out = append(out, d)
-	}
-	return out, s.wrap("reading the outbox", rows.Err())
+	return s.readDeliveries(rows)
 }
 
 // Outbox returns every outbox entry of an alert ("" for all), oldest first.
 func (s *Store) Outbox(ctx context.Context, alertID string) ([]agent.Delivery, error) {
-	query := `SELECT id, event_id, alert_id, notifier, event, body, created_at, attempts, next_attempt_at,
-		last_error, delivered_at, given_up_at FROM plumb_outbox`
+	query := `SELECT ` + outboxColumns + ` FROM plumb_outbox`
 	var args []any
 	if alertID != "" {
 		query += ` WHERE alert_id = ?`
@@ -566,6 +552,11 @@ func (s *Store) Outbox(ctx context.Context, alertID string) ([]agent.Delivery, e
 	if err != nil {
 		return nil, s.wrap("reading the outbox", err)
 	}
+	return s.readDeliveries(rows)
+}
+
+// readDeliveries scans and closes rows of outboxColumns.
+func (s *Store) readDeliveries(rows *sql.Rows) ([]agent.Delivery, error) {
 	defer rows.Close()
 	var out []agent.Delivery
 	for rows.Next() {
