@@ -5,6 +5,8 @@ import (
 	"io"
 	"strings"
 	"time"
+
+	"plumb/connectors"
 )
 
 // Describe writes what the configuration would run, for `plumb config
@@ -13,10 +15,10 @@ import (
 // scheduled runs after now. env tells whether secret variables are set.
 func (c *Config) Describe(w io.Writer, now time.Time, env Env) {
 	p := func(format string, args ...any) { fmt.Fprintf(w, format, args...) }
-	p("store: %s\n", redactURL(c.Store))
+	p("store: %s\n", connectors.Redact(c.Store))
 	p("sources:\n")
 	for _, name := range sortedKeys(c.Sources) {
-		p("  %s: %s\n", name, redactURL(c.Sources[name]))
+		p("  %s: %s\n", name, connectors.Redact(c.Sources[name]))
 	}
 	if len(c.Notifiers) > 0 {
 		p("notifiers:\n")
@@ -26,7 +28,7 @@ func (c *Config) Describe(w io.Writer, now time.Time, env Env) {
 		switch n.Kind() {
 		case "webhook":
 			p("  %s: webhook POST %s, signed with %s, timeout %s, retried for %s\n",
-				name, redactURL(n.Webhook), secretSource(n.SecretEnv, n.SecretFile, env), n.Timeout, n.MaxAge)
+				name, connectors.Redact(n.Webhook), secretSource(n.SecretEnv, n.SecretFile, env), n.Timeout, n.MaxAge)
 		case "log":
 			p("  %s: log (JSON lines on stderr)\n", name)
 		case "smtp":

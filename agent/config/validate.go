@@ -11,6 +11,8 @@ import (
 
 	"github.com/robfig/cron/v3"
 	"go.yaml.in/yaml/v3"
+
+	"plumb/connectors"
 )
 
 // validator checks a decoded configuration, fills its defaults and
@@ -75,7 +77,7 @@ func (v *validator) config(c *Config) {
 	if c.Store == "" {
 		c.Store = DefaultStore
 	} else if !strings.HasPrefix(c.Store, "sqlite:") && !isPostgres(c.Store) {
-		v.addf([]any{"store"}, "store %q: want sqlite:PATH or postgres://user@host/db", redactURL(c.Store))
+		v.addf([]any{"store"}, "store %q: want sqlite:PATH or postgres://user@host/db", connectors.Redact(c.Store))
 	}
 	for _, name := range sortedKeys(c.Sources) {
 		u := c.Sources[name]
@@ -84,7 +86,7 @@ func (v *validator) config(c *Config) {
 			v.addf(p, "source name %q: use letters, digits, '.', '_' and '-'", name)
 		}
 		if !strings.HasPrefix(u, "sqlite:") && !isPostgres(u) {
-			v.addf(p, "source %q: URL %q: want sqlite:PATH or postgres://user@host/db", name, redactURL(u))
+			v.addf(p, "source %q: URL %q: want sqlite:PATH or postgres://user@host/db", name, connectors.Redact(u))
 		}
 	}
 	for _, name := range sortedKeys(c.Notifiers) {
@@ -147,7 +149,7 @@ func (v *validator) notifier(name string, n *Notifier) {
 	case "webhook":
 		u, err := url.Parse(n.Webhook)
 		if err != nil || (u.Scheme != "http" && u.Scheme != "https") || u.Host == "" {
-			v.addf(append(p, "webhook"), "notifier %q: webhook %q: want an http:// or https:// URL", name, redactURL(n.Webhook))
+			v.addf(append(p, "webhook"), "notifier %q: webhook %q: want an http:// or https:// URL", name, connectors.Redact(n.Webhook))
 		} else if u.User != nil {
 			v.addf(append(p, "webhook"), "notifier %q: webhook URL carries credentials; use secret_env or secret_file for the signing key", name)
 		}
@@ -423,20 +425,4 @@ func sortedKeys[V any](m map[string]V) []string {
 	}
 	slices.Sort(ks)
 	return ks
-}
-
-// redactURL hides a password in a URL, for messages.
-func redactURL(s string) string {
-	u, err := url.Parse(s)
-	if err != nil || u.User == nil {
-		if i := strings.Index(s, "@"); i >= 0 && strings.Contains(s[:i], "://") {
-			return s[:strings.Index(s, "://")+3] + "xxxxx@" + s[i+1:]
-		}
-		return s
-	}
-	if _, has := u.User.Password(); has {
-		u.User = url.UserPassword(u.User.Username(), "xxxxx")
-		return u.String()
-	}
-	return s
 }

@@ -22,6 +22,7 @@ import (
 	_ "modernc.org/sqlite" // the one SQLite driver of the process
 
 	"plumb/agent"
+	"plumb/connectors"
 	"plumb/migrations"
 )
 
@@ -63,14 +64,14 @@ func OpenDB(url string) (*sql.DB, migrations.Dialect, string, error) {
 	case strings.HasPrefix(url, "postgres://"), strings.HasPrefix(url, "postgresql://"):
 		cfg, err := pgx.ParseConfig(url)
 		if err != nil {
-			return nil, "", "", fmt.Errorf("state store %s: %w", redact(url), scrub(err, url))
+			return nil, "", "", fmt.Errorf("state store %s: %w", connectors.Redact(url), scrub(err, url))
 		}
 		if _, ok := cfg.RuntimeParams["application_name"]; !ok {
 			cfg.RuntimeParams["application_name"] = "plumb-agent"
 		}
 		return stdlib.OpenDB(*cfg), migrations.Postgres, "", nil
 	}
-	return nil, "", "", fmt.Errorf("state store %q: want sqlite:PATH or postgres://user@host/db", redact(url))
+	return nil, "", "", fmt.Errorf("state store %q: want sqlite:PATH or postgres://user@host/db", connectors.Redact(url))
 }
 
 // Open opens the store and checks (or, with opt.Migrate, brings up to
@@ -80,7 +81,7 @@ func Open(ctx context.Context, url string, opt Options) (*Store, error) {
 	if err != nil {
 		return nil, err
 	}
-	s := &Store{db: db, dialect: d, path: path, display: redact(url)}
+	s := &Store{db: db, dialect: d, path: path, display: connectors.Redact(url)}
 	if err := db.PingContext(ctx); err != nil {
 		db.Close()
 		return nil, fmt.Errorf("state store %s: %w", s.display, scrub(err, url))
@@ -105,23 +106,6 @@ func (s *Store) Dialect() migrations.Dialect { return s.dialect }
 
 // Close closes the database.
 func (s *Store) Close() error { return s.db.Close() }
-
-// redact hides the password of a URL.
-func redact(url string) string {
-	scheme, rest, ok := strings.Cut(url, "://")
-	if !ok {
-		return url
-	}
-	auth, host, ok := strings.Cut(rest, "@")
-	if !ok {
-		return url
-	}
-	user, _, hasPass := strings.Cut(auth, ":")
-	if !hasPass {
-		return url
-	}
-	return scheme + "://" + user + ":xxxxx@" + host
-}
 
 // scrub removes a URL's password from an error message, keeping the
 // error's identity for errors.Is.

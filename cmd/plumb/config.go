@@ -9,7 +9,6 @@ import (
 	"github.com/spf13/cobra"
 
 	"plumb/agent/config"
-	"plumb/connectors"
 )
 
 // defaultConfig is the file read when --config is not given.
@@ -82,9 +81,6 @@ func runConfigCheck(stdout io.Writer, path string, now time.Time) error {
 	fmt.Fprintf(stdout, "%s: OK, %d watch(es)\n", path, len(c.Watches))
 	return nil
 }
-
-// redactStore shows a store URL without its password.
-func redactStore(u string) string { return connectors.Redact(u) }
 
 // loadStoreConfig reads the configuration for a command that only needs
 // the state store (history, alerts, migrate): notifier secrets need not

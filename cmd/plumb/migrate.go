@@ -7,6 +7,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"plumb/agent/sqlstore"
+	"plumb/connectors"
 	"plumb/migrations"
 )
 
@@ -39,12 +40,12 @@ func runMigrate(cmd *cobra.Command, path string, stdout io.Writer) error {
 	defer db.Close()
 	applied, err := migrations.Up(cmd.Context(), dialect, db, nil)
 	if err != nil {
-		return fmt.Errorf("state store %s: %w", redactStore(c.Store), err)
+		return fmt.Errorf("state store %s: %w", connectors.Redact(c.Store), err)
 	}
 	if len(applied) == 0 {
-		fmt.Fprintf(stdout, "state store %s is up to date (schema version %d)\n", redactStore(c.Store), migrations.Latest(dialect))
+		fmt.Fprintf(stdout, "state store %s is up to date (schema version %d)\n", connectors.Redact(c.Store), migrations.Latest(dialect))
 		return nil
 	}
-	fmt.Fprintf(stdout, "state store %s: applied schema version(s) %v; now at %d\n", redactStore(c.Store), applied, applied[len(applied)-1])
+	fmt.Fprintf(stdout, "state store %s: applied schema version(s) %v; now at %d\n", connectors.Redact(c.Store), applied, applied[len(applied)-1])
 	return nil
 }
