@@ -12,6 +12,8 @@ import (
 	"errors"
 	"fmt"
 	"time"
+
+	"plumb/diagnostics"
 )
 
 // RunKind says what started a run.
@@ -134,6 +136,25 @@ type Alert struct {
 	Message      string      `json:"message"`
 	Detail       AlertDetail `json:"detail"`
 	NotifyState  string      `json:"-"`
+
+	// Onset is the data time from which the alert's cause holds (the
+	// first bucket of an exact dependency's or constant column's run, the
+	// first point at or above a level, the first point of a fitted rise).
+	Onset time.Time `json:"onset"`
+	// Columns are all the columns the cause involves.
+	Columns []string `json:"columns"`
+	// Drivers, for VIF-based alerts, are the partner columns that explain
+	// the column with the largest VIF and their shares of its R².
+	Drivers []diagnostics.Driver `json:"drivers,omitempty"`
+	// Window is the data window of the latest point the alert was judged on.
+	Window *AlertWindow `json:"window,omitempty"`
+}
+
+// AlertWindow is the data window an alert was judged on.
+type AlertWindow struct {
+	Start time.Time `json:"start"`
+	End   time.Time `json:"end"`
+	Rows  int64     `json:"rows"`
 }
 
 // Open reports whether the alert is not resolved.

@@ -139,6 +139,16 @@ type ColumnReport struct {
 	Max          float64  `json:"max"`
 	Dropped      int64    `json:"dropped"`
 	OverLimit    bool     `json:"over_limit"` // VIF ≥ VIFLimit, or undefined
+	// Drivers are the partner columns that explain this column in its
+	// regression on the others, largest share first.
+	Drivers []Driver `json:"drivers,omitempty"`
+}
+
+// Driver is one partner column's share of R²_j in column j's regression
+// on the other columns.
+type Driver struct {
+	Column string  `json:"column"`
+	Share  float64 `json:"share"`
 }
 
 // Component is one principal component of the correlation matrix.
