@@ -235,7 +235,7 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 	case full:
 		col.replaceAll, col.rebuilt = true, true
 	case opt.Kind == RunBackfill:
-		since = floorBucket(opt.From, w.Bucket, w.Location)
+		since = calendar(w).Floor(opt.From)
 		col.rebuilt = true
 	default:
 		since = rescanFrom(last, w)
@@ -276,7 +276,7 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 	slices.SortFunc(starts, func(a, b time.Time) int { return a.Compare(b) })
 	if !since.IsZero() {
 		// Older buckets that windows ending after since still cover.
-		from := windowStart(addBuckets(starts[0], w.Bucket, 1, w.Location), w)
+		from := windowStart(calendar(w).End(starts[0]), w)
 		older, err := r.Store.Buckets(ctx, w.Name, from, since)
 		if err != nil {
 			return nil, err
@@ -294,7 +294,7 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 	}
 	// One point per scanned bucket: the window ending at its end.
 	for _, s := range starts {
-		end := addBuckets(s, w.Bucket, 1, w.Location).UTC()
+		end := calendar(w).End(s)
 		bySeg := orderedBySeg(accs, windowStart(end, w), end)
 		r.points(w, regressors, cols, end, bySeg, col)
 		col.latest = end

@@ -67,46 +67,25 @@ func andWhere(a, b string) string {
 	return "(" + a + ") AND " + b
 }
 
-// addBuckets moves t by n buckets in loc (calendar arithmetic for days,
-// weeks and months).
-func addBuckets(t time.Time, unit string, n int, loc *time.Location) time.Time {
-	t = t.In(loc)
-	switch unit {
-	case "hour":
-		return t.Add(time.Duration(n) * time.Hour)
-	case "day":
-		return t.AddDate(0, 0, n)
-	case "week":
-		return t.AddDate(0, 0, 7*n)
-	case "month":
-		return t.AddDate(0, n, 0)
-	}
-	panic("agent: unknown bucket " + unit)
+// calendar is the watch's bucket calendar.
+func calendar(w *config.Watch) connectors.Calendar {
+	return connectors.Calendar{Unit: w.Bucket, Loc: w.Location}
 }
 
-// floorBucket returns the start of the bucket holding t.
-func floorBucket(t time.Time, unit string, loc *time.Location) time.Time {
-	b := connectors.NewBucketer(unit, loc)
-	return time.UnixMicro(b.Start(t.UnixMicro())).UTC()
+func span(s config.Span) connectors.Span {
+	return connectors.Span{Buckets: s.Buckets, Duration: s.Duration}
 }
 
 // windowStart returns the earliest bucket start inside the window ending
 // at end.
 func windowStart(end time.Time, w *config.Watch) time.Time {
-	if w.Window.Buckets > 0 {
-		return addBuckets(end, w.Bucket, -w.Window.Buckets, w.Location).UTC()
-	}
-	return end.Add(-w.Window.Duration).UTC()
+	return calendar(w).WindowStart(end, span(w.Window))
 }
 
 // rescanFrom returns the first bucket a run rescans, given the newest
 // stored bucket.
 func rescanFrom(last time.Time, w *config.Watch) time.Time {
-	if w.Lookback.Buckets > 0 {
-		return addBuckets(last, w.Bucket, -(w.Lookback.Buckets - 1), w.Location).UTC()
-	}
-	end := addBuckets(last, w.Bucket, 1, w.Location)
-	return floorBucket(end.Add(-w.Lookback.Duration), w.Bucket, w.Location)
+	return calendar(w).RescanFrom(last, span(w.Lookback))
 }
 
 // acc is a decoded bucket.

@@ -43,12 +43,15 @@
 //	    limits:
 //	      vif: {warn: 5, critical: 10}
 //	      condition: {warn: 15, critical: 30}
+//	      condition_basis: centered       # or intercept: which condition number the levels judge
 //	      horizon: 14d                    # trend warnings this far ahead
 //	      clear_after: 3                  # runs under the warn level before a level alert resolves
 //	      blind_after: 3                  # consecutive failed runs before a blind alert
 //	      jump: 3.5                       # robust z-score (MAD) that counts as a jump
 //	      trend_points: 14                # recent points the trend is fitted on
 //	    notify: [oncall, audit]
+//	    expected_dependencies:            # exact dependencies by design: shown, not alerted
+//	      - [total_connections, residential_connections, commercial_connections]
 //
 // Unknown keys and values of the wrong type are rejected with their line.
 // Secrets (webhook signing keys, SMTP passwords) come only from the
@@ -88,6 +91,14 @@ const (
 	// an outlier (Iglewicz & Hoaglin 1993 recommend 3.5).
 	DefaultJump        = 3.5
 	DefaultTrendPoints = 14
+	// DefaultConditionBasis: levels judge the centered, scaled design.
+	DefaultConditionBasis = ConditionCentered
+)
+
+// Condition bases: which condition number the condition levels judge.
+const (
+	ConditionCentered  = "centered"
+	ConditionIntercept = "intercept"
 )
 
 // Config is a parsed and validated configuration file.
@@ -177,6 +188,12 @@ type Watch struct {
 	Limits      Limits              `yaml:"limits"`
 	Notify      []string            `yaml:"notify"`
 
+	// ExpectedDependencies are sets of columns among which an exact
+	// dependency is by design (a total and its parts): one whose columns
+	// all lie in one set is shown as expected, not alerted, and alerts
+	// (rule broken) when it stops holding.
+	ExpectedDependencies [][]string `yaml:"expected_dependencies"`
+
 	// Location is TimeZone loaded, filled by validation.
 	Location *time.Location `yaml:"-"`
 }
@@ -185,6 +202,13 @@ type Watch struct {
 type Limits struct {
 	VIF         Level    `yaml:"vif"`
 	Condition   Level    `yaml:"condition"`
+	// ConditionBasis says which condition number the condition levels,
+	// trends and jumps judge: "centered" (default), the centered,
+	// column-scaled design — collinearity among the columns themselves,
+	// which is what inflates the slopes' variances — or "intercept", the
+	// column-scaled design with the intercept column, which also grows
+	// when a column's spread is small beside its mean.
+	ConditionBasis string `yaml:"condition_basis"`
 	Horizon     Duration `yaml:"horizon"`
 	ClearAfter  int      `yaml:"clear_after"`
 	BlindAfter  int      `yaml:"blind_after"`
@@ -266,13 +290,14 @@ var typeNames = map[string]string{
 	"config.Notifier":             "a notifier (webhook, secret_env, secret_file, timeout, max_age, log, smtp)",
 	"config.SMTP":                 "smtp (addr, from, to, username, password_env, password_file, starttls)",
 	"config.Watch":                "a watch",
-	"config.Limits":               "limits (vif, condition, horizon, clear_after, blind_after, jump, trend_points)",
+	"config.Limits":               "limits (vif, condition, condition_basis, horizon, clear_after, blind_after, jump, trend_points)",
 	"config.Level":                "a level (warn, critical)",
 	"string":                      "a string",
 	"float64":                     "a number",
 	"int":                         "a whole number",
 	"bool":                        "true or false",
 	"[]string":                    "a list of strings",
+	"[][]string":                  "a list of column lists",
 	"[]*config.Watch":             "a list of watches",
 	"map[string]string":           "a mapping of NAME: URL",
 	"map[string][]string":         "a mapping of NAME: [columns]",

@@ -339,6 +339,19 @@ func (v *validator) watch(c *Config, i int, w *Watch) {
 
 	v.limits(p("limits"), label, &w.Limits)
 
+	for j, set := range w.ExpectedDependencies {
+		if len(set) < 2 {
+			v.addf(p("expected_dependencies", j), "%s: expected_dependencies entry %d: a dependency needs two or more columns", label, j+1)
+		}
+		for _, col := range set {
+			if strings.TrimSpace(col) == "" {
+				v.addf(p("expected_dependencies", j), "%s: expected_dependencies entry %d: empty column name", label, j+1)
+			} else if len(w.Columns) > 0 && !slices.Contains(w.Columns, col) {
+				v.addf(p("expected_dependencies", j), "%s: expected_dependencies entry %d: column %q is not among the watch's columns", label, j+1, col)
+			}
+		}
+	}
+
 	for j, n := range w.Notify {
 		if _, ok := c.Notifiers[n]; !ok {
 			v.addf(p("notify", j), "%s: unknown notifier %q (known: %s)", label, n, keys(c.Notifiers))
@@ -371,6 +384,13 @@ func (v *validator) limits(p []any, label string, l *Limits) {
 	}
 	level("vif", &l.VIF, DefaultVIFWarn, DefaultVIFCrit)
 	level("condition", &l.Condition, DefaultCondWarn, DefaultCondCrit)
+	switch l.ConditionBasis {
+	case "":
+		l.ConditionBasis = DefaultConditionBasis
+	case ConditionCentered, ConditionIntercept:
+	default:
+		v.addf(at("condition_basis"), "%s: limits.condition_basis %q: want centered (the columns among themselves) or intercept (with the intercept column)", label, l.ConditionBasis)
+	}
 	if l.Horizon == 0 {
 		l.Horizon = Duration(DefaultHorizon)
 	}
