@@ -158,7 +158,7 @@ func (e *evaluation) replay(ctx context.Context, col *collected, now time.Time) 
 			return err
 		}
 		for _, p := range old {
-			o, err := ObservationFromPoint(p)
+			o, err := ObservationFromPoint(p, e.w.Limits.ConditionBasis)
 			if err != nil {
 				return err
 			}

@@ -1,6 +1,7 @@
 package agent
 
 import (
+	"bytes"
 	"encoding/json"
 	"fmt"
 	"math"
@@ -8,22 +9,53 @@ import (
 	"strings"
 	"time"
 
+	"plumb/agent/config"
 	"plumb/diagnostics"
 )
 
-// Observation is what the alert rules see at one point: the headline
-// numbers and the findings that alert at once.
+// Observation is what the alert rules see at one point: the numbers the
+// limits judge and the findings that alert at once.
+//
+// When exact dependencies or constant columns make the design singular,
+// the rules that name them (exact, constant) speak for the singularity:
+// the levels, trends and jumps judge the design without the columns they
+// explain (LeftOut: each equation's dependent column, each constant
+// column), so that a level alert keeps describing the near dependency
+// among the rest.
 type Observation struct {
-	At              time.Time
-	ConditionNumber float64 // +Inf when undefined
-	MaxVIF          float64 // +Inf when a VIF is undefined by an exact dependency
-	MaxVIFColumn    string
-	VIFs            map[string]float64 // per column; +Inf where an exact dependency leaves it undefined
-	Rank, Columns   int
-	Exact           []ExactDependency
-	Constant        []ConstantColumn
-	SuggestedDrops  []string
-	DropCaution     string
+	At          time.Time // window end (exclusive)
+	WindowStart time.Time // zero for a watch without buckets
+	Rows        int64
+	// Full says the window lies wholly within the data: a window still
+	// filling holds fewer buckets than the watch's window and opens no
+	// alert.
+	Full bool
+
+	// ConditionNumber (with the intercept column) and CenteredCondition
+	// describe the whole design: +Inf when it is singular.
+	ConditionNumber   float64
+	CenteredCondition float64
+
+	// The judged design: the columns less LeftOut.
+	CondBasis    string  // config.ConditionCentered or config.ConditionIntercept
+	Cond         float64 // the condition number the limits apply to
+	MaxVIF       float64 // NaN when no column has a VIF
+	MaxVIFColumn string
+	VIFs         map[string]float64
+	R2           float64              // R² of MaxVIFColumn on the other columns
+	Drivers      []diagnostics.Driver // what explains MaxVIFColumn
+	LeftOut      []string
+
+	// BucketCond and BucketVIF are the judged numbers of the window's last
+	// bucket alone (NaN when it has too few rows): they show a drift
+	// without the window's lag.
+	BucketCond, BucketVIF float64
+
+	Rank, Columns  int
+	Exact          []ExactDependency
+	Constant       []ConstantColumn
+	SuggestedDrops []string
+	DropCaution    string
 }
 
 // ExactDependency is an exact linear relation among columns.
@@ -31,27 +63,93 @@ type ExactDependency struct {
 	Dependent string
 	Columns   []string
 	Equation  string
+	Onset     time.Time // first bucket of the unbroken run in which it holds
 }
 
 // ConstantColumn is a column that does not vary in the window.
 type ConstantColumn struct {
 	Name  string
 	Value float64
+	Onset time.Time // first bucket of its constant run
+}
+
+// pointExtra is what the agent keeps beside a point's diagnostics report,
+// inside the stored report under the key "plumb": what a replay needs to
+// see what the live run saw.
+type pointExtra struct {
+	WindowStart time.Time            `json:"window_start,omitzero"`
+	Full        bool                 `json:"window_full"`
+	LeftOut     []string             `json:"left_out,omitempty"`
+	Judged      *diagnostics.Report  `json:"judged,omitempty"`
+	BucketCond  jfloat               `json:"bucket_condition"`
+	BucketCCond jfloat               `json:"bucket_centered_condition"`
+	BucketVIF   jfloat               `json:"bucket_max_vif"`
+	Onsets      map[string]time.Time `json:"onsets,omitempty"`
+}
+
+// newExtra returns the extras of an unbucketed point: always full, no
+// per-bucket numbers.
+func newExtra() *pointExtra {
+	return &pointExtra{Full: true, BucketCond: jfloat(math.NaN()), BucketCCond: jfloat(math.NaN()), BucketVIF: jfloat(math.NaN())}
+}
+
+// encodeReport writes a report with its extras as one JSON object.
+func encodeReport(rep *diagnostics.Report, x *pointExtra) ([]byte, error) {
+	raw, err := json.Marshal(rep)
+	if err != nil {
+		return nil, err
+	}
+	xb, err := json.Marshal(x)
+	if err != nil {
+		return nil, err
+	}
+	if len(raw) < 2 || raw[0] != '{' {
+		return nil, fmt.Errorf("report is not a JSON object")
+	}
+	var b bytes.Buffer
+	b.WriteString(`{"plumb":`)
+	b.Write(xb)
+	if len(raw) > 2 {
+		b.WriteByte(',')
+	}
+	b.Write(raw[1:])
+	return b.Bytes(), nil
+}
+
+// decodeReport reads a stored report and its extras (nil for a point
+// stored before they existed).
+func decodeReport(raw []byte) (*diagnostics.Report, *pointExtra, error) {
+	var rep diagnostics.Report
+	if err := json.Unmarshal(raw, &rep); err != nil {
+		return nil, nil, err
+	}
+	var wrap struct {
+		Plumb *pointExtra `json:"plumb"`
+	}
+	if err := json.Unmarshal(raw, &wrap); err != nil {
+		return nil, nil, err
+	}
+	return &rep, wrap.Plumb, nil
 }
 
 // PointFromReport condenses a diagnostics report into a history point and
-// the observation the rules see.
+// the observation the rules see, for a watch without buckets or a caller
+// without per-bucket numbers.
 func PointFromReport(watch, segment string, at time.Time, rep *diagnostics.Report) (Point, Observation, error) {
-	raw, err := json.Marshal(rep)
+	return pointFrom(watch, segment, at, rep, newExtra(), config.DefaultConditionBasis)
+}
+
+func pointFrom(watch, segment string, at time.Time, rep *diagnostics.Report, x *pointExtra, basis string) (Point, Observation, error) {
+	raw, err := encodeReport(rep, x)
 	if err != nil {
 		return Point{}, Observation{}, fmt.Errorf("watch %q at %s: encoding the report: %w", watch, at.Format(time.RFC3339), err)
 	}
-	obs := Observe(at, rep)
+	obs := Observe(at, rep, x, basis)
 	p := Point{
 		Watch: watch, Segment: segment, At: at,
 		RowsUsed: rep.RowsUsed, RowsDropped: rep.RowsDropped,
-		ConditionNumber:   finiteOrInf(rep.ConditionNumber),
-		CenteredCondition: finiteOrInf(rep.CenteredConditionNumber),
+		ConditionNumber:   obs.ConditionNumber,
+		CenteredCondition: obs.CenteredCondition,
 		MaxVIF:            obs.MaxVIF, MaxVIFColumn: obs.MaxVIFColumn,
 		Rank: rep.Rank, Columns: len(rep.Columns),
 		Report: raw,
@@ -65,63 +163,125 @@ func PointFromReport(watch, segment string, at time.Time, rep *diagnostics.Repor
 	return p, obs, nil
 }
 
-// Observe extracts the rules' view of a report.
-func Observe(at time.Time, rep *diagnostics.Report) Observation {
-	o := Observation{
-		At:              at,
-		ConditionNumber: finiteOrInf(rep.ConditionNumber),
-		MaxVIF:          math.Inf(-1),
-		VIFs:            map[string]float64{},
-		Rank:            rep.Rank,
-		Columns:         len(rep.Columns),
-		SuggestedDrops:  rep.SuggestedDrops,
-		DropCaution:     rep.DropCaution,
-	}
+// leftOut names the columns that the exact and constant rules explain:
+// each exact equation's dependent column and each constant column.
+func leftOut(rep *diagnostics.Report) []string {
+	var out []string
 	for _, c := range rep.Columns {
-		switch {
-		case c.Constant:
-			o.Constant = append(o.Constant, ConstantColumn{Name: c.Name, Value: c.Mean})
-		case c.VIF != nil:
-			o.VIFs[c.Name] = *c.VIF
-			if *c.VIF > o.MaxVIF {
-				o.MaxVIF, o.MaxVIFColumn = *c.VIF, c.Name
-			}
-		case c.Undefined == diagnostics.UndefinedExact:
-			o.VIFs[c.Name] = math.Inf(1)
-			if !math.IsInf(o.MaxVIF, 1) {
-				o.MaxVIF, o.MaxVIFColumn = math.Inf(1), c.Name
-			}
+		if c.Constant || c.NearConstant {
+			out = append(out, c.Name)
 		}
-	}
-	if math.IsInf(o.MaxVIF, -1) {
-		o.MaxVIF = math.NaN() // no column with a VIF
 	}
 	for _, d := range rep.Dependencies {
-		if d.Kind != "exact" {
-			continue
+		if d.Kind == diagnostics.KindExact && d.Dependent != "" && !slices.Contains(out, d.Dependent) {
+			out = append(out, d.Dependent)
 		}
-		// A constant column is reported by its own rule.
-		if len(d.Columns) == 1 && slices.ContainsFunc(o.Constant, func(c ConstantColumn) bool { return c.Name == d.Columns[0] }) {
-			continue
+	}
+	return out
+}
+
+// judgedNumbers returns the condition number on a basis and the largest
+// VIF of a report.
+func judgedNumbers(rep *diagnostics.Report, basis string) (cond, maxVIF float64, maxCol string) {
+	cond = rep.CenteredConditionNumber
+	if basis == config.ConditionIntercept {
+		cond = rep.ConditionNumber
+	}
+	cond = finiteOrInf(cond)
+	maxVIF = math.Inf(-1)
+	for _, c := range rep.Columns {
+		if c.VIF != nil && *c.VIF > maxVIF {
+			maxVIF, maxCol = *c.VIF, c.Name
 		}
-		o.Exact = append(o.Exact, ExactDependency{Dependent: d.Dependent, Columns: d.Columns, Equation: d.Equation})
+	}
+	if math.IsInf(maxVIF, -1) {
+		maxVIF = math.NaN()
+	}
+	return cond, maxVIF, maxCol
+}
+
+// Observe extracts the rules' view of a report and its extras.
+func Observe(at time.Time, rep *diagnostics.Report, x *pointExtra, basis string) Observation {
+	if x == nil {
+		x = newExtra()
+	}
+	if basis == "" {
+		basis = config.DefaultConditionBasis
+	}
+	o := Observation{
+		At: at, WindowStart: x.WindowStart, Rows: rep.RowsUsed, Full: x.Full,
+		ConditionNumber:   finiteOrInf(rep.ConditionNumber),
+		CenteredCondition: finiteOrInf(rep.CenteredConditionNumber),
+		CondBasis:         basis,
+		VIFs:              map[string]float64{},
+		R2:                math.NaN(),
+		BucketVIF:         float64(x.BucketVIF),
+		BucketCond:        float64(x.BucketCCond),
+		Rank:              rep.Rank,
+		Columns:           len(rep.Columns),
+		SuggestedDrops:    rep.SuggestedDrops,
+		DropCaution:       rep.DropCaution,
+		LeftOut:           x.LeftOut,
+	}
+	if basis == config.ConditionIntercept {
+		o.BucketCond = float64(x.BucketCond)
+	}
+	if o.singular() {
+		o.ConditionNumber, o.CenteredCondition = math.Inf(1), math.Inf(1)
+	}
+	judged := rep
+	if x.Judged != nil {
+		judged = x.Judged
+	}
+	if len(x.LeftOut) > 0 && x.Judged == nil {
+		// Too few columns were left to judge: nothing but the exact and
+		// constant rules speaks.
+		o.Cond, o.MaxVIF = math.NaN(), math.NaN()
+	} else {
+		o.Cond, o.MaxVIF, o.MaxVIFColumn = judgedNumbers(judged, basis)
+		for _, c := range judged.Columns {
+			if c.VIF != nil {
+				o.VIFs[c.Name] = *c.VIF
+			}
+			if c.Name == o.MaxVIFColumn {
+				o.R2 = deref(c.R2)
+				o.Drivers = c.Drivers
+			}
+		}
+	}
+	for _, c := range rep.Columns {
+		if c.Constant || c.NearConstant {
+			v := c.Mean
+			if c.Constant {
+				v = c.Min
+			}
+			o.Constant = append(o.Constant, ConstantColumn{Name: c.Name, Value: v, Onset: x.Onsets[constantKey(c.Name)]})
+		}
+	}
+	for _, d := range rep.Dependencies {
+		if d.Kind != diagnostics.KindExact || len(d.Columns) == 1 {
+			continue // a constant column is reported by its own rule
+		}
+		e := ExactDependency{Dependent: d.Dependent, Columns: d.Columns, Equation: d.Equation}
+		e.Onset = x.Onsets[e.subjectKey()]
+		o.Exact = append(o.Exact, e)
 	}
 	return o
 }
 
 // ObservationFromPoint rebuilds the observation of a stored point from its
 // report.
-func ObservationFromPoint(p Point) (Observation, error) {
+func ObservationFromPoint(p Point, basis string) (Observation, error) {
 	if len(p.Report) == 0 {
-		return Observation{At: p.At, ConditionNumber: p.ConditionNumber, MaxVIF: p.MaxVIF, MaxVIFColumn: p.MaxVIFColumn,
-			Rank: p.Rank, Columns: p.Columns}, nil
+		return Observation{At: p.At, ConditionNumber: p.ConditionNumber, CenteredCondition: p.CenteredCondition,
+			Cond: p.CenteredCondition, CondBasis: basis, MaxVIF: p.MaxVIF, MaxVIFColumn: p.MaxVIFColumn,
+			Rank: p.Rank, Columns: p.Columns, Full: true, R2: math.NaN(), BucketCond: math.NaN(), BucketVIF: math.NaN()}, nil
 	}
-	var rep diagnostics.Report
-	if err := json.Unmarshal(p.Report, &rep); err != nil {
+	rep, x, err := decodeReport(p.Report)
+	if err != nil {
 		return Observation{}, fmt.Errorf("watch %q point %s: report: %w", p.Watch, p.At.Format(time.RFC3339), err)
 	}
-	o := Observe(p.At, &rep)
-	return o, nil
+	return Observe(p.At, rep, x, basis), nil
 }
 
 func finiteOrInf(x float64) float64 {
@@ -145,3 +305,7 @@ func (d ExactDependency) subjectKey() string {
 	slices.Sort(cols)
 	return strings.Join(cols, "+")
 }
+
+// constantKey is the onset key of a constant column (apart from the
+// exact dependencies' keys, which join two or more names).
+func constantKey(name string) string { return "constant:" + name }

@@ -10,6 +10,7 @@ import (
 
 	"plumb/agent/config"
 	"plumb/connectors"
+	"plumb/diagnostics"
 )
 
 // Clock tells the wall time; tests inject their own.
@@ -209,7 +210,9 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 			bySeg[g.Key.Segment] = append(bySeg[g.Key.Segment], acc{g.Moments, g.QR})
 		}
 		col.latest = at
-		r.points(w, regressors, cols, at, bySeg, col)
+		if err := r.points(w, regressors, cols, at, bySeg, col, nil); err != nil {
+			return nil, err
+		}
 		return col, nil
 	}
 
@@ -292,14 +295,44 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 			accs[bucketKey{b.Start, b.Segment}] = a
 		}
 	}
+	hist, err := r.history(ctx, w, cols, accs, starts[0], !since.IsZero())
+	if err != nil {
+		return nil, err
+	}
 	// One point per scanned bucket: the window ending at its end.
 	for _, s := range starts {
 		end := calendar(w).End(s)
 		bySeg := orderedBySeg(accs, windowStart(end, w), end)
-		r.points(w, regressors, cols, end, bySeg, col)
+		if err := r.points(w, regressors, cols, end, bySeg, col, hist); err != nil {
+			return nil, err
+		}
 		col.latest = end
 	}
 	return col, nil
+}
+
+// history wraps a run's bucket accumulators for onsets and warm-up: the
+// oldest bucket of each segment comes from the store (when the run did not
+// rescan everything) and from what the run scanned.
+func (r *Runner) history(ctx context.Context, w *config.Watch, cols []string, accs map[bucketKey]acc, oldestScanned time.Time, incremental bool) (*bucketHistory, error) {
+	h := &bucketHistory{ctx: ctx, store: r.Store, w: w, cal: calendar(w), cols: cols, accs: accs,
+		first: map[string]time.Time{}, loadedFrom: oldestScanned}
+	if incremental {
+		stored, err := r.Store.FirstBuckets(ctx, w.Name)
+		if err != nil {
+			return nil, err
+		}
+		h.first = stored
+	}
+	for k := range accs {
+		if f, ok := h.first[k.seg]; !ok || k.start.Before(f) {
+			h.first[k.seg] = k.start
+		}
+		if k.start.Before(h.loadedFrom) {
+			h.loadedFrom = k.start
+		}
+	}
+	return h, nil
 }
 
 // bucketKey names a bucket accumulator within a run.
@@ -337,8 +370,11 @@ func orderedBySeg(accs map[bucketKey]acc, from, end time.Time) map[string][]acc 
 }
 
 // points analyzes the window ending at at: the whole table (all segments
-// merged, in segment order) and, with segment_by, each segment.
-func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time, bySeg map[string][]acc, col *collected) {
+// merged, in segment order) and, with segment_by, each segment. With a
+// bucket history (bucketed watches) each point also gets its window's
+// fullness, the onsets of its exact dependencies and constant columns, and
+// the judged numbers of its last bucket alone.
+func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time, bySeg map[string][]acc, col *collected, hist *bucketHistory) error {
 	segs := make([]string, 0, len(bySeg))
 	for s := range bySeg {
 		segs = append(segs, s)
@@ -366,7 +402,23 @@ func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time
 			col.skipped = append(col.skipped, fmt.Sprintf("%s segment %q: %v", at.Format(time.RFC3339), seg, err))
 			continue
 		}
-		p, o, err := PointFromReport(w.Name, seg, at, rep)
+		x := newExtra()
+		judgedCols := regressors
+		if out := leftOut(rep); len(out) > 0 {
+			x.LeftOut = out
+			judgedCols = slices.DeleteFunc(slices.Clone(regressors), func(c string) bool { return slices.Contains(out, c) })
+			if len(judgedCols) >= 2 {
+				if x.Judged, err = analyze(w, judgedCols, a); err != nil {
+					x.Judged = nil
+				}
+			}
+		}
+		if hist != nil {
+			if err := r.bucketExtras(w, judgedCols, rep, seg, at, hist, x); err != nil {
+				return err
+			}
+		}
+		p, o, err := pointFrom(w.Name, seg, at, rep, x, w.Limits.ConditionBasis)
 		if err != nil {
 			col.skipped = append(col.skipped, err.Error())
 			continue
@@ -376,4 +428,60 @@ func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time
 		}
 		col.points[seg] = append(col.points[seg], pointObs{p, o})
 	}
+	return nil
+}
+
+// minBucketRows is how many rows per judged column (and the intercept) a
+// single bucket needs before its own VIFs and condition number are used
+// for trends (common practice, no source: with fewer, one bucket's
+// estimates scatter more than the drift they should show).
+const minBucketRows = 5
+
+// bucketExtras fills a bucketed point's extras: the window's start and
+// fullness, the onsets of exact dependencies and constant columns, and the
+// judged numbers of the window's last bucket alone.
+func (r *Runner) bucketExtras(w *config.Watch, judgedCols []string, rep *diagnostics.Report, seg string, at time.Time, hist *bucketHistory, x *pointExtra) error {
+	x.WindowStart = windowStart(at, w)
+	x.Full = hist.full(seg, at)
+	for _, d := range rep.Dependencies {
+		if d.Kind != diagnostics.KindExact {
+			continue
+		}
+		var key string
+		var holds func(acc) bool
+		if len(d.Columns) == 1 {
+			key = constantKey(d.Dependent)
+			v := *d.Intercept
+			holds = func(a acc) bool { return constantHolds(d.Dependent, v, a) }
+		} else {
+			key = ExactDependency{Columns: d.Columns}.subjectKey()
+			holds = func(a acc) bool { return equationHolds(d, a) }
+		}
+		on, err := hist.onset(seg, at, holds)
+		if err != nil {
+			return err
+		}
+		if !on.IsZero() {
+			if x.Onsets == nil {
+				x.Onsets = map[string]time.Time{}
+			}
+			x.Onsets[key] = on
+		}
+	}
+	last, ok, err := hist.bucket(seg, hist.cal.LastBucket(at))
+	if err != nil || !ok || len(judgedCols) < 2 || last.m.N() < int64(minBucketRows*(len(judgedCols)+1)) {
+		return err
+	}
+	brep, err := analyze(w, judgedCols, last)
+	if err != nil {
+		return nil // too few usable rows in that bucket: no per-bucket numbers
+	}
+	if len(leftOut(brep)) > 0 {
+		return nil // the bucket alone is singular: its numbers say nothing of a drift
+	}
+	_, vif, _ := judgedNumbers(brep, config.ConditionCentered)
+	x.BucketVIF = jfloat(vif)
+	x.BucketCond = jfloat(finiteOrInf(brep.ConditionNumber))
+	x.BucketCCond = jfloat(finiteOrInf(brep.CenteredConditionNumber))
+	return nil
 }

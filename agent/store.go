@@ -290,6 +290,9 @@ type Store interface {
 
 	// LastBucket returns the start of the watch's newest bucket.
 	LastBucket(ctx context.Context, watch string) (time.Time, bool, error)
+	// FirstBuckets returns the start of the oldest bucket of each of the
+	// watch's segments (the key is the bucket's segment).
+	FirstBuckets(ctx context.Context, watch string) (map[string]time.Time, error)
 	// Buckets returns the watch's buckets starting in [from, to) (zero
 	// times are open ends), ordered by start, then segment.
 	Buckets(ctx context.Context, watch string, from, to time.Time) ([]Bucket, error)

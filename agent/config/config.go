@@ -200,20 +200,20 @@ type Watch struct {
 
 // Limits are a watch's alert levels and rule settings.
 type Limits struct {
-	VIF         Level    `yaml:"vif"`
-	Condition   Level    `yaml:"condition"`
+	VIF       Level `yaml:"vif"`
+	Condition Level `yaml:"condition"`
 	// ConditionBasis says which condition number the condition levels,
 	// trends and jumps judge: "centered" (default), the centered,
 	// column-scaled design — collinearity among the columns themselves,
 	// which is what inflates the slopes' variances — or "intercept", the
 	// column-scaled design with the intercept column, which also grows
 	// when a column's spread is small beside its mean.
-	ConditionBasis string `yaml:"condition_basis"`
-	Horizon     Duration `yaml:"horizon"`
-	ClearAfter  int      `yaml:"clear_after"`
-	BlindAfter  int      `yaml:"blind_after"`
-	Jump        float64  `yaml:"jump"`
-	TrendPoints int      `yaml:"trend_points"`
+	ConditionBasis string   `yaml:"condition_basis"`
+	Horizon        Duration `yaml:"horizon"`
+	ClearAfter     int      `yaml:"clear_after"`
+	BlindAfter     int      `yaml:"blind_after"`
+	Jump           float64  `yaml:"jump"`
+	TrendPoints    int      `yaml:"trend_points"`
 }
 
 // Level is a pair of warn and critical thresholds.

@@ -111,6 +111,26 @@ func (s *Store) LastBucket(ctx context.Context, watch string) (time.Time, bool, 
 	return fromNullMicro(v), v.Valid, nil
 }
 
+// FirstBuckets returns the start of the oldest bucket of each of the
+// watch's segments.
+func (s *Store) FirstBuckets(ctx context.Context, watch string) (map[string]time.Time, error) {
+	rows, err := s.db.QueryContext(ctx, s.q(`SELECT segment, min(bucket_start) FROM plumb_buckets WHERE watch = ? GROUP BY segment`), watch)
+	if err != nil {
+		return nil, s.wrap("reading buckets of "+watch, err)
+	}
+	defer rows.Close()
+	out := map[string]time.Time{}
+	for rows.Next() {
+		var seg string
+		var v int64
+		if err := rows.Scan(&seg, &v); err != nil {
+			return nil, s.wrap("reading buckets of "+watch, err)
+		}
+		out[seg] = time.UnixMicro(v).UTC()
+	}
+	return out, s.wrap("reading buckets of "+watch, rows.Err())
+}
+
 // Buckets returns the watch's buckets starting in [from, to).
 func (s *Store) Buckets(ctx context.Context, watch string, from, to time.Time) ([]agent.Bucket, error) {
 	f, t := rangeMicro(from, to)
