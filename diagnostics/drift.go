@@ -128,6 +128,10 @@ type Trend struct {
 	Rate      float64 // relative change per unit of x: exp(Slope) − 1
 	Z         float64 // Mann–Kendall normal score of the series
 	N         int     // points used
+	// SlopeLo and SlopeHi bound Slope with 90 % confidence (Sen 1968,
+	// eq. 2.6: ranks of the pairwise slopes around the median, from the
+	// variance of Kendall's S with ties).
+	SlopeLo, SlopeHi float64
 }
 
 // MinTrendPoints is the fewest points LogTrend fits.
@@ -157,10 +161,59 @@ func LogTrend(x, v []float64) (Trend, bool) {
 	}
 	last := slices.Max(xs)
 	z, _ := MannKendallZ(xs, ls)
+	lo, hi := senInterval(xs, ls, trendConfidenceZ)
 	return Trend{
 		Slope: b, Intercept: a, Last: last,
 		Level: math.Exp(a + b*last), Rate: math.Expm1(b), Z: z, N: len(xs),
+		SlopeLo: lo, SlopeHi: hi,
 	}, true
+}
+
+// trendConfidenceZ is the standard normal quantile of a two-sided 90 %
+// interval, Φ⁻¹(0.95).
+const trendConfidenceZ = 1.6448536269514722
+
+// senInterval returns the confidence bounds of the Theil–Sen slope (Sen
+// 1968, eq. 2.6): with N pairwise slopes in ascending order and σ² the
+// variance of Kendall's S corrected for ties in x and in y, the bounds are
+// the slopes of rank round((N − zσ)/2) and round((N + zσ)/2) + 1 (1-based,
+// rounding half to even), clamped to the slopes there are.
+func senInterval(x, y []float64, z float64) (lo, hi float64) {
+	n := len(x)
+	var slopes []float64
+	for i := 0; i < n; i++ {
+		for j := 0; j < n; j++ {
+			if dx := x[j] - x[i]; dx > 0 {
+				slopes = append(slopes, (y[j]-y[i])/dx)
+			}
+		}
+	}
+	if len(slopes) == 0 {
+		return math.NaN(), math.NaN()
+	}
+	slices.Sort(slopes)
+	ties := func(v []float64) float64 {
+		s := slices.Clone(v)
+		slices.Sort(s)
+		var t float64
+		for i := 0; i < len(s); {
+			j := i
+			for j < len(s) && s[j] == s[i] {
+				j++
+			}
+			if k := float64(j - i); k > 1 {
+				t += k * (k - 1) * (2*k + 5)
+			}
+			i = j
+		}
+		return t
+	}
+	nf := float64(n)
+	sigma := math.Sqrt((nf*(nf-1)*(2*nf+5) - ties(x) - ties(y)) / 18)
+	nt := float64(len(slopes))
+	upper := min(int(math.RoundToEven((nt+z*sigma)/2)), len(slopes)-1)
+	lower := max(int(math.RoundToEven((nt-z*sigma)/2))-1, 0)
+	return slopes[lower], slopes[upper]
 }
 
 // Crossing returns the x at which the fitted line reaches limit: the

@@ -129,6 +129,8 @@ type driftGolden struct {
 		Slope      float64   `json:"slope"`
 		Intercept  float64   `json:"intercept"`
 		MannKendal float64   `json:"mann_kendall_z"`
+		SlopeLo    float64   `json:"slope_low_90"`
+		SlopeHi    float64   `json:"slope_high_90"`
 	} `json:"theil_sen"`
 	RobustZ []struct {
 		Name   string    `json:"name"`
@@ -139,7 +141,7 @@ type driftGolden struct {
 }
 
 // TestDriftAgainstScipy checks against scipy 1.10 (theilslopes with the
-// joint intercept, kendalltau, median_abs_deviation); the generating
+// joint intercept and its 90 % slope interval, kendalltau, median_abs_deviation); the generating
 // script is testdata/drift_scipy.py.
 func TestDriftAgainstScipy(t *testing.T) {
 	b, err := os.ReadFile("testdata/drift_scipy.json")
@@ -164,6 +166,10 @@ func TestDriftAgainstScipy(t *testing.T) {
 		// inverse: 1e-8 relative.
 		if !near(tr.Slope, c.Slope, 1e-12) || !near(tr.Intercept, c.Intercept, 1e-12) {
 			t.Errorf("%s: slope %v intercept %v; scipy %v %v", c.Name, tr.Slope, tr.Intercept, c.Slope, c.Intercept)
+		}
+		// Sen's interval picks two of the same pairwise slopes: to rounding.
+		if !near(tr.SlopeLo, c.SlopeLo, 1e-12) || !near(tr.SlopeHi, c.SlopeHi, 1e-12) {
+			t.Errorf("%s: slope interval [%v, %v]; scipy [%v, %v]", c.Name, tr.SlopeLo, tr.SlopeHi, c.SlopeLo, c.SlopeHi)
 		}
 		if !near(tr.Z, c.MannKendal, 1e-8) {
 			t.Errorf("%s: Mann-Kendall z %v; scipy %v", c.Name, tr.Z, c.MannKendal)

@@ -8,6 +8,8 @@ Writes drift_scipy.json. Run from this directory with Debian's python3
 
 - theil_sen: scipy.stats.theilslopes(y, x, method="joint"): slope is the
   median of pairwise slopes, intercept the median of y - slope*x.
+- slope_low_90, slope_high_90: scipy.stats.theilslopes(y, x, alpha=0.90),
+  Sen's (1968) 90 % confidence interval of the slope.
 - mann_kendall_z: scipy.stats.kendalltau(x, y, method="asymptotic"); x has
   no ties, so the normal score of S with tie-corrected variance and no
   continuity correction is sign(tau) * isf(p/2).
@@ -45,11 +47,12 @@ cases = [
 ]
 for name, x, v in cases:
     ly = np.log(v)
-    res = stats.theilslopes(ly, x, method="joint")
+    res = stats.theilslopes(ly, x, alpha=0.90, method="joint")
     tau, p = stats.kendalltau(x, ly, method="asymptotic")
     z = float(np.sign(tau) * stats.norm.isf(p / 2))
     out["theil_sen"].append({"name": name, "x": x.tolist(), "value": v.tolist(),
                              "slope": float(res[0]), "intercept": float(res[1]),
+                             "slope_low_90": float(res[2]), "slope_high_90": float(res[3]),
                              "mann_kendall_z": z})
 
 for name, sample, x in [
