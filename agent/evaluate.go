@@ -68,7 +68,8 @@ func (e *evaluation) openOf(seg string) map[string]*Alert {
 }
 
 func (e *evaluation) rules(seg string) *Rules {
-	return &Rules{Watch: e.w.Name, Segment: seg, Limits: e.w.Limits}
+	return &Rules{Watch: e.w.Name, Segment: seg, Limits: e.w.Limits, Expected: e.w.ExpectedDependencies,
+		Bucket: e.w.Bucket, Loc: e.w.Location}
 }
 
 func (e *evaluation) ruleState(seg string) (*RuleState, error) {

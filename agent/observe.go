@@ -25,7 +25,10 @@ import (
 type Observation struct {
 	At          time.Time // window end (exclusive)
 	WindowStart time.Time // zero for a watch without buckets
-	Rows        int64
+	// Day is the data time the window ends on: the start of its last
+	// bucket (At itself for a watch without buckets).
+	Day  time.Time
+	Rows int64
 	// Full says the window lies wholly within the data: a window still
 	// filling holds fewer buckets than the watch's window and opens no
 	// alert.
@@ -78,6 +81,7 @@ type ConstantColumn struct {
 // see what the live run saw.
 type pointExtra struct {
 	WindowStart time.Time            `json:"window_start,omitzero"`
+	LastBucket  time.Time            `json:"last_bucket,omitzero"`
 	Full        bool                 `json:"window_full"`
 	LeftOut     []string             `json:"left_out,omitempty"`
 	Judged      *diagnostics.Report  `json:"judged,omitempty"`
@@ -209,7 +213,7 @@ func Observe(at time.Time, rep *diagnostics.Report, x *pointExtra, basis string)
 		basis = config.DefaultConditionBasis
 	}
 	o := Observation{
-		At: at, WindowStart: x.WindowStart, Rows: rep.RowsUsed, Full: x.Full,
+		At: at, WindowStart: x.WindowStart, Day: at, Rows: rep.RowsUsed, Full: x.Full,
 		ConditionNumber:   finiteOrInf(rep.ConditionNumber),
 		CenteredCondition: finiteOrInf(rep.CenteredConditionNumber),
 		CondBasis:         basis,
@@ -225,6 +229,9 @@ func Observe(at time.Time, rep *diagnostics.Report, x *pointExtra, basis string)
 	}
 	if basis == config.ConditionIntercept {
 		o.BucketCond = float64(x.BucketCond)
+	}
+	if !x.LastBucket.IsZero() {
+		o.Day = x.LastBucket
 	}
 	if o.singular() {
 		o.ConditionNumber, o.CenteredCondition = math.Inf(1), math.Inf(1)

@@ -21,14 +21,26 @@ import (
 // with the watch, so a backfill that replays the same points opens and
 // resolves the same alerts, with the same ids, at the same data times.
 //
-//   - level: condition number or max VIF at or above its warn level
-//     (warning) or critical level (critical).
-//   - exact: an exact linear dependency (rank drop): critical at once.
-//   - constant: a column that does not vary: critical at once.
-//   - trend: the Theil–Sen line of the log of the condition number (or max
-//     VIF) over the last trend_points points rises significantly
+// One alert per cause: a near dependency (level, trend, jump, on the design
+// without the columns that exact and constant alerts already explain), an
+// exact dependency, a constant column, a blind watch, an expected
+// dependency that broke. Each alert knows its onset in data time.
+//
+//   - level: the judged condition number (centered by default) or max VIF
+//     at or above its warn level (warning) or critical level (critical).
+//   - exact: an exact linear dependency (rank drop): critical at once,
+//     dated to the first bucket of the unbroken run in which it holds. An
+//     exact dependency among the columns of one expected_dependencies set
+//     is expected and not alerted.
+//   - broken: an expected dependency that held stopped holding: warning.
+//   - constant: a column that does not vary: critical at once, dated to
+//     the first bucket of its constant run.
+//   - trend: the Theil–Sen line of the log of the judged condition number
+//     (or max VIF) over the last trend_points points rises significantly
 //     (Mann–Kendall z ≥ 1.645) and reaches the critical level within the
-//     horizon: warning, saying when.
+//     horizon: warning, saying when, with Sen's 90 % range. It is fitted on
+//     the numbers of each window's last bucket alone where buckets hold
+//     enough rows (no window lag), else on full windows only.
 //   - jump: the latest change of the log value is far outside the recent
 //     changes (robust z ≥ jump) and at least 25 %, in the band where it is
 //     news: the value before or after it at least half the warn level, the
@@ -36,12 +48,17 @@ import (
 //   - blind: blind_after consecutive failed runs: warning, resolved by the
 //     next run that succeeds.
 //
+// Warm-up: a window that is not yet full (fewer buckets of data than the
+// watch's window) opens no level, exact, constant, jump or broken alert,
+// and trends never read its composition.
+//
 // Hysteresis: an alert other than blind resolves only after its condition
 // has been absent for clear_after consecutive points.
 
 // Metric names.
 const (
-	MetricCondition = "condition_number"
+	MetricCondition = "condition_number"          // with the intercept column
+	MetricCentered  = "centered_condition_number" // the columns among themselves
 	MetricMaxVIF    = "max_vif"
 )
 
@@ -71,18 +88,40 @@ const (
 type RuleState struct {
 	Recent []RecentPoint  `json:"recent,omitempty"` // the latest points, oldest first
 	Clear  map[string]int `json:"clear,omitempty"`  // key → consecutive points without the condition
+	// Above maps a metric to the first full point of its current unbroken
+	// run at or above the warn level: the onset of a level alert.
+	Above map[string]AboveSince `json:"above,omitempty"`
+	// Expected maps an expected exact dependency to what was seen of it.
+	Expected map[string]*ExpectedSeen `json:"expected,omitempty"`
+}
+
+// AboveSince is where a metric's run at or above the warn level began.
+type AboveSince struct {
+	Day time.Time `json:"day"`
+	R2  jfloat    `json:"r2"` // of the column with the largest VIF then
+}
+
+// ExpectedSeen is the history of one expected exact dependency.
+type ExpectedSeen struct {
+	Equation string    `json:"equation"`
+	Columns  []string  `json:"columns"`
+	Since    time.Time `json:"since"` // onset of its latest run
+	Holding  bool      `json:"holding"`
+	BrokeOn  time.Time `json:"broke_on,omitzero"` // set while it does not hold after it did
 }
 
 // RecentPoint is a point remembered for trends and jumps.
 type RecentPoint struct {
-	At   time.Time `json:"at"`
-	Cond jfloat    `json:"cond"`
-	VIF  jfloat    `json:"vif"`
+	At      time.Time `json:"at"`
+	Day     time.Time `json:"day,omitzero"`
+	Cond    jfloat    `json:"cond"`
+	VIF     jfloat    `json:"vif"`
+	BCond   jfloat    `json:"bcond"` // the last bucket's own numbers
+	BVIF    jfloat    `json:"bvif"`
+	Filling bool      `json:"filling,omitempty"` // the window was not yet full
 }
 
-// singular reports a rank-deficient design: its condition number only
-// says "singular" (about 1/eps), so trends and jumps leave it out — the
-// exact and constant rules speak for it.
+// singular reports a rank-deficient design.
 func (o Observation) singular() bool { return o.Columns > 0 && o.Rank < o.Columns+1 }
 
 // jfloat is a float64 whose non-finite values travel through JSON as
@@ -117,6 +156,12 @@ func DecodeRuleState(b []byte) (*RuleState, error) {
 	if st.Clear == nil {
 		st.Clear = map[string]int{}
 	}
+	if st.Above == nil {
+		st.Above = map[string]AboveSince{}
+	}
+	if st.Expected == nil {
+		st.Expected = map[string]*ExpectedSeen{}
+	}
 	return st, nil
 }
 
@@ -134,6 +179,12 @@ type Rules struct {
 	Watch   string
 	Segment string
 	Limits  config.Limits
+	// Expected are the watch's expected_dependencies.
+	Expected [][]string
+	// Bucket and Loc say how to name data days in messages ("" for a
+	// watch without buckets).
+	Bucket string
+	Loc    *time.Location
 }
 
 // Change is what a step did to an alert.
@@ -159,6 +210,11 @@ type finding struct {
 	severity Severity
 	message  string
 	detail   AlertDetail
+	onset    time.Time
+	columns  []string
+	drivers  []diagnostics.Driver
+	// limits are the warn and critical levels of a level finding.
+	warn, crit float64
 }
 
 func sevRank(s Severity) int {
@@ -168,9 +224,25 @@ func sevRank(s Severity) int {
 	return 1
 }
 
+// condMetric is the metric the condition levels judge.
+func (r *Rules) condMetric() string {
+	if r.Limits.ConditionBasis == config.ConditionIntercept {
+		return MetricCondition
+	}
+	return MetricCentered
+}
+
 // Step evaluates one observation: open maps AlertKey to the open alerts of
-// this watch and segment and is updated in place; now is the wall clock.
+// this watch and segment and is updated in place; now is the wall clock
+// (kept only as "recorded at").
 func (r *Rules) Step(st *RuleState, open map[string]*Alert, o Observation, now time.Time) []Change {
+	if st.Above == nil {
+		st.Above = map[string]AboveSince{}
+	}
+	if st.Expected == nil {
+		st.Expected = map[string]*ExpectedSeen{}
+	}
+	r.track(st, o)
 	fs := r.findings(st, open, o)
 	keys := make([]string, 0, len(fs)+len(open))
 	for k := range fs {
@@ -182,6 +254,7 @@ func (r *Rules) Step(st *RuleState, open map[string]*Alert, o Observation, now t
 		}
 	}
 	slices.Sort(keys)
+	window := &AlertWindow{Start: o.WindowStart, End: o.At, Rows: o.Rows}
 	var changes []Change
 	for _, k := range keys {
 		f, found := fs[k]
@@ -195,8 +268,10 @@ func (r *Rules) Step(st *RuleState, open map[string]*Alert, o Observation, now t
 			if sevRank(f.severity) > sevRank(a.Severity) {
 				event = EventEscalated
 				a.Severity = f.severity
+				a.Detail.Since = o.Day
 			}
-			a.Message, a.Detail = f.message, f.detail
+			r.update(a, f, o)
+			a.Window = window
 			a.UpdatedAsOf, a.UpdatedAt = o.At, now
 			changes = append(changes, Change{Alert: *a, Event: event})
 		case found:
@@ -205,18 +280,29 @@ func (r *Rules) Step(st *RuleState, open map[string]*Alert, o Observation, now t
 				ID: AlertID(r.Watch, r.Segment, f.rule, f.subject, o.At), Watch: r.Watch, Segment: r.Segment,
 				Rule: f.rule, Subject: f.subject, Severity: f.severity,
 				AsOf: o.At, OpenedAt: now, UpdatedAsOf: o.At, UpdatedAt: now,
-				Message: f.message, Detail: f.detail, NotifyState: NotifyPending,
+				NotifyState: NotifyPending, Onset: f.onset, Window: window,
 			}
+			if a.Onset.IsZero() {
+				a.Onset = o.Day
+			}
+			a.Detail.Since = a.Onset
+			r.update(a, f, o)
 			open[k] = a
 			changes = append(changes, Change{Alert: *a, Event: EventOpened})
 		default:
 			st.Clear[k]++
-			if st.Clear[k] >= r.Limits.ClearAfter {
+			left := r.Limits.ClearAfter - st.Clear[k]
+			if left <= 0 {
 				delete(st.Clear, k)
 				delete(open, k)
 				a.ResolvedAsOf, a.ResolvedAt = o.At, now
 				a.UpdatedAsOf, a.UpdatedAt = o.At, now
+				a.Message = r.resolvedMessage(a, o)
 				changes = append(changes, Change{Alert: *a, Event: EventResolved})
+			} else if m := r.clearingMessage(a, o, left); m != "" {
+				a.Message = m
+				a.UpdatedAsOf, a.UpdatedAt = o.At, now
+				changes = append(changes, Change{Alert: *a})
 			}
 		}
 	}
@@ -226,15 +312,185 @@ func (r *Rules) Step(st *RuleState, open map[string]*Alert, o Observation, now t
 			delete(st.Clear, k)
 		}
 	}
-	rp := RecentPoint{At: o.At, Cond: jfloat(o.ConditionNumber), VIF: jfloat(o.MaxVIF)}
-	if o.singular() {
-		rp.Cond = jfloat(math.NaN())
-	}
-	st.Recent = append(st.Recent, rp)
+	st.Recent = append(st.Recent, RecentPoint{At: o.At, Day: o.Day, Cond: jfloat(o.Cond), VIF: jfloat(o.MaxVIF),
+		BCond: jfloat(o.BucketCond), BVIF: jfloat(o.BucketVIF), Filling: !o.Full})
 	if n := r.Limits.TrendPoints; len(st.Recent) > n {
 		st.Recent = slices.Delete(st.Recent, 0, len(st.Recent)-n)
 	}
 	return changes
+}
+
+// update brings an alert up to a finding: message, detail, columns,
+// drivers, peak.
+func (r *Rules) update(a *Alert, f finding, o Observation) {
+	since, peak, peakOn := a.Detail.Since, a.Detail.Peak, a.Detail.PeakOn
+	a.Detail = f.detail
+	a.Detail.Since = since
+	a.Columns = f.columns
+	if a.Columns == nil {
+		a.Columns = []string{}
+	}
+	a.Drivers = f.drivers
+	if f.rule == RuleLevel || f.rule == RuleTrend {
+		if f.detail.Value > peak || peakOn.IsZero() {
+			peak, peakOn = f.detail.Value, o.Day
+		}
+		a.Detail.Peak, a.Detail.PeakOn = peak, peakOn
+	}
+	a.Message = f.message
+	if f.rule == RuleLevel {
+		a.Message = r.levelMessage(a, f.detail.Value, f.warn, f.crit)
+	}
+	a.Message = r.prefix() + a.Message
+}
+
+// levelMessage says where a level alert stands: its severity since when,
+// its peak, the current value and the levels it is above or under.
+func (r *Rules) levelMessage(a *Alert, v, warn, crit float64) string {
+	what := r.metricLabel(a.Detail.Metric, a.Subject)
+	if a.Detail.Column != "" {
+		what += " (" + a.Detail.Column + ")"
+	}
+	word := string(a.Severity)
+	var b strings.Builder
+	switch {
+	case a.Severity == Critical && v >= crit, a.Severity == Warning && v >= warn:
+		fmt.Fprintf(&b, "%s %s is at or above the %s level %s", what, num(v), word, num(levelOf(a.Severity, warn, crit)))
+		if !a.Detail.Since.IsZero() {
+			fmt.Fprintf(&b, " since %s", r.day(a.Detail.Since))
+		}
+		if a.Detail.Peak > v {
+			fmt.Fprintf(&b, "; peak %s on %s", num(a.Detail.Peak), r.day(a.Detail.PeakOn))
+		}
+	default:
+		fmt.Fprintf(&b, "%s since %s", word, r.day(a.Detail.Since))
+		if a.Detail.Peak > v {
+			fmt.Fprintf(&b, ", peak %s %s on %s", what, num(a.Detail.Peak), r.day(a.Detail.PeakOn))
+		}
+		if v >= warn {
+			fmt.Fprintf(&b, "; now %s, under the critical level %s but at or above the warning level %s", num(v), num(crit), num(warn))
+		} else {
+			fmt.Fprintf(&b, "; now %s, under the warning level %s", num(v), num(warn))
+		}
+	}
+	return b.String()
+}
+
+func levelOf(s Severity, warn, crit float64) float64 {
+	if s == Critical {
+		return crit
+	}
+	return warn
+}
+
+// levelValue returns the current judged value of a level alert's metric.
+func (r *Rules) levelValue(metric string, o Observation) float64 {
+	if metric == MetricMaxVIF {
+		return o.MaxVIF
+	}
+	return o.Cond
+}
+
+func (r *Rules) levelsOf(metric string) (warn, crit float64) {
+	if metric == MetricMaxVIF {
+		return r.Limits.VIF.Warn, r.Limits.VIF.Critical
+	}
+	return r.Limits.Condition.Warn, r.Limits.Condition.Critical
+}
+
+// clearingMessage rewrites the message of an open alert whose condition is
+// absent while its hysteresis runs, so that severity and message agree.
+func (r *Rules) clearingMessage(a *Alert, o Observation, left int) string {
+	if a.Rule != RuleLevel || !o.Full {
+		return ""
+	}
+	v := r.levelValue(a.Detail.Metric, o)
+	if !isFinite(v) {
+		return ""
+	}
+	warn, crit := r.levelsOf(a.Detail.Metric)
+	return r.prefix() + r.levelMessage(a, v, warn, crit) + fmt.Sprintf(": resolves after %d more %s under it", left, plural(left, "point", "points"))
+}
+
+// resolvedMessage says how an alert ended, in data time.
+func (r *Rules) resolvedMessage(a *Alert, o Observation) string {
+	when := r.day(o.Day)
+	switch a.Rule {
+	case RuleLevel:
+		v := r.levelValue(a.Detail.Metric, o)
+		warn, _ := r.levelsOf(a.Detail.Metric)
+		msg := fmt.Sprintf("resolved on %s: %s %s, under the warning level %s for %d points; was %s from %s",
+			when, r.metricLabel(a.Detail.Metric, a.Subject), num(v), num(warn), r.Limits.ClearAfter, a.Severity, r.day(a.Onset))
+		if a.Detail.Peak > 0 {
+			msg += fmt.Sprintf(", peak %s on %s", num(a.Detail.Peak), r.day(a.Detail.PeakOn))
+		}
+		return r.prefix() + msg
+	case RuleExact:
+		return r.prefix() + fmt.Sprintf("resolved on %s: %s no longer holds (it held from %s)", when, a.Detail.Equation, r.day(a.Onset))
+	case RuleConstant:
+		return r.prefix() + fmt.Sprintf("resolved on %s: %s varies again (constant from %s)", when, strings.Join(a.Columns, ", "), r.day(a.Onset))
+	case RuleBroken:
+		return r.prefix() + fmt.Sprintf("resolved on %s: the expected dependency %s holds again", when, a.Detail.Equation)
+	}
+	return r.prefix() + fmt.Sprintf("resolved on %s: %s", when, a.Message)
+}
+
+// track updates what the rules remember across points before judging
+// one: where the levels' runs began and the expected dependencies.
+func (r *Rules) track(st *RuleState, o Observation) {
+	if !o.Full {
+		return
+	}
+	for _, m := range []string{r.condMetric(), MetricMaxVIF} {
+		warn, _ := r.levelsOf(m)
+		v := r.levelValue(m, o)
+		if isFinite(v) && v >= warn {
+			if _, ok := st.Above[m]; !ok {
+				st.Above[m] = AboveSince{Day: o.Day, R2: jfloat(o.R2)}
+			}
+		} else {
+			delete(st.Above, m)
+		}
+	}
+	seen := map[string]bool{}
+	for _, d := range o.Exact {
+		if !r.expected(d.Columns) {
+			continue
+		}
+		k := d.subjectKey()
+		seen[k] = true
+		e := st.Expected[k]
+		if e == nil || !e.Holding && e.BrokeOn.IsZero() {
+			e = &ExpectedSeen{Columns: d.Columns, Since: d.Onset}
+			st.Expected[k] = e
+		}
+		e.Equation, e.Holding, e.BrokeOn = d.Equation, true, time.Time{}
+		if e.Since.IsZero() {
+			e.Since = o.Day
+		}
+	}
+	for k, e := range st.Expected {
+		if seen[k] {
+			continue
+		}
+		if !r.expected(e.Columns) {
+			delete(st.Expected, k) // no longer declared: forget it
+			continue
+		}
+		if e.Holding {
+			e.Holding, e.BrokeOn = false, o.Day
+		}
+	}
+}
+
+// expected reports whether all the columns lie in one declared set.
+func (r *Rules) expected(cols []string) bool {
+	for _, set := range r.Expected {
+		if !slices.ContainsFunc(cols, func(c string) bool { return !slices.Contains(set, c) }) {
+			return true
+		}
+	}
+	return false
 }
 
 func (r *Rules) findings(st *RuleState, open map[string]*Alert, o Observation) map[string]finding {
@@ -242,96 +498,231 @@ func (r *Rules) findings(st *RuleState, open map[string]*Alert, o Observation) m
 	add := func(f finding) { fs[AlertKey(f.rule, f.subject)] = f }
 	l := r.Limits
 	values := map[string]float64{}
-	if isFinite(o.ConditionNumber) {
-		values[MetricCondition] = o.ConditionNumber
+	for k, v := range map[string]float64{MetricCondition: o.ConditionNumber, MetricCentered: o.CenteredCondition, MetricMaxVIF: o.MaxVIF} {
+		if isFinite(v) {
+			values[k] = v
+		}
 	}
-	if isFinite(o.MaxVIF) {
-		values[MetricMaxVIF] = o.MaxVIF
+	if m := r.condMetric(); isFinite(o.Cond) {
+		values[m] = o.Cond // the judged design's
 	}
 	remedy := r.remedy(o)
+	condCols := r.involved(o)
+
+	if !o.Full {
+		// Warm-up: the window is still filling. Only a trend on the last
+		// buckets' own numbers may speak.
+		if f, ok := r.trendFinding(st, open, o, values, remedy, condCols); ok {
+			for _, x := range f {
+				add(x)
+			}
+		}
+		return fs
+	}
 
 	// Levels.
 	for _, m := range []struct {
 		metric string
 		v      float64
 		lv     config.Level
-	}{{MetricCondition, o.ConditionNumber, l.Condition}, {MetricMaxVIF, o.MaxVIF, l.VIF}} {
-		if !(m.v >= m.lv.Warn) {
+	}{{r.condMetric(), o.Cond, l.Condition}, {MetricMaxVIF, o.MaxVIF, l.VIF}} {
+		if !isFinite(m.v) || !(m.v >= m.lv.Warn) {
 			continue
 		}
-		sev, limit, word := Warning, m.lv.Warn, "warning"
+		sev, limit := Warning, m.lv.Warn
 		if m.v >= m.lv.Critical {
-			sev, limit, word = Critical, m.lv.Critical, "critical"
+			sev, limit = Critical, m.lv.Critical
 		}
-		what := metricName(m.metric)
-		if m.metric == MetricMaxVIF && o.MaxVIFColumn != "" {
-			what += " (" + o.MaxVIFColumn + ")"
-		}
-		msg := fmt.Sprintf("%s %s is at or above the %s level %s", what, num(m.v), word, num(limit))
-		if m.metric == MetricCondition && o.singular() {
-			msg = fmt.Sprintf("the design is singular (rank %d of %d): the condition number is effectively infinite, above the %s level %s",
-				o.Rank, o.Columns+1, word, num(limit))
-		}
-		add(finding{rule: RuleLevel, subject: m.metric, severity: sev,
-			message: r.prefix() + msg,
-			detail: AlertDetail{Metric: m.metric, Value: finiteOr0(m.v), Limit: limit, Values: values,
-				Columns: r.involved(o, m.metric), Remedy: remedy}})
+		f := finding{rule: RuleLevel, subject: m.metric, severity: sev, onset: st.Above[m.metric].Day,
+			warn: m.lv.Warn, crit: m.lv.Critical, columns: condCols,
+			detail: AlertDetail{Metric: m.metric, Value: m.v, Limit: limit, Values: values, Remedy: remedy}}
+		r.vifContext(&f, st, o)
+		add(f)
 	}
 
-	// Exact dependencies and constant columns.
+	// Exact dependencies (unless expected) and constant columns.
 	for _, d := range o.Exact {
+		if r.expected(d.Columns) {
+			continue
+		}
 		eq := d.Equation
 		if eq == "" {
 			eq = strings.Join(d.Columns, ", ") + " are linearly dependent"
 		}
-		add(finding{rule: RuleExact, subject: d.subjectKey(), severity: Critical,
-			message: r.prefix() + "exact linear dependency: " + eq,
+		onset := d.Onset
+		if onset.IsZero() {
+			onset = o.Day
+		}
+		others := slices.DeleteFunc(slices.Clone(d.Columns), func(c string) bool { return c == d.Dependent })
+		add(finding{rule: RuleExact, subject: d.subjectKey(), severity: Critical, onset: onset, columns: d.Columns,
+			message: fmt.Sprintf("%s holds in %s since %s", eq, r.every(), r.day(onset)),
 			detail: AlertDetail{Values: values, Columns: d.Columns, Equation: d.Equation,
-				Remedy: "one column is an exact combination of the others, so OLS cannot estimate their coefficients: " +
-					"drop one of " + strings.Join(d.Columns, ", ") + " or restore the upstream definition that made it so"}})
+				Remedy: fmt.Sprintf("%s is an exact combination of %s, so OLS cannot estimate their coefficients together: "+
+					"drop %s from the model (it is the derived column) or restore the upstream definition that made it so; %s",
+					d.Dependent, strings.Join(others, ", "), d.Dependent, dropCaution(o))}})
 	}
 	for _, c := range o.Constant {
-		add(finding{rule: RuleConstant, subject: c.Name, severity: Critical,
-			message: r.prefix() + fmt.Sprintf("column %s is constant (%s) in the window: its coefficient cannot be estimated", c.Name, num(c.Value)),
+		onset := c.Onset
+		if onset.IsZero() {
+			onset = o.Day
+		}
+		add(finding{rule: RuleConstant, subject: c.Name, severity: Critical, onset: onset, columns: []string{c.Name},
+			message: fmt.Sprintf("%s is constant at %s in %s since %s: its coefficient cannot be estimated", c.Name, num(c.Value), r.every(), r.day(onset)),
 			detail: AlertDetail{Values: values, Columns: []string{c.Name},
 				Remedy: "check what feeds " + c.Name + " (a stuck sensor, a default value?); widen the window so that it varies, or leave it out of the model until it does"}})
 	}
-
-	// Trends and jumps over the recent points and this one.
-	for _, m := range []struct {
-		metric     string
-		v          float64
-		warn, crit float64
-		get        func(RecentPoint) float64
-	}{
-		{MetricCondition, o.ConditionNumber, l.Condition.Warn, l.Condition.Critical, func(p RecentPoint) float64 { return float64(p.Cond) }},
-		{MetricMaxVIF, o.MaxVIF, l.VIF.Warn, l.VIF.Critical, func(p RecentPoint) float64 { return float64(p.VIF) }},
-	} {
-		if !isFinite(m.v) || !(m.v > 0) || m.metric == MetricCondition && o.singular() {
+	// Expected dependencies that stopped holding.
+	for k, e := range st.Expected {
+		if e.Holding || e.BrokeOn.IsZero() {
 			continue
 		}
-		recent := st.Recent
-		if n := l.TrendPoints - 1; len(recent) > n {
-			recent = recent[len(recent)-n:]
+		add(finding{rule: RuleBroken, subject: k, severity: Warning, onset: e.BrokeOn, columns: e.Columns,
+			message: fmt.Sprintf("the expected dependency %s, which held from %s, stopped holding on %s: an upstream definition changed",
+				e.Equation, r.day(e.Since), r.day(e.BrokeOn)),
+			detail: AlertDetail{Values: values, Columns: e.Columns, Equation: e.Equation,
+				Remedy: "find the upstream change to " + strings.Join(e.Columns, ", ") + "; if the new definition is intended, update expected_dependencies, or acknowledge this alert"}})
+	}
+
+	// Trends and jumps.
+	if f, ok := r.trendFinding(st, open, o, values, remedy, condCols); ok {
+		for _, x := range f {
+			add(x)
 		}
-		// A trend warns ahead of the critical level: it opens only below
-		// it, and then stays open while the rise goes on.
-		_, trendOpen := open[AlertKey(RuleTrend, m.metric)]
-		if f, ok := r.trend(recent, m.get, o.At, m.v, m.metric, m.crit, values, remedy, o); ok && (trendOpen || m.v < m.crit) {
-			add(f)
+	}
+	for _, m := range []struct {
+		metric string
+		v      float64
+		warn   float64
+		get    func(RecentPoint) float64
+	}{
+		{r.condMetric(), o.Cond, l.Condition.Warn, func(p RecentPoint) float64 { return float64(p.Cond) }},
+		{MetricMaxVIF, o.MaxVIF, l.VIF.Warn, func(p RecentPoint) float64 { return float64(p.VIF) }},
+	} {
+		if !isFinite(m.v) || !(m.v > 0) {
+			continue
 		}
-		if f, ok := r.jump(recent, m.get, o.At, m.v, m.metric, m.warn, values, remedy, o); ok {
+		if f, ok := r.jump(fullOnly(st.Recent), m.get, o, m.v, m.metric, m.warn, values, remedy, condCols); ok {
+			r.vifContext(&f, st, o)
 			add(f)
 		}
 	}
 	return fs
 }
 
-func (r *Rules) trend(recent []RecentPoint, get func(RecentPoint) float64, at time.Time, v float64, metric string,
-	crit float64, values map[string]float64, remedy string, o Observation) (finding, bool) {
+// vifContext adds the drivers and R² of a VIF finding.
+func (r *Rules) vifContext(f *finding, st *RuleState, o Observation) {
+	if f.subject != MetricMaxVIF && f.detail.Metric != MetricMaxVIF {
+		if f.detail.Metric != "" {
+			f.detail.Basis = r.Limits.ConditionBasis
+			if f.detail.Basis == "" {
+				f.detail.Basis = config.DefaultConditionBasis
+			}
+		}
+		return
+	}
+	f.drivers = o.Drivers
+	f.detail.Column = o.MaxVIFColumn
+	if isFinite(o.R2) {
+		v := o.R2
+		f.detail.R2Now = &v
+	}
+	if a, ok := st.Above[MetricMaxVIF]; ok && isFinite(float64(a.R2)) {
+		v := float64(a.R2)
+		f.detail.R2Onset = &v
+	}
+	cols := []string{}
+	if o.MaxVIFColumn != "" {
+		cols = append(cols, o.MaxVIFColumn)
+	}
+	for _, d := range o.Drivers {
+		if !slices.Contains(cols, d.Column) {
+			cols = append(cols, d.Column)
+		}
+	}
+	for _, c := range f.columns {
+		if !slices.Contains(cols, c) {
+			cols = append(cols, c)
+		}
+	}
+	f.columns = cols
+}
+
+func fullOnly(ps []RecentPoint) []RecentPoint {
+	out := make([]RecentPoint, 0, len(ps))
+	for _, p := range ps {
+		if !p.Filling {
+			out = append(out, p)
+		}
+	}
+	return out
+}
+
+// trendFinding fits the trends of the judged condition number and max VIF.
+// It uses the last buckets' own numbers when every recent point has them,
+// and otherwise the full windows only.
+func (r *Rules) trendFinding(st *RuleState, open map[string]*Alert, o Observation, values map[string]float64, remedy string, condCols []string) ([]finding, bool) {
+	l := r.Limits
+	var out []finding
+	for _, m := range []struct {
+		metric    string
+		v, bv     float64
+		crit      float64
+		get, bget func(RecentPoint) float64
+	}{
+		{r.condMetric(), o.Cond, o.BucketCond, l.Condition.Critical,
+			func(p RecentPoint) float64 { return float64(p.Cond) }, func(p RecentPoint) float64 { return float64(p.BCond) }},
+		{MetricMaxVIF, o.MaxVIF, o.BucketVIF, l.VIF.Critical,
+			func(p RecentPoint) float64 { return float64(p.VIF) }, func(p RecentPoint) float64 { return float64(p.BVIF) }},
+	} {
+		recent := st.Recent
+		if n := l.TrendPoints - 1; len(recent) > n {
+			recent = recent[len(recent)-n:]
+		}
+		// The series: the last buckets' own numbers when all have them.
+		useBuckets := positive(m.bv) && len(recent)+1 >= minTrendPoints
+		for _, p := range recent {
+			if !positive(m.bget(p)) {
+				useBuckets = false
+				break
+			}
+		}
+		var pts []RecentPoint
+		get, cur := m.get, m.v
+		switch {
+		case useBuckets:
+			pts, get, cur = recent, m.bget, m.bv
+		case o.Full:
+			pts = fullOnly(recent)
+		default:
+			continue // a filling window's composition is no trend
+		}
+		if !positive(cur) {
+			continue
+		}
+		// A trend warns ahead of the critical level: it opens only while
+		// the window is under it, and then stays open while the rise goes on.
+		_, trendOpen := open[AlertKey(RuleTrend, m.metric)]
+		if !trendOpen && !(isFinite(m.v) && m.v < m.crit) {
+			continue
+		}
+		f, ok := r.trend(pts, get, o, cur, m.v, m.metric, m.crit, values, remedy, condCols)
+		if !ok {
+			continue
+		}
+		r.vifContext(&f, st, o)
+		out = append(out, f)
+	}
+	return out, len(out) > 0
+}
+
+func positive(v float64) bool { return v > 0 && isFinite(v) }
+
+func (r *Rules) trend(recent []RecentPoint, get func(RecentPoint) float64, o Observation, cur, windowValue float64, metric string,
+	crit float64, values map[string]float64, remedy string, cols []string) (finding, bool) {
 	if len(recent)+1 < minTrendPoints {
 		return finding{}, false
 	}
+	at := o.At
 	x := make([]float64, 0, len(recent)+1)
 	y := make([]float64, 0, len(recent)+1)
 	for _, p := range recent {
@@ -339,7 +730,7 @@ func (r *Rules) trend(recent []RecentPoint, get func(RecentPoint) float64, at ti
 		y = append(y, get(p))
 	}
 	x = append(x, 0)
-	y = append(y, v)
+	y = append(y, cur)
 	tr, ok := diagnostics.LogTrend(x, y)
 	if !ok || tr.N < minTrendPoints || tr.Z < trendZ || !(tr.Slope > 0) {
 		return finding{}, false
@@ -349,25 +740,38 @@ func (r *Rules) trend(recent []RecentPoint, get func(RecentPoint) float64, at ti
 	if !ok || cx > horizon {
 		return finding{}, false
 	}
-	when := at.Add(time.Duration(cx * float64(24*time.Hour)))
-	var msg string
-	rate := fmt.Sprintf("rising ~%s/day", pct(tr.Rate))
-	switch {
-	case v >= crit:
-		msg = fmt.Sprintf("%s %s is above %s and still %s", metricName(metric), num(v), num(crit), rate)
-	case cx <= 1:
-		msg = fmt.Sprintf("%s %s %s: reaches %s within a day", metricName(metric), num(v), rate, num(crit))
-	default:
-		msg = fmt.Sprintf("%s %s %s: reaches %s in about %d days (around %s)", metricName(metric), num(v), rate, num(crit),
-			int(math.Round(cx)), when.UTC().Format("2006-01-02"))
+	dayOf := func(dx float64) time.Time { return o.Day.Add(time.Duration(dx * float64(24*time.Hour))) }
+	when := dayOf(cx)
+	var rng string
+	if tr.SlopeHi > 0 && tr.SlopeLo > 0 && cx > 0 {
+		gap := math.Log(crit) - (tr.Intercept)
+		early, late := dayOf(gap/tr.SlopeHi), dayOf(gap/tr.SlopeLo)
+		rng = fmt.Sprintf(", between %s and %s", r.day(early), r.day(late))
+	} else if tr.SlopeHi > 0 && cx > 0 {
+		rng = fmt.Sprintf(", not before %s", r.day(dayOf((math.Log(crit)-tr.Intercept)/tr.SlopeHi)))
 	}
-	return finding{rule: RuleTrend, subject: metric, severity: Warning, message: r.prefix() + msg,
-		detail: AlertDetail{Metric: metric, Value: v, Limit: crit, Values: values, Columns: r.involved(o, metric), Remedy: remedy,
+	name := r.metricLabel(metric, metric)
+	rate := fmt.Sprintf("rising ~%s/day", pct(tr.Rate))
+	var msg string
+	switch {
+	case windowValue >= crit:
+		msg = fmt.Sprintf("%s %s is above %s and still %s", name, num(windowValue), num(crit), rate)
+	case cx <= 1:
+		msg = fmt.Sprintf("%s %s %s: reaches %s within a day", name, num(windowValue), rate, num(crit))
+	default:
+		msg = fmt.Sprintf("%s %s %s: reaches %s around %s%s", name, num(windowValue), rate, num(crit), r.day(when), rng)
+	}
+	first := recent[0].Day
+	if first.IsZero() {
+		first = recent[0].At
+	}
+	return finding{rule: RuleTrend, subject: metric, severity: Warning, message: msg, onset: first, columns: cols,
+		detail: AlertDetail{Metric: metric, Value: windowValue, Limit: crit, Values: values, Remedy: remedy,
 			Forecast: &Forecast{RatePerDay: tr.Rate, Crossing: when.UTC(), Limit: crit}}}, true
 }
 
-func (r *Rules) jump(recent []RecentPoint, get func(RecentPoint) float64, at time.Time, v float64, metric string,
-	warn float64, values map[string]float64, remedy string, o Observation) (finding, bool) {
+func (r *Rules) jump(recent []RecentPoint, get func(RecentPoint) float64, o Observation, v float64, metric string,
+	warn float64, values map[string]float64, remedy string, cols []string) (finding, bool) {
 	if len(recent) == 0 {
 		return finding{}, false
 	}
@@ -394,16 +798,20 @@ func (r *Rules) jump(recent []RecentPoint, get func(RecentPoint) float64, at tim
 	if d < 0 {
 		dir = "dropped"
 	}
-	msg := fmt.Sprintf("%s %s from %s to %s (%+.0f%%) since %s, far outside the recent point-to-point changes (robust z %.1f)",
-		metricName(metric), dir, num(prev), num(v), 100*math.Expm1(d), recent[len(recent)-1].At.UTC().Format("2006-01-02 15:04"), z)
-	return finding{rule: RuleJump, subject: metric, severity: Warning, message: r.prefix() + msg,
-		detail: AlertDetail{Metric: metric, Value: v, Values: values, Columns: r.involved(o, metric), Remedy: remedy}}, true
+	prevDay := recent[len(recent)-1].Day
+	if prevDay.IsZero() {
+		prevDay = recent[len(recent)-1].At
+	}
+	msg := fmt.Sprintf("%s %s from %s on %s to %s on %s (%+.0f%%), far outside the recent changes (robust z %.1f)",
+		r.metricLabel(metric, metric), dir, num(prev), r.day(prevDay), num(v), r.day(o.Day), 100*math.Expm1(d), z)
+	return finding{rule: RuleJump, subject: metric, severity: Warning, message: msg, onset: o.Day, columns: cols,
+		detail: AlertDetail{Metric: metric, Value: v, Values: values, Remedy: remedy}}, true
 }
 
-// involved names the columns behind a metric: for max VIF those at or
-// above the VIF warn level, worst first; for the condition number the
-// same (the columns taking part in the near dependencies).
-func (r *Rules) involved(o Observation, metric string) []string {
+// involved names the columns behind a near dependency: those whose VIF is
+// at or above the VIF warn level, worst first; when none is, the column
+// with the largest VIF and what explains it.
+func (r *Rules) involved(o Observation) []string {
 	type cv struct {
 		name string
 		v    float64
@@ -423,24 +831,31 @@ func (r *Rules) involved(o Observation, metric string) []string {
 		}
 		return strings.Compare(a.name, b.name)
 	})
-	out := make([]string, len(cs))
-	for i, c := range cs {
-		out[i] = c.name
+	out := make([]string, 0, len(cs))
+	for _, c := range cs {
+		out = append(out, c.name)
+	}
+	if len(out) == 0 && o.MaxVIFColumn != "" {
+		out = append(out, o.MaxVIFColumn)
+		for _, d := range o.Drivers {
+			out = append(out, d.Column)
+		}
 	}
 	return out
 }
 
+func dropCaution(o Observation) string {
+	if o.DropCaution != "" {
+		return o.DropCaution
+	}
+	return "dropping a relevant column trades variance for omitted-variable bias"
+}
+
 func (r *Rules) remedy(o Observation) string {
 	if len(o.SuggestedDrops) > 0 {
-		s := "consider dropping or combining " + strings.Join(o.SuggestedDrops, ", ") + ", which brings every VIF under the limit"
-		if o.DropCaution != "" {
-			s += "; " + o.DropCaution
-		} else {
-			s += "; dropping a relevant column trades variance for omitted-variable bias"
-		}
-		return s
+		return "consider dropping or combining " + strings.Join(o.SuggestedDrops, ", ") + ", which brings every VIF under the limit; " + dropCaution(o)
 	}
-	return "look for columns that measure the same thing: combine them, or replace the correlated block by its principal components"
+	return "look for columns that measure the same thing: combine them, or replace the correlated block by its principal components; " + dropCaution(o)
 }
 
 func (r *Rules) prefix() string {
@@ -448,6 +863,37 @@ func (r *Rules) prefix() string {
 		return ""
 	}
 	return "segment " + r.Segment + ": "
+}
+
+// day names a data time the way the watch's buckets do: a date, or a date
+// and hour for hourly buckets, in the watch's zone.
+func (r *Rules) day(t time.Time) string {
+	loc := r.Loc
+	if loc == nil {
+		loc = time.UTC
+	}
+	switch r.Bucket {
+	case "hour", "":
+		return t.In(loc).Format("2006-01-02 15:04")
+	case "month":
+		return t.In(loc).Format("2006-01")
+	}
+	return t.In(loc).Format("2006-01-02")
+}
+
+// every names the stretch an exact or constant finding covers.
+func (r *Rules) every() string {
+	switch r.Bucket {
+	case "":
+		return "every row of the table"
+	case "hour":
+		return "every hour"
+	case "week":
+		return "every week"
+	case "month":
+		return "every month"
+	}
+	return "every day"
 }
 
 // Failure records a failed run: after blind_after consecutive failures
@@ -465,6 +911,7 @@ func (r *Rules) Failure(open map[string]*Alert, failures int, runErr string, now
 	a := &Alert{
 		ID: AlertID(r.Watch, "", RuleBlind, "", now), Watch: r.Watch, Rule: RuleBlind, Severity: Warning,
 		AsOf: now, OpenedAt: now, UpdatedAsOf: now, UpdatedAt: now, Message: msg, NotifyState: NotifyPending,
+		Onset: now, Columns: []string{},
 		Detail: AlertDetail{LastError: runErr, Remedy: "check that the source is reachable and the table or query still exists; plumb retries at every scheduled run"},
 	}
 	open[k] = a
@@ -486,31 +933,34 @@ func (r *Rules) Success(open map[string]*Alert, now time.Time) []Change {
 
 func isFinite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 
-func finiteOr0(v float64) float64 {
-	if isFinite(v) {
-		return v
-	}
-	return 0
-}
-
 func days(d time.Duration) float64 { return d.Hours() / 24 }
 
-func metricName(m string) string {
-	switch m {
+// metricLabel names a metric for a message.
+func (r *Rules) metricLabel(metric, fallback string) string {
+	switch metric {
 	case MetricCondition:
-		return "condition number"
+		return "condition number (with the intercept)"
+	case MetricCentered:
+		return "centered condition number"
 	case MetricMaxVIF:
 		return "max VIF"
 	}
-	return m
+	return fallback
+}
+
+func plural(n int, one, many string) string {
+	if n == 1 {
+		return one
+	}
+	return many
 }
 
 // num formats a value for a message: three significant digits, whole
-// numbers from 100 on.
+// numbers from 100 on, plain digits up to a million.
 func num(v float64) string {
 	switch {
 	case math.IsInf(v, 1):
-		return "infinite"
+		return "∞ (singular)"
 	case math.IsNaN(v):
 		return "undefined"
 	case math.Abs(v) >= 1e6:

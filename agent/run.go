@@ -442,6 +442,7 @@ const minBucketRows = 5
 // judged numbers of the window's last bucket alone.
 func (r *Runner) bucketExtras(w *config.Watch, judgedCols []string, rep *diagnostics.Report, seg string, at time.Time, hist *bucketHistory, x *pointExtra) error {
 	x.WindowStart = windowStart(at, w)
+	x.LastBucket = hist.cal.LastBucket(at)
 	x.Full = hist.full(seg, at)
 	for _, d := range rep.Dependencies {
 		if d.Kind != diagnostics.KindExact {

@@ -101,6 +101,8 @@ const (
 	RuleConstant Rule = "constant"
 	RuleJump     Rule = "jump"
 	RuleBlind    Rule = "blind"
+	// RuleBroken: an expected exact dependency that held stopped holding.
+	RuleBroken Rule = "broken"
 )
 
 // Severity of an alert.
@@ -162,9 +164,23 @@ func (a *Alert) Open() bool { return a.ResolvedAt.IsZero() }
 
 // AlertDetail is what a notification carries beside the message.
 type AlertDetail struct {
-	Metric    string             `json:"metric,omitempty"` // condition_number, max_vif
-	Value     float64            `json:"value,omitempty"`
-	Limit     float64            `json:"limit,omitempty"`
+	Metric string  `json:"metric,omitempty"` // condition_number, centered_condition_number, max_vif
+	Value  float64 `json:"value,omitempty"`
+	Limit  float64 `json:"limit,omitempty"`
+	// Basis says which condition number a condition metric is:
+	// "centered" or "intercept".
+	Basis string `json:"basis,omitempty"`
+	// Column is the column with the largest VIF (VIF alerts).
+	Column string `json:"column,omitempty"`
+	// Peak and PeakOn are the highest value while the alert is open and
+	// its data day; Since is the data day the current severity began.
+	Peak   float64   `json:"peak,omitempty"`
+	PeakOn time.Time `json:"peak_on,omitzero"`
+	Since  time.Time `json:"since,omitzero"`
+	// R2Onset and R2Now are the R² of the column with the largest VIF on
+	// the other columns, at the onset and now (VIF alerts).
+	R2Onset   *float64           `json:"r2_onset,omitempty"`
+	R2Now     *float64           `json:"r2_now,omitempty"`
 	Values    map[string]float64 `json:"values,omitempty"`
 	Columns   []string           `json:"columns,omitempty"`
 	Equation  string             `json:"equation,omitempty"`
