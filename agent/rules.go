@@ -119,6 +119,27 @@ type RecentPoint struct {
 	BCond   jfloat    `json:"bcond"` // the last bucket's own numbers
 	BVIF    jfloat    `json:"bvif"`
 	Filling bool      `json:"filling,omitempty"` // the window was not yet full
+	// LeftOut names the columns the judged design left out then: numbers
+	// of different designs are not one series.
+	LeftOut string `json:"left_out,omitempty"`
+}
+
+func leftOutKey(o Observation) string {
+	cols := slices.Clone(o.LeftOut)
+	slices.Sort(cols)
+	return strings.Join(cols, ",")
+}
+
+// comparable keeps the recent points judged on the same design as o.
+func comparable(ps []RecentPoint, o Observation) []RecentPoint {
+	k := leftOutKey(o)
+	out := make([]RecentPoint, 0, len(ps))
+	for _, p := range ps {
+		if p.LeftOut == k {
+			out = append(out, p)
+		}
+	}
+	return out
 }
 
 // singular reports a rank-deficient design.
@@ -313,7 +334,7 @@ func (r *Rules) Step(st *RuleState, open map[string]*Alert, o Observation, now t
 		}
 	}
 	st.Recent = append(st.Recent, RecentPoint{At: o.At, Day: o.Day, Cond: jfloat(o.Cond), VIF: jfloat(o.MaxVIF),
-		BCond: jfloat(o.BucketCond), BVIF: jfloat(o.BucketVIF), Filling: !o.Full})
+		BCond: jfloat(o.BucketCond), BVIF: jfloat(o.BucketVIF), Filling: !o.Full, LeftOut: leftOutKey(o)})
 	if n := r.Limits.TrendPoints; len(st.Recent) > n {
 		st.Recent = slices.Delete(st.Recent, 0, len(st.Recent)-n)
 	}
@@ -601,7 +622,7 @@ func (r *Rules) findings(st *RuleState, open map[string]*Alert, o Observation) m
 		if !isFinite(m.v) || !(m.v > 0) {
 			continue
 		}
-		if f, ok := r.jump(fullOnly(st.Recent), m.get, o, m.v, m.metric, m.warn, values, remedy, condCols); ok {
+		if f, ok := r.jump(fullOnly(comparable(st.Recent, o)), m.get, o, m.v, m.metric, m.warn, values, remedy, condCols); ok {
 			r.vifContext(&f, st, o)
 			add(f)
 		}
@@ -674,7 +695,7 @@ func (r *Rules) trendFinding(st *RuleState, open map[string]*Alert, o Observatio
 		{MetricMaxVIF, o.MaxVIF, o.BucketVIF, l.VIF.Critical,
 			func(p RecentPoint) float64 { return float64(p.VIF) }, func(p RecentPoint) float64 { return float64(p.BVIF) }},
 	} {
-		recent := st.Recent
+		recent := comparable(st.Recent, o)
 		if n := l.TrendPoints - 1; len(recent) > n {
 			recent = recent[len(recent)-n:]
 		}
