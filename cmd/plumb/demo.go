@@ -7,7 +7,6 @@ import (
 	"io"
 	"io/fs"
 	"log/slog"
-	"math"
 	"os"
 	"path/filepath"
 	"sort"
@@ -29,15 +28,8 @@ import (
 // in the YAML's comments, which the user reads.
 const demoConfigYAML = `# Written by plumb demo. Edit freely; plumb config check --config %[3]s explains it.
 #
-# Condition-number limits: plumb's condition number is that of [1 X] with
-# each column scaled to unit length but not centered, so a column whose
-# spread is small beside its mean (a district's connections, ~8000 +- 40)
-# is nearly a multiple of the intercept and lifts it far above the 15/30
-# rule of thumb, which is meant for centered or well-spread columns. The
-# levels below are set per watch at about 2.5 to 3 times what this table
-# shows on ordinary days once a window is full (the pooled volumes 28-42,
-# the pooled connections 320-490, one district's demand regression 75-135),
-# so that they speak only when a dependency forms. VIF limits are the common-practice 5 and 10.
+# Every watch runs on plumb's default limits: VIF 5 and 10, and the centered
+# condition number (the columns among themselves) 15 and 30.
 store: sqlite:%[1]s
 sources:
   districts: sqlite:%[2]s
@@ -56,10 +48,6 @@ watches:
     window: 14 buckets
     lookback: 3 buckets
     schedule: "15 6 * * *"
-    limits:
-      vif: {warn: 5, critical: 10}
-      condition: {warn: %[4]s, critical: %[5]s}
-      horizon: 14d
     notify: [log]
   # Connection counts, all districts pooled: an upstream change makes the
   # total the exact sum of its parts. An exact dependency shows once the
@@ -73,10 +61,6 @@ watches:
     window: 28 buckets
     lookback: 3 buckets
     schedule: "15 6 * * *"
-    limits:
-      vif: {warn: 5, critical: 10}
-      condition: {warn: %[6]s, critical: %[7]s}
-      horizon: 14d
     notify: [log]
   # The demand regression the analysts fit per district, on the columns
   # that move within a district from day to day (population, connections
@@ -94,16 +78,8 @@ watches:
     lookback: 3 buckets
     segment_by: district
     schedule: "15 6 * * *"
-    limits:
-      vif: {warn: 5, critical: 10}
-      condition: {warn: %[8]s, critical: %[9]s}
-      horizon: 14d
     notify: [log]
 `
-
-// demoLimits are the condition-number levels of the demo's watches
-// (warn, critical), in the order of demoConfigYAML.
-var demoLimits = []string{"100", "300", "1000", "3000", "400", "1500"}
 
 // demoFiles are the files plumb demo owns in its folder.
 var demoFiles = []string{"districts.db", "state.db", "plumb.yaml"}
@@ -263,33 +239,12 @@ func demoReport(ctx context.Context, w io.Writer, st agent.Store, c *config.Conf
 	}
 	day := func(at time.Time) int { return int(at.Sub(sc.Start).Hours()/24) - 1 } // a window's last day
 	date := func(d int) string { return sc.Start.AddDate(0, 0, d).Format(time.DateOnly) }
-	// A watch's first windows hold fewer buckets than its window: their
-	// few rows inflate VIFs by chance. Their alerts are counted apart.
-	var settled, warmup []agent.Alert
-	lastWarm := -1
-	for _, a := range alerts {
-		if wt := c.Watch(a.Watch); wt != nil && a.Rule != agent.RuleBlind && day(a.AsOf) < wt.Window.Buckets-1 {
-			warmup = append(warmup, a)
-			if !a.Open() {
-				lastWarm = max(lastWarm, day(a.ResolvedAsOf))
-			} else {
-				lastWarm = math.MaxInt
-			}
-			continue
-		}
-		settled = append(settled, a)
-	}
+	// No alert comes from a window that is still filling (the rules'
+	// warm-up), so every alert counts.
+	settled := alerts
 	groups := groupAlerts(settled)
 	fmt.Fprintf(w, "\nWhat plumb noticed (%d alerts; day = the last data day of the window that raised it, day 0 = %s):\n",
 		len(alerts), date(0))
-	if len(warmup) > 0 {
-		state := "one is still open"
-		if lastWarm < math.MaxInt {
-			state = fmt.Sprintf("all resolved by day %d", lastWarm)
-		}
-		fmt.Fprintf(w, "  %d alert(s) on the first windows, before they held a full window of rows (few rows inflate VIFs by chance): %s\n",
-			len(warmup), state)
-	}
 	tw = tabwriter.NewWriter(w, 2, 4, 2, ' ', 0)
 	for _, g := range groups {
 		where := g.watch
@@ -446,9 +401,5 @@ func demoStories(c *config.Config, sc demo.Scenario, points map[string][]agent.P
 }
 
 func demoConfigArgs(statePath, dbPath, cfgPath string) []any {
-	args := []any{statePath, dbPath, cfgPath}
-	for _, l := range demoLimits {
-		args = append(args, l)
-	}
-	return args
+	return []any{statePath, dbPath, cfgPath}
 }
