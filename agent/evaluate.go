@@ -45,7 +45,7 @@ func newEvaluation(r *Runner, w *config.Watch, opt RunOptions, stored []Alert, s
 		e.before[a.ID] = a
 		if a.Open() {
 			c := a
-			e.openOf(a.Segment)[AlertKey(a.Rule, a.Subject)] = &c
+			e.openOf(a.Segment)[a.Key()] = &c
 		}
 	}
 	for i := range states {

@@ -89,6 +89,10 @@ type pointExtra struct {
 	BucketCCond jfloat               `json:"bucket_centered_condition"`
 	BucketVIF   jfloat               `json:"bucket_max_vif"`
 	Onsets      map[string]time.Time `json:"onsets,omitempty"`
+	// Recent are exact dependencies that hold in the window's last
+	// buckets (recentBuckets) but not yet in the whole window: the
+	// dependency is forming, and said as such before the window fills with it.
+	Recent []diagnostics.Dependency `json:"recent_exact,omitempty"`
 }
 
 // newExtra returns the extras of an unbucketed point: always full, no
@@ -168,15 +172,16 @@ func pointFrom(watch, segment string, at time.Time, rep *diagnostics.Report, x *
 }
 
 // leftOut names the columns that the exact and constant rules explain:
-// each exact equation's dependent column and each constant column.
-func leftOut(rep *diagnostics.Report) []string {
+// each exact equation's dependent column and each constant column, of the
+// window and of extra dependencies.
+func leftOut(rep *diagnostics.Report, extra ...diagnostics.Dependency) []string {
 	var out []string
 	for _, c := range rep.Columns {
 		if c.Constant || c.NearConstant {
 			out = append(out, c.Name)
 		}
 	}
-	for _, d := range rep.Dependencies {
+	for _, d := range append(slices.Clone(rep.Dependencies), extra...) {
 		if d.Kind == diagnostics.KindExact && d.Dependent != "" && !slices.Contains(out, d.Dependent) {
 			out = append(out, d.Dependent)
 		}
@@ -265,7 +270,7 @@ func Observe(at time.Time, rep *diagnostics.Report, x *pointExtra, basis string)
 			o.Constant = append(o.Constant, ConstantColumn{Name: c.Name, Value: v, Onset: x.Onsets[constantKey(c.Name)]})
 		}
 	}
-	for _, d := range rep.Dependencies {
+	for _, d := range append(slices.Clone(rep.Dependencies), x.Recent...) {
 		if d.Kind != diagnostics.KindExact || len(d.Columns) == 1 {
 			continue // a constant column is reported by its own rule
 		}

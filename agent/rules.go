@@ -214,8 +214,24 @@ type Change struct {
 	Event string // EventOpened, EventEscalated, EventResolved, or "" for an update
 }
 
-// AlertKey identifies an alert's condition within a watch and segment.
-func AlertKey(rule Rule, subject string) string { return string(rule) + "/" + subject }
+// AlertKey identifies an alert's cause within a watch and segment. The
+// level, trend and jump rules describe one cause, the near dependency
+// among the judged columns: they share one key, so one alert carries
+// them, whichever says the most at the time.
+func AlertKey(rule Rule, subject string) string {
+	if nearRule(rule) {
+		return nearKey
+	}
+	return string(rule) + "/" + subject
+}
+
+// nearKey is the key of the near-dependency alert.
+const nearKey = "near/"
+
+func nearRule(r Rule) bool { return r == RuleLevel || r == RuleTrend || r == RuleJump }
+
+// Key is the alert's cause within its watch and segment.
+func (a *Alert) Key() string { return AlertKey(a.Rule, a.Subject) }
 
 // AlertID is the alert's id: a hash of where it is and when it opened, so
 // a replay of the same history yields the same id (receivers deduplicate
@@ -236,6 +252,8 @@ type finding struct {
 	drivers  []diagnostics.Driver
 	// limits are the warn and critical levels of a level finding.
 	warn, crit float64
+	// also are the clauses of the findings folded into this one.
+	also []string
 }
 
 func sevRank(s Severity) int {
@@ -297,8 +315,12 @@ func (r *Rules) Step(st *RuleState, open map[string]*Alert, o Observation, now t
 			changes = append(changes, Change{Alert: *a, Event: event})
 		case found:
 			delete(st.Clear, k)
+			idRule, idSubject := f.rule, f.subject
+			if nearRule(f.rule) {
+				idRule, idSubject = "near", ""
+			}
 			a = &Alert{
-				ID: AlertID(r.Watch, r.Segment, f.rule, f.subject, o.At), Watch: r.Watch, Segment: r.Segment,
+				ID: AlertID(r.Watch, r.Segment, idRule, idSubject, o.At), Watch: r.Watch, Segment: r.Segment,
 				Rule: f.rule, Subject: f.subject, Severity: f.severity,
 				AsOf: o.At, OpenedAt: now, UpdatedAsOf: o.At, UpdatedAt: now,
 				NotifyState: NotifyPending, Onset: f.onset, Window: window,
@@ -345,6 +367,10 @@ func (r *Rules) Step(st *RuleState, open map[string]*Alert, o Observation, now t
 // drivers, peak.
 func (r *Rules) update(a *Alert, f finding, o Observation) {
 	since, peak, peakOn := a.Detail.Since, a.Detail.Peak, a.Detail.PeakOn
+	if a.Detail.Metric != f.detail.Metric {
+		peak, peakOn = 0, time.Time{} // a peak belongs to its metric
+	}
+	a.Rule, a.Subject = f.rule, f.subject
 	a.Detail = f.detail
 	a.Detail.Since = since
 	a.Columns = f.columns
@@ -361,6 +387,9 @@ func (r *Rules) update(a *Alert, f finding, o Observation) {
 	a.Message = f.message
 	if f.rule == RuleLevel {
 		a.Message = r.levelMessage(a, f.detail.Value, f.warn, f.crit)
+	}
+	if len(f.also) > 0 {
+		a.Message += "; " + strings.Join(f.also, "; ")
 	}
 	a.Message = r.prefix() + a.Message
 }
@@ -516,7 +545,19 @@ func (r *Rules) expected(cols []string) bool {
 
 func (r *Rules) findings(st *RuleState, open map[string]*Alert, o Observation) map[string]finding {
 	fs := map[string]finding{}
-	add := func(f finding) { fs[AlertKey(f.rule, f.subject)] = f }
+	var near []finding
+	add := func(f finding) {
+		if nearRule(f.rule) {
+			near = append(near, f)
+			return
+		}
+		fs[AlertKey(f.rule, f.subject)] = f
+	}
+	defer func() {
+		if f, ok := foldNear(near); ok {
+			fs[nearKey] = f
+		}
+	}()
 	l := r.Limits
 	values := map[string]float64{}
 	for k, v := range map[string]float64{MetricCondition: o.ConditionNumber, MetricCentered: o.CenteredCondition, MetricMaxVIF: o.MaxVIF} {
@@ -630,6 +671,66 @@ func (r *Rules) findings(st *RuleState, open map[string]*Alert, o Observation) m
 	return fs
 }
 
+// foldNear makes the level, trend and jump findings of one point one
+// finding: the strongest says the message (critical before warning, level
+// before trend before jump, max VIF before the condition number), the
+// others follow it in a clause, and the earliest onset dates it.
+func foldNear(fs []finding) (finding, bool) {
+	if len(fs) == 0 {
+		return finding{}, false
+	}
+	rank := func(f finding) int {
+		r := 10 * sevRank(f.severity)
+		switch f.rule {
+		case RuleLevel:
+			r += 4
+		case RuleTrend:
+			r += 2
+		}
+		if f.subject == MetricMaxVIF {
+			r++
+		}
+		return r
+	}
+	slices.SortStableFunc(fs, func(a, b finding) int { return rank(b) - rank(a) })
+	out := fs[0]
+	for _, f := range fs[1:] {
+		if !f.onset.IsZero() && (out.onset.IsZero() || f.onset.Before(out.onset)) {
+			out.onset = f.onset
+		}
+		for _, c := range f.columns {
+			if !slices.Contains(out.columns, c) {
+				out.columns = append(out.columns, c)
+			}
+		}
+		out.also = append(out.also, f.short())
+	}
+	return out, true
+}
+
+// short is a finding's clause for another finding's message.
+func (f finding) short() string {
+	switch f.rule {
+	case RuleLevel:
+		return fmt.Sprintf("%s %s is at or above its %s level %s", metricWords(f.detail.Metric), num(f.detail.Value), f.severity, num(f.detail.Limit))
+	case RuleTrend:
+		return fmt.Sprintf("%s is rising ~%s/day", metricWords(f.detail.Metric), pct(f.detail.Forecast.RatePerDay))
+	}
+	return f.message
+}
+
+func metricWords(m string) string {
+	switch m {
+	case MetricCondition:
+		return "the condition number (with the intercept)"
+	case MetricCentered:
+		return "the centered condition number"
+	case MetricMaxVIF:
+		return "the max VIF"
+	}
+	return m
+}
+
 // vifContext adds the drivers and R² of a VIF finding.
 func (r *Rules) vifContext(f *finding, st *RuleState, o Observation) {
 	if f.subject != MetricMaxVIF && f.detail.Metric != MetricMaxVIF {
@@ -722,7 +823,7 @@ func (r *Rules) trendFinding(st *RuleState, open map[string]*Alert, o Observatio
 		}
 		// A trend warns ahead of the critical level: it opens only while
 		// the window is under it, and then stays open while the rise goes on.
-		_, trendOpen := open[AlertKey(RuleTrend, m.metric)]
+		_, trendOpen := open[nearKey]
 		if !trendOpen && !(isFinite(m.v) && m.v < m.crit) {
 			continue
 		}

@@ -403,8 +403,13 @@ func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time
 			continue
 		}
 		x := newExtra()
+		if hist != nil {
+			if x.Recent, err = r.recentExact(w, regressors, rep, seg, at, hist); err != nil {
+				return err
+			}
+		}
 		judgedCols := regressors
-		if out := leftOut(rep); len(out) > 0 {
+		if out := leftOut(rep, x.Recent...); len(out) > 0 {
 			x.LeftOut = out
 			judgedCols = slices.DeleteFunc(slices.Clone(regressors), func(c string) bool { return slices.Contains(out, c) })
 			if len(judgedCols) >= 2 {
@@ -431,6 +436,70 @@ func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time
 	return nil
 }
 
+// recentBuckets is the length of the tail of a window in which exact
+// dependencies are looked for before the whole window shows them (common
+// practice, no source: a week of daily buckets).
+const recentBuckets = 7
+
+// recentExact returns the exact dependencies among two or more columns
+// that hold in the last recentBuckets buckets of the window ending at at
+// but not in the whole window. So that a short stretch of slowly changing
+// columns (counts that step once) cannot pass for one, the tail needs
+// minBucketRows rows per column and every column of a dependency must vary
+// within at least two of its buckets.
+func (r *Runner) recentExact(w *config.Watch, regressors []string, rep *diagnostics.Report, seg string, at time.Time, hist *bucketHistory) ([]diagnostics.Dependency, error) {
+	if w.Window.Buckets > 0 && w.Window.Buckets <= recentBuckets || w.Window.Buckets == 0 && w.Window.Duration <= hist.cal.Add(at, -recentBuckets).Sub(at).Abs() {
+		return nil, nil
+	}
+	var parts []acc
+	for t, i := hist.cal.LastBucket(at), 0; i < recentBuckets; t, i = hist.cal.Add(t, -1), i+1 {
+		a, ok, err := hist.bucket(seg, t)
+		if err != nil {
+			return nil, err
+		}
+		if ok {
+			parts = append(parts, a)
+		}
+	}
+	tail := merge(hist.cols, parts)
+	if tail.m == nil || tail.m.N() < int64(minBucketRows*(len(regressors)+1)) {
+		return nil, nil
+	}
+	trep, err := analyze(w, regressors, tail)
+	if err != nil {
+		return nil, nil
+	}
+	have := map[string]bool{}
+	for _, d := range rep.Dependencies {
+		if d.Kind == diagnostics.KindExact {
+			have[ExactDependency{Columns: d.Columns}.subjectKey()] = true
+		}
+	}
+	var out []diagnostics.Dependency
+	for _, d := range trep.Dependencies {
+		if d.Kind != diagnostics.KindExact || len(d.Columns) < 2 || have[ExactDependency{Columns: d.Columns}.subjectKey()] {
+			continue
+		}
+		if slices.ContainsFunc(d.Columns, func(c string) bool { return variesWithin(parts, c) < 2 }) {
+			continue
+		}
+		out = append(out, d)
+	}
+	return out, nil
+}
+
+// variesWithin counts the buckets in which column c takes more than one
+// value.
+func variesWithin(parts []acc, c string) int {
+	n := 0
+	for _, a := range parts {
+		if j := slices.Index(a.m.Names(), c); j >= 0 && a.m.Max(j) > a.m.Min(j) {
+			n++
+		}
+	}
+	return n
+}
+
 // minBucketRows is how many rows per judged column (and the intercept) a
 // single bucket needs before its own VIFs and condition number are used
 // for trends (common practice, no source: with fewer, one bucket's
@@ -444,7 +513,7 @@ func (r *Runner) bucketExtras(w *config.Watch, judgedCols []string, rep *diagnos
 	x.WindowStart = windowStart(at, w)
 	x.LastBucket = hist.cal.LastBucket(at)
 	x.Full = hist.full(seg, at)
-	for _, d := range rep.Dependencies {
+	for _, d := range append(slices.Clone(rep.Dependencies), x.Recent...) {
 		if d.Kind != diagnostics.KindExact {
 			continue
 		}

@@ -96,3 +96,52 @@ func testUp(t *testing.T, ctx context.Context, d Dialect, db *sql.DB) {
 		t.Fatalf("Check on a newer store: %v", err)
 	}
 }
+
+// TestAlertCausesKeepsOutbox checks that migration 2, which rebuilds the
+// SQLite alerts table, keeps the alerts and their outbox entries (the
+// rebuild would otherwise cascade the outbox away) and dates old alerts
+// at their opening.
+func TestAlertCausesKeepsOutbox(t *testing.T) {
+	ctx := context.Background()
+	db := openSQLite(t)
+	p, err := NewProvider(SQLite, db, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := p.UpTo(ctx, 1); err != nil {
+		t.Fatal(err)
+	}
+	for _, q := range []string{
+		`INSERT INTO plumb_alerts (id, watch, segment, rule, subject, severity, as_of, opened_at, updated_as_of, updated_at,
+			message, detail, notify_state) VALUES ('a1', 'district_daily', '', 'exact', 'x+y', 'critical', 1000, 2000, 1000, 2000, 'm', '{}', 'sent')`,
+		`INSERT INTO plumb_outbox (event_id, alert_id, notifier, event, body, created_at, next_attempt_at)
+			VALUES ('a1:opened:hook', 'a1', 'hook', 'opened', '{}', 2000, 2000)`,
+	} {
+		if _, err := db.ExecContext(ctx, q); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if _, err := p.UpTo(ctx, 2); err != nil {
+		t.Fatal(err)
+	}
+	var n int
+	var onset int64
+	var cols string
+	if err := db.QueryRowContext(ctx, `SELECT count(*) FROM plumb_outbox WHERE alert_id = 'a1'`).Scan(&n); err != nil || n != 1 {
+		t.Fatalf("outbox entries after the migration: %d, %v; want 1", n, err)
+	}
+	if err := db.QueryRowContext(ctx, `SELECT onset, columns FROM plumb_alerts WHERE id = 'a1'`).Scan(&onset, &cols); err != nil || onset != 1000 || cols != "[]" {
+		t.Fatalf("alert after the migration: onset %d columns %q, %v", onset, cols, err)
+	}
+	if _, err := db.ExecContext(ctx, `INSERT INTO plumb_alerts (id, watch, segment, rule, subject, severity, as_of, opened_at, updated_as_of, updated_at,
+			message, detail, notify_state) VALUES ('a2', 'district_daily', '', 'broken', 'x+y', 'warning', 1000, 2000, 1000, 2000, 'm', '{}', 'sent')`); err != nil {
+		t.Fatalf("rule broken refused: %v", err)
+	}
+	// The outbox still cascades from the rebuilt table.
+	if _, err := db.ExecContext(ctx, `DELETE FROM plumb_alerts WHERE id = 'a1'`); err != nil {
+		t.Fatal(err)
+	}
+	if err := db.QueryRowContext(ctx, `SELECT count(*) FROM plumb_outbox`).Scan(&n); err != nil || n != 0 {
+		t.Fatalf("outbox after deleting its alert: %d, %v", n, err)
+	}
+}

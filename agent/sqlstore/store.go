@@ -313,19 +313,35 @@ func (s *Store) States(ctx context.Context, watch string) ([]agent.WatchState, e
 }
 
 const alertCols = `id, watch, segment, rule, subject, severity, as_of, opened_at, updated_as_of, updated_at,
-	resolved_as_of, resolved_at, message, detail, notify_state`
+	resolved_as_of, resolved_at, message, detail, notify_state, onset, columns, drivers, data_window`
 
 func scanAlert(rows *sql.Rows) (agent.Alert, error) {
 	var (
 		a                          agent.Alert
-		rule, sev, detail          string
+		rule, sev, detail, cols    string
 		asOf, opened, updAsOf, upd int64
-		resAsOf, res               sql.NullInt64
+		resAsOf, res, onset        sql.NullInt64
+		drivers, window            sql.NullString
 	)
 	err := rows.Scan(&a.ID, &a.Watch, &a.Segment, &rule, &a.Subject, &sev, &asOf, &opened, &updAsOf, &upd,
-		&resAsOf, &res, &a.Message, &detail, &a.NotifyState)
+		&resAsOf, &res, &a.Message, &detail, &a.NotifyState, &onset, &cols, &drivers, &window)
 	if err != nil {
 		return a, err
+	}
+	a.Onset = fromNullMicro(onset)
+	if err := json.Unmarshal([]byte(cols), &a.Columns); err != nil {
+		return a, fmt.Errorf("alert %s: columns: %w", a.ID, err)
+	}
+	if drivers.Valid {
+		if err := json.Unmarshal([]byte(drivers.String), &a.Drivers); err != nil {
+			return a, fmt.Errorf("alert %s: drivers: %w", a.ID, err)
+		}
+	}
+	if window.Valid {
+		a.Window = &agent.AlertWindow{}
+		if err := json.Unmarshal([]byte(window.String), a.Window); err != nil {
+			return a, fmt.Errorf("alert %s: window: %w", a.ID, err)
+		}
 	}
 	a.Rule, a.Severity = agent.Rule(rule), agent.Severity(sev)
 	a.AsOf, a.OpenedAt, a.UpdatedAsOf, a.UpdatedAt = fromMicro(asOf), fromMicro(opened), fromMicro(updAsOf), fromMicro(upd)
@@ -351,7 +367,7 @@ func (s *Store) Alerts(ctx context.Context, aq agent.AlertQuery) ([]agent.Alert,
 		query += ` AND (resolved_at IS NULL OR resolved_at >= ?)`
 		args = append(args, aq.Since.UnixMicro())
 	}
-	query += ` ORDER BY as_of, watch, segment, rule, subject, id`
+	query += ` ORDER BY as_of, watch, segment, id`
 	if aq.Limit > 0 {
 		query += ` LIMIT ?`
 		args = append(args, aq.Limit)
@@ -508,14 +524,30 @@ func (s *Store) commit(ctx context.Context, tx *sql.Tx, r *agent.RunResult) (int
 		if err != nil {
 			return 0, fmt.Errorf("alert %s: %w", a.ID, err)
 		}
-		if err := exec(`INSERT INTO plumb_alerts (`+alertCols+`) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)
-			ON CONFLICT (id) DO UPDATE SET severity = excluded.severity, updated_as_of = excluded.updated_as_of,
+		cols := a.Columns
+		if cols == nil {
+			cols = []string{}
+		}
+		colsJSON, _ := json.Marshal(cols)
+		var drivers, window any
+		if len(a.Drivers) > 0 {
+			b, _ := json.Marshal(a.Drivers)
+			drivers = string(b)
+		}
+		if a.Window != nil {
+			b, _ := json.Marshal(a.Window)
+			window = string(b)
+		}
+		if err := exec(`INSERT INTO plumb_alerts (`+alertCols+`) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)
+			ON CONFLICT (id) DO UPDATE SET rule = excluded.rule, subject = excluded.subject,
+				severity = excluded.severity, updated_as_of = excluded.updated_as_of,
 				updated_at = excluded.updated_at, resolved_as_of = excluded.resolved_as_of,
 				resolved_at = excluded.resolved_at, message = excluded.message, detail = excluded.detail,
-				notify_state = excluded.notify_state`,
+				notify_state = excluded.notify_state, onset = excluded.onset, columns = excluded.columns,
+				drivers = excluded.drivers, data_window = excluded.data_window`,
 			a.ID, a.Watch, a.Segment, string(a.Rule), a.Subject, string(a.Severity), a.AsOf.UnixMicro(), a.OpenedAt.UnixMicro(),
 			a.UpdatedAsOf.UnixMicro(), a.UpdatedAt.UnixMicro(), micro(a.ResolvedAsOf), micro(a.ResolvedAt),
-			a.Message, string(detail), a.NotifyState); err != nil {
+			a.Message, string(detail), a.NotifyState, micro(a.Onset), string(colsJSON), drivers, window); err != nil {
 			return 0, fmt.Errorf("alert %s: %w", a.ID, err)
 		}
 	}
