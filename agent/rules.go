@@ -694,6 +694,12 @@ func foldNear(fs []finding) (finding, bool) {
 	}
 	slices.SortStableFunc(fs, func(a, b finding) int { return rank(b) - rank(a) })
 	out := fs[0]
+	leveled := map[string]bool{}
+	for _, f := range fs {
+		if f.rule == RuleLevel {
+			leveled[f.detail.Metric] = true
+		}
+	}
 	for _, f := range fs[1:] {
 		if !f.onset.IsZero() && (out.onset.IsZero() || f.onset.Before(out.onset)) {
 			out.onset = f.onset
@@ -702,6 +708,9 @@ func foldNear(fs []finding) (finding, bool) {
 			if !slices.Contains(out.columns, c) {
 				out.columns = append(out.columns, c)
 			}
+		}
+		if f.rule != RuleLevel && leveled[f.detail.Metric] {
+			continue // the level of the same metric says more
 		}
 		out.also = append(out.also, f.short())
 	}

@@ -156,7 +156,7 @@ func TestCheckHistoryAlertsBackfill(t *testing.T) {
 		t.Fatal("no open exact-dependency alert")
 	}
 	code, out, errs = plumbCLI(t, ctx, "alerts", "--config", cfg, "--open")
-	if code != 0 || !strings.Contains(out, "OPEN") {
+	if code != 0 || !strings.Contains(out, "  open\n") || !strings.Contains(out, "what to do: ") {
 		t.Fatalf("alerts text: exit %d\n%s\n%s", code, out, errs)
 	}
 
@@ -273,7 +273,8 @@ func TestMigrateCommand(t *testing.T) {
 	ctx := context.Background()
 	cfg, state := demoConfig(t, "")
 	code, out, errs := plumbCLI(t, ctx, "migrate", "--config", cfg)
-	if code != 0 || !strings.Contains(out, "applied schema version(s) [1]") {
+	if code != 0 || !strings.Contains(out, "applied schema version(s) [1 ") ||
+		!strings.Contains(out, fmt.Sprintf("now at %d", migrations.Latest(migrations.SQLite))) {
 		t.Fatalf("exit %d\n%s\n%s", code, out, errs)
 	}
 	code, out, _ = plumbCLI(t, ctx, "migrate", "--config", cfg)

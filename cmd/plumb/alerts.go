@@ -4,35 +4,58 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"strings"
 	"time"
 
 	"github.com/spf13/cobra"
 
 	"plumb/agent"
 	"plumb/agent/config"
+	"plumb/diagnostics"
 )
 
 // alertOutput is one alert in `plumb alerts --format json` (an outside
 // contract: keep the names).
+//
+// Data times: onset (since when the cause holds), as_of (the window end
+// that opened the alert), resolved_as_of (the window end that resolved it,
+// null while open). Wall-clock times: opened_at and resolved_at, when
+// plumb recorded them.
 type alertOutput struct {
-	ID         string     `json:"id"`
-	Watch      string     `json:"watch"`
-	Segment    string     `json:"segment,omitempty"`
-	Rule       string     `json:"rule"`
-	Subject    string     `json:"subject,omitempty"`
-	Severity   string     `json:"severity"`
-	AsOf       time.Time  `json:"as_of"`
-	OpenedAt   time.Time  `json:"opened_at"`
-	ResolvedAt *time.Time `json:"resolved_at"`
-	Message    string     `json:"message"`
+	ID           string               `json:"id"`
+	Watch        string               `json:"watch"`
+	Segment      string               `json:"segment"`
+	Rule         string               `json:"rule"`
+	Subject      string               `json:"subject,omitempty"`
+	Severity     string               `json:"severity"`
+	Onset        time.Time            `json:"onset"`
+	AsOf         time.Time            `json:"as_of"`
+	ResolvedAsOf *time.Time           `json:"resolved_as_of"`
+	OpenedAt     time.Time            `json:"opened_at"`
+	ResolvedAt   *time.Time           `json:"resolved_at"`
+	Columns      []string             `json:"columns"`
+	Equation     string               `json:"equation,omitempty"`
+	Drivers      []diagnostics.Driver `json:"drivers,omitempty"`
+	Message      string               `json:"message"`
+	Remedy       string               `json:"remedy,omitempty"`
 }
 
 func toAlertOutput(a agent.Alert) alertOutput {
 	o := alertOutput{ID: a.ID, Watch: a.Watch, Segment: a.Segment, Rule: string(a.Rule), Subject: a.Subject,
-		Severity: string(a.Severity), AsOf: a.AsOf.UTC(), OpenedAt: a.OpenedAt.UTC(), Message: a.Message}
+		Severity: string(a.Severity), Onset: a.Onset.UTC(), AsOf: a.AsOf.UTC(), OpenedAt: a.OpenedAt.UTC(),
+		Columns: a.Columns, Equation: a.Detail.Equation, Message: a.Message, Remedy: a.Detail.Remedy}
+	if o.Columns == nil {
+		o.Columns = []string{}
+	}
+	if a.Detail.Metric == agent.MetricMaxVIF {
+		o.Drivers = a.Drivers
+	}
+	if o.Onset.IsZero() {
+		o.Onset = o.AsOf
+	}
 	if !a.Open() {
-		t := a.ResolvedAt.UTC()
-		o.ResolvedAt = &t
+		t, d := a.ResolvedAt.UTC(), a.ResolvedAsOf.UTC()
+		o.ResolvedAt, o.ResolvedAsOf = &t, &d
 	}
 	return o
 }
@@ -47,8 +70,11 @@ func newAlertsCmd() *cobra.Command {
 		Short: "List open and recent alerts",
 		Long: `alerts lists the alerts in the state store, ordered by the data time that
 opened them (as_of): the open ones and those resolved within --since (default
-30 days; "all" for every alert). rule is one of level, trend, exact, constant,
-jump, blind; severity is warning or critical.`,
+30 days; "all" for every alert). rule is one of level, trend, jump (the three
+faces of one near dependency: one alert), exact, constant, broken (an expected
+dependency that stopped holding), blind; severity is warning or critical.
+Times are data times: onset is since when the cause holds, as_of the window
+end that opened the alert, resolved_as_of the one that resolved it.`,
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if format != "text" && format != "json" {
@@ -104,16 +130,22 @@ func runAlerts(cmd *cobra.Command, stdout io.Writer, path string, q agent.AlertQ
 		return nil
 	}
 	for _, a := range out {
-		state := "OPEN"
-		if a.ResolvedAt != nil {
-			state = "resolved " + a.ResolvedAt.Format("2006-01-02 15:04")
+		state := "open"
+		if a.ResolvedAsOf != nil {
+			state = "resolved as of " + a.ResolvedAsOf.Format("2006-01-02 15:04")
 		}
 		seg := ""
 		if a.Segment != "" {
 			seg = "/" + a.Segment
 		}
-		fmt.Fprintf(stdout, "%s  %-8s %-8s %s%s  as of %s  %s\n    %s\n", a.ID, a.Severity, a.Rule, a.Watch, seg,
-			a.AsOf.Format("2006-01-02 15:04"), state, a.Message)
+		fmt.Fprintf(stdout, "%s  %-8s %-8s %s%s  since %s  %s\n    %s\n", a.ID, a.Severity, a.Rule, a.Watch, seg,
+			a.Onset.Format("2006-01-02 15:04"), state, a.Message)
+		if len(a.Columns) > 0 {
+			fmt.Fprintf(stdout, "    columns: %s\n", strings.Join(a.Columns, ", "))
+		}
+		if a.Remedy != "" {
+			fmt.Fprintf(stdout, "    what to do: %s\n", a.Remedy)
+		}
 	}
 	return nil
 }

@@ -348,8 +348,28 @@ func demoStories(c *config.Config, sc demo.Scenario, points map[string][]agent.P
 	// Smart meters: the trend warning, then the levels.
 	s := fmt.Sprintf("smart meters: half of the accounts billed on a reading by day %d; district_volumes", sc.RolloutDay)
 	var parts []string
-	if a, ok := firstAlert("district_volumes", "", agent.RuleTrend, ""); ok {
-		parts = append(parts, fmt.Sprintf("trend warning on day %d", day(a.AsOf)))
+	var near []agent.Alert
+	for _, r := range []agent.Rule{agent.RuleTrend, agent.RuleLevel, agent.RuleJump} {
+		if a, ok := firstAlert("district_volumes", "", r, ""); ok {
+			near = append(near, a)
+		}
+	}
+	if len(near) > 0 {
+		// Level, trend and jump are one alert about one near dependency:
+		// it opened as a trend warning when no window was at the warn
+		// level yet.
+		a := near[0]
+		for _, b := range near[1:] {
+			if b.AsOf.Before(a.AsOf) {
+				a = b
+			}
+		}
+		wt := c.Watch("district_volumes")
+		if d, ok := firstAbove(wt.Name, "", wt.Limits.VIF.Warn); !ok || day(a.AsOf) < d {
+			parts = append(parts, fmt.Sprintf("trend warning on day %d", day(a.AsOf)))
+		} else {
+			parts = append(parts, fmt.Sprintf("alert opened on day %d", day(a.AsOf)))
+		}
 	}
 	if wt := c.Watch("district_volumes"); wt != nil {
 		if d, ok := firstAbove(wt.Name, "", wt.Limits.VIF.Warn); ok {
@@ -367,15 +387,10 @@ func demoStories(c *config.Config, sc demo.Scenario, points map[string][]agent.P
 	// The exact total.
 	s = fmt.Sprintf("exact total: from day %d total_connections is the sum of its parts; district_connections", sc.ChangeDay)
 	if a, ok := firstAlert("district_connections", "", agent.RuleExact, ""); ok {
-		s += fmt.Sprintf(" reports the exact dependency on day %d", day(a.AsOf))
-		if n := window("district_connections"); n > 0 {
-			s += fmt.Sprintf(", the first %d-day window wholly after the change (day %d+%d)", n, sc.ChangeDay, n-1)
-		}
+		s += fmt.Sprintf(" reports the exact dependency on day %d, once the last week of the window holds it, dated to day %d (its onset, from the daily buckets)",
+			day(a.AsOf), day(a.Onset)+1)
 		if eq := a.Detail.Equation; eq != "" {
 			s += ": " + eq
-		}
-		if l, ok := firstAlert("district_connections", "", agent.RuleLevel, ""); ok && l.AsOf.Before(a.AsOf) {
-			s += fmt.Sprintf("; the near dependency reached the VIF warn level on day %d", day(l.AsOf))
 		}
 		s += "."
 	} else {
@@ -390,6 +405,7 @@ func demoStories(c *config.Config, sc demo.Scenario, points map[string][]agent.P
 		if n := window("district_daily"); n > 0 {
 			s += fmt.Sprintf(", the first %d-day window wholly after it (day %d+%d)", n, sc.StuckDay, n-1)
 		}
+		s += fmt.Sprintf(", dated to day %d (its onset)", day(a.Onset)+1)
 		if l, ok := firstAlert("district_daily", sc.StuckDistrict, agent.RuleLevel, ""); ok && l.AsOf.Before(a.AsOf) && day(l.AsOf) >= sc.StuckDay {
 			s += fmt.Sprintf("; its condition number passed the levels from day %d, as the last varying readings left the window", day(l.AsOf))
 		}

@@ -23,8 +23,14 @@ import (
 // historyPoint is one entry of `plumb history --format json` (an outside
 // contract: keep the names). at is the end of the window.
 type historyPoint struct {
-	At              time.Time `json:"at"`
-	ConditionNumber *float64  `json:"condition_number"`
+	At time.Time `json:"at"`
+	// ConditionNumber (with the intercept) and CenteredCondition are null
+	// when the design is singular, and Singular says so.
+	ConditionNumber   *float64 `json:"condition_number"`
+	CenteredCondition *float64 `json:"centered_condition_number"`
+	Singular          bool     `json:"singular"`
+	// MaxVIF is over the columns that have a VIF: constant and exactly
+	// dependent columns are reported by their own alerts.
 	MaxVIF          *float64  `json:"max_vif"`
 	Rank            int       `json:"rank"`
 	Rows            int64     `json:"rows"`
@@ -86,8 +92,13 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 	}
 	out := make([]historyPoint, 0, len(ps))
 	for _, p := range ps {
-		out = append(out, historyPoint{At: p.At.UTC(), ConditionNumber: finite(p.ConditionNumber), MaxVIF: finite(p.MaxVIF),
-			Rank: p.Rank, Rows: p.RowsUsed, MaxVIFColumn: p.MaxVIFColumn})
+		singular := p.Columns > 0 && p.Rank < p.Columns+1
+		hp := historyPoint{At: p.At.UTC(), ConditionNumber: finite(p.ConditionNumber), CenteredCondition: finite(p.CenteredCondition),
+			Singular: singular, MaxVIF: finite(p.MaxVIF), Rank: p.Rank, Rows: p.RowsUsed, MaxVIFColumn: p.MaxVIFColumn}
+		if singular {
+			hp.ConditionNumber, hp.CenteredCondition = nil, nil
+		}
+		out = append(out, hp)
 	}
 	if format == "json" {
 		enc := json.NewEncoder(stdout)
@@ -98,16 +109,19 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 		fmt.Fprintf(stdout, "watch %s has no history yet\n", watch)
 		return nil
 	}
-	fmt.Fprintf(stdout, "%-20s %8s %5s %12s %12s  %s\n", "at", "rows", "rank", "condition", "max VIF", "column")
-	show := func(v *float64) string {
-		if v == nil {
-			return "singular"
+	fmt.Fprintf(stdout, "%-20s %8s %5s %14s %14s %12s  %s\n", "at", "rows", "rank", "condition", "centered", "max VIF", "column")
+	show := func(v *float64, singular bool) string {
+		switch {
+		case v != nil:
+			return fmtNum(*v)
+		case singular:
+			return "∞ (singular)"
 		}
-		return fmtNum(*v)
+		return "–"
 	}
 	for _, p := range out {
-		fmt.Fprintf(stdout, "%-20s %8d %5d %12s %12s  %s\n", p.At.Format("2006-01-02 15:04"), p.Rows, p.Rank,
-			show(p.ConditionNumber), show(p.MaxVIF), p.MaxVIFColumn)
+		fmt.Fprintf(stdout, "%-20s %8d %5d %14s %14s %12s  %s\n", p.At.Format("2006-01-02 15:04"), p.Rows, p.Rank,
+			show(p.ConditionNumber, p.Singular), show(p.CenteredCondition, p.Singular), show(p.MaxVIF, false), p.MaxVIFColumn)
 	}
 	if f, ok := stdout.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
 		cond := make([]*float64, len(out))
