@@ -31,10 +31,10 @@ type historyPoint struct {
 	Singular          bool     `json:"singular"`
 	// MaxVIF is over the columns that have a VIF: constant and exactly
 	// dependent columns are reported by their own alerts.
-	MaxVIF          *float64  `json:"max_vif"`
-	Rank            int       `json:"rank"`
-	Rows            int64     `json:"rows"`
-	MaxVIFColumn    string    `json:"max_vif_column,omitempty"`
+	MaxVIF       *float64 `json:"max_vif"`
+	Rank         int      `json:"rank"`
+	Rows         int64    `json:"rows"`
+	MaxVIFColumn string   `json:"max_vif_column,omitempty"`
 }
 
 func newHistoryCmd() *cobra.Command {
