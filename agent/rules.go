@@ -37,7 +37,8 @@ import (
 //     the first bucket of its constant run.
 //   - trend: the Theil–Sen line of the log of the judged condition number
 //     (or max VIF) over the last trend_points points rises significantly
-//     (Mann–Kendall z ≥ 1.645) and reaches the critical level within the
+//     (Mann–Kendall z ≥ 1.645, and Sen's 90 % slope interval above zero)
+//     and reaches the critical level within the
 //     horizon: warning, saying when, with Sen's 90 % range. It is fitted on
 //     the numbers of each window's last bucket alone where buckets hold
 //     enough rows (no window lag), else on full windows only.
@@ -795,14 +796,14 @@ func (r *Rules) trendFinding(st *RuleState, open map[string]*Alert, o Observatio
 	l := r.Limits
 	var out []finding
 	for _, m := range []struct {
-		metric    string
-		v, bv     float64
-		crit      float64
-		get, bget func(RecentPoint) float64
+		metric     string
+		v, bv      float64
+		warn, crit float64
+		get, bget  func(RecentPoint) float64
 	}{
-		{r.condMetric(), o.Cond, o.BucketCond, l.Condition.Critical,
+		{r.condMetric(), o.Cond, o.BucketCond, l.Condition.Warn, l.Condition.Critical,
 			func(p RecentPoint) float64 { return float64(p.Cond) }, func(p RecentPoint) float64 { return float64(p.BCond) }},
-		{MetricMaxVIF, o.MaxVIF, o.BucketVIF, l.VIF.Critical,
+		{MetricMaxVIF, o.MaxVIF, o.BucketVIF, l.VIF.Warn, l.VIF.Critical,
 			func(p RecentPoint) float64 { return float64(p.VIF) }, func(p RecentPoint) float64 { return float64(p.BVIF) }},
 	} {
 		recent := comparable(st.Recent, o)
@@ -819,8 +820,14 @@ func (r *Rules) trendFinding(st *RuleState, open map[string]*Alert, o Observatio
 		}
 		var pts []RecentPoint
 		get, cur := m.get, m.v
+		floor := 0.0
 		switch {
 		case useBuckets:
+			// One bucket's numbers scatter: they forecast the window only
+			// once the line fitted through them has reached the warn level
+			// (common practice, no source), which a healthy table's
+			// scatter does not.
+			floor = m.warn
 			pts, get, cur = recent, m.bget, m.bv
 		case o.Full:
 			pts = fullOnly(recent)
@@ -836,7 +843,7 @@ func (r *Rules) trendFinding(st *RuleState, open map[string]*Alert, o Observatio
 		if !trendOpen && !(isFinite(m.v) && m.v < m.crit) {
 			continue
 		}
-		f, ok := r.trend(pts, get, o, cur, m.v, m.metric, m.crit, values, remedy, condCols)
+		f, ok := r.trend(pts, get, o, cur, m.v, m.metric, floor, m.crit, values, remedy, condCols)
 		if !ok {
 			continue
 		}
@@ -848,8 +855,10 @@ func (r *Rules) trendFinding(st *RuleState, open map[string]*Alert, o Observatio
 
 func positive(v float64) bool { return v > 0 && isFinite(v) }
 
+// trend fits the series and warns when it rises significantly, its fitted
+// level now is at least floor, and it reaches crit within the horizon.
 func (r *Rules) trend(recent []RecentPoint, get func(RecentPoint) float64, o Observation, cur, windowValue float64, metric string,
-	crit float64, values map[string]float64, remedy string, cols []string) (finding, bool) {
+	floor, crit float64, values map[string]float64, remedy string, cols []string) (finding, bool) {
 	if len(recent)+1 < minTrendPoints {
 		return finding{}, false
 	}
@@ -863,7 +872,9 @@ func (r *Rules) trend(recent []RecentPoint, get func(RecentPoint) float64, o Obs
 	x = append(x, 0)
 	y = append(y, cur)
 	tr, ok := diagnostics.LogTrend(x, y)
-	if !ok || tr.N < minTrendPoints || tr.Z < trendZ || !(tr.Slope > 0) {
+	// A rise must be significant twice over: by the Mann–Kendall test,
+	// and with Sen's 90 % interval of the slope wholly above zero.
+	if !ok || tr.N < minTrendPoints || tr.Z < trendZ || !(tr.Slope > 0) || !(tr.SlopeLo > 0) || math.Exp(tr.Intercept) < floor {
 		return finding{}, false
 	}
 	cx, ok := tr.Crossing(crit)
@@ -874,12 +885,10 @@ func (r *Rules) trend(recent []RecentPoint, get func(RecentPoint) float64, o Obs
 	dayOf := func(dx float64) time.Time { return o.Day.Add(time.Duration(dx * float64(24*time.Hour))) }
 	when := dayOf(cx)
 	var rng string
-	if tr.SlopeHi > 0 && tr.SlopeLo > 0 && cx > 0 {
-		gap := math.Log(crit) - (tr.Intercept)
+	if cx > 0 {
+		gap := math.Log(crit) - tr.Intercept
 		early, late := dayOf(gap/tr.SlopeHi), dayOf(gap/tr.SlopeLo)
 		rng = fmt.Sprintf(", between %s and %s", r.day(early), r.day(late))
-	} else if tr.SlopeHi > 0 && cx > 0 {
-		rng = fmt.Sprintf(", not before %s", r.day(dayOf((math.Log(crit)-tr.Intercept)/tr.SlopeHi)))
 	}
 	name := r.metricLabel(metric, metric)
 	rate := fmt.Sprintf("rising ~%s/day", pct(tr.Rate))
