@@ -344,4 +344,3 @@ func TestDriftingTableOneAlertPerCause(t *testing.T) {
 		}
 	}
 }
-
