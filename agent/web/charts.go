@@ -92,8 +92,11 @@ type lineChart struct {
 	Alerts          []alertMark
 	Legend          []legendItem
 	LegendY         float64
-	Empty           string    // message when there is nothing to draw
-	xs              timeScale // the time axis, for marks added after the layout
+	// Filling shades the first windows, still filling (nil when none).
+	Filling      *rect
+	FillingTitle string
+	Empty        string    // message when there is nothing to draw
+	xs           timeScale // the time axis, for marks added after the layout
 	// Fixed draws the chart at its own size at OffsetY inside another
 	// SVG (a file), rather than at the page's width.
 	Fixed   bool
@@ -183,21 +186,34 @@ func (s timeScale) ticks() []tick {
 	return out
 }
 
-// metricOf returns a point's value of metric.
+// metricOf returns a point's value of metric: for the condition number,
+// the one the limits judge.
 func metricOf(p Point, metric string) float64 {
 	if metric == MetricMaxVIF {
 		return p.MaxVIF
 	}
-	if p.RankDeficiency() > 0 {
-		return math.Inf(1)
+	return p.Judged
+}
+
+// CondTitle names the condition number a basis judges.
+func CondTitle(basis string) string {
+	if basis == "intercept" {
+		return "Condition number (with the intercept)"
 	}
-	return p.ConditionNumber
+	return "Centered condition number"
 }
 
 // timelineChart lays out the timeline of one metric with its warn and
 // critical levels and forecast cone.
-func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float64) *lineChart {
-	title, unit, col := "Condition number", "ratio, log scale", colBlue
+//
+// The condition-number chart is titled after the basis its levels judge
+// (basis, "centered" by default). Points of windows still filling lie on
+// a shaded band: no alert comes from them.
+func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float64, basis ...string) *lineChart {
+	title, unit, col := CondTitle(""), "ratio, log scale", colBlue
+	if len(basis) > 0 {
+		title = CondTitle(basis[0])
+	}
 	if metric == MetricMaxVIF {
 		title, unit, col = "Max VIF", "ratio, log scale", colPurple
 	}
@@ -247,6 +263,17 @@ func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float
 	xs := timeScale{T0: t0, T1: t1, P0: c.Plot.X, P1: c.Plot.Right()}
 	c.xs = xs
 	c.XTicks, c.YTicks = xs.ticks(), ys.ticks()
+	for i, p := range tl {
+		if !p.Filling {
+			if i > 0 {
+				end := xs.At(p.At)
+				c.Filling = &rect{X: c.Plot.X, Y: c.Plot.Y, W: end - c.Plot.X, H: c.Plot.H}
+				c.FillingTitle = fmt.Sprintf("%s – %s: the window is filling; no alert comes from it",
+					tl[0].At.Format("Jan 2"), tl[i-1].At.Format("Jan 2"))
+			}
+			break
+		}
+	}
 
 	var d strings.Builder
 	s := series{Name: title, Class: metric, Stroke: stroke{Colour: col, Width: 2}}

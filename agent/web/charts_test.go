@@ -84,8 +84,11 @@ func TestTimelineChartLayout(t *testing.T) {
 	var tl []Point
 	for i := range 30 {
 		p := Point{At: t0.AddDate(0, 0, i), ConditionNumber: 10 + float64(i), MaxVIF: 2, Rank: 5, Columns: 4}
+		p.Judged = p.ConditionNumber
 		if i >= 25 {
-			p.Rank = 4 // an exact dependency from day 25
+			// An exact dependency from day 25 leaves two columns: no
+			// condition number to judge.
+			p.Rank, p.Judged = 4, math.Inf(1)
 		}
 		tl = append(tl, p)
 	}

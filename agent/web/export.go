@@ -41,7 +41,7 @@ func WriteTimelineSVG(w io.Writer, title string, tl []Point, forecasts []Forecas
 // timelineCharts lays out the two timeline charts of a chart file: the
 // condition number and the max VIF, each with its levels and forecast.
 func timelineCharts(tl []Point, forecasts []Forecast, l Limits) (cond, vif *lineChart) {
-	cond = timelineChart("cond", MetricCondition, tl, forecastOf(forecasts, MetricCondition), l.CondWarn, l.CondCritical)
+	cond = timelineChart("cond", MetricCondition, tl, forecastOf(forecasts, MetricCondition), l.CondWarn, l.CondCritical, l.CondBasis)
 	vif = timelineChart("vif", MetricMaxVIF, tl, forecastOf(forecasts, MetricMaxVIF), l.VIFWarn, l.VIFCritical)
 	return cond, vif
 }

@@ -75,9 +75,9 @@ func buildDemoFixture(t testing.TB) *demoFixture {
 	f := &demoFixture{view: &Memory{}}
 	watches := []fixtureWatch{
 		{name: "district_daily", target: demo.Target, columns: demoRegressors, segmented: true, window: 28,
-			limits: Limits{VIFWarn: 5, VIFCritical: 10, CondWarn: 15, CondCritical: 30, Horizon: 14 * 24 * time.Hour}},
+			limits: Limits{VIFWarn: 5, VIFCritical: 10, CondWarn: 15, CondCritical: 30, CondBasis: "intercept", Horizon: 14 * 24 * time.Hour}},
 		{name: "district_volumes", columns: []string{"temperature_c", "rainfall_mm", "metered_volume_m3", "billed_volume_m3"}, window: 14,
-			limits: Limits{VIFWarn: 5, VIFCritical: 10, CondWarn: 15, CondCritical: 30, Horizon: 14 * 24 * time.Hour}},
+			limits: Limits{VIFWarn: 5, VIFCritical: 10, CondWarn: 15, CondCritical: 30, CondBasis: "intercept", Horizon: 14 * 24 * time.Hour}},
 	}
 	lastDay := sc.Start.AddDate(0, 0, sc.Days-1)
 	f.now = lastDay.Add(27 * time.Hour) // the day after the last day, after its run
@@ -219,6 +219,8 @@ func pointOf(at time.Time, rep *diagnostics.Report) Point {
 	if p.RankDeficiency() > 0 {
 		p.ConditionNumber = math.Inf(1)
 	}
+	// The fixture's watches judge the condition number with the intercept.
+	p.Judged = p.ConditionNumber
 	return p
 }
 

@@ -11,7 +11,7 @@ func pointSeries(vals []float64) []Point {
 	t0 := time.Date(2026, 7, 1, 0, 0, 0, 0, time.UTC)
 	out := make([]Point, len(vals))
 	for i, v := range vals {
-		out[i] = Point{At: t0.AddDate(0, 0, i), ConditionNumber: v, MaxVIF: v, Rank: 5, Columns: 4}
+		out[i] = Point{At: t0.AddDate(0, 0, i), ConditionNumber: v, Judged: v, MaxVIF: v, Rank: 5, Columns: 4}
 	}
 	return out
 }

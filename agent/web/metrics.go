@@ -15,7 +15,7 @@ type Collector struct {
 	view    View
 	timeout time.Duration
 
-	up, watchState, condition, maxVIF, rankDef, columnVIF, columnUndefined,
+	up, watchState, condition, centered, judged, maxVIF, rankDef, columnVIF, columnUndefined,
 	rowsUsed, rowsDropped, dataTime, lastRun, lastRunDuration, lastRunOK,
 	failures, consecutive, openAlerts *prometheus.Desc
 }
@@ -36,8 +36,11 @@ func NewCollector(v View, timeout time.Duration) *Collector {
 		watchState: d("watch_state", "1 for the current state of the watch segment (ok, warning, critical, blind), 0 for the others.",
 			"watch", "segment", "state"),
 		condition: d("condition_number", "Largest condition index of the column-scaled design [1 X] in the last run (+Inf when rank deficient).", ws...),
-		maxVIF:    d("max_vif", "Largest variance inflation factor among the columns whose VIF is defined, in the last run.", ws...),
-		rankDef:   d("rank_deficiency", "Number of exact linear dependencies among the columns (full rank minus numerical rank) in the last run.", ws...),
+		centered:  d("centered_condition_number", "Condition number of the centered, column-scaled design in the last run (+Inf when rank deficient).", ws...),
+		judged: d("judged_condition_number", "The condition number the watch's limits judge (its condition_basis), on the design without the columns that exact and constant alerts explain.",
+			ws...),
+		maxVIF:  d("max_vif", "Largest variance inflation factor among the columns whose VIF is defined, in the last run.", ws...),
+		rankDef: d("rank_deficiency", "Number of exact linear dependencies among the columns (full rank minus numerical rank) in the last run.", ws...),
 		columnVIF: d("column_vif", "Variance inflation factor of one column in the last run; +Inf when undefined (constant column or exact dependency).",
 			"watch", "segment", "column"),
 		columnUndefined: d("column_vif_undefined", "1 for a column whose VIF is undefined in the last run, with the reason (constant, near constant, exact dependency).",
@@ -56,7 +59,7 @@ func NewCollector(v View, timeout time.Duration) *Collector {
 
 // Describe sends every family's description.
 func (c *Collector) Describe(ch chan<- *prometheus.Desc) {
-	for _, d := range []*prometheus.Desc{c.up, c.watchState, c.condition, c.maxVIF, c.rankDef, c.columnVIF,
+	for _, d := range []*prometheus.Desc{c.up, c.watchState, c.condition, c.centered, c.judged, c.maxVIF, c.rankDef, c.columnVIF,
 		c.columnUndefined, c.rowsUsed, c.rowsDropped, c.dataTime, c.lastRun, c.lastRunDuration, c.lastRunOK,
 		c.failures, c.consecutive, c.openAlerts} {
 		ch <- d
@@ -99,6 +102,8 @@ func (c *Collector) Collect(ch chan<- prometheus.Metric) {
 			}
 			if p := seg.Latest; p != nil {
 				gauge(c.condition, p.ConditionNumber, name, seg.Segment)
+				gauge(c.centered, p.CenteredCondition, name, seg.Segment)
+				gauge(c.judged, p.Judged, name, seg.Segment)
 				gauge(c.maxVIF, p.MaxVIF, name, seg.Segment)
 				gauge(c.rankDef, float64(p.RankDeficiency()), name, seg.Segment)
 				gauge(c.rowsUsed, float64(p.Rows), name, seg.Segment)

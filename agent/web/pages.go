@@ -289,7 +289,7 @@ func (s *Server) watchPage(w http.ResponseWriter, r *http.Request) {
 				Href: watchURL(d.Summary.Name, ss.Segment), Current: ss.Segment == seg.Segment})
 		}
 		l := d.Summary.Limits
-		data.CondChart = timelineChart("tl-cond", MetricCondition, seg.Timeline, seg.Forecast(MetricCondition), l.CondWarn, l.CondCritical)
+		data.CondChart = timelineChart("tl-cond", MetricCondition, seg.Timeline, seg.Forecast(MetricCondition), l.CondWarn, l.CondCritical, l.CondBasis)
 		data.VIFChart = timelineChart("tl-vif", MetricMaxVIF, seg.Timeline, seg.Forecast(MetricMaxVIF), l.VIFWarn, l.VIFCritical)
 		data.CondChart.markAlerts(d.Alerts, seg.Segment)
 		data.VIFChart.markAlerts(d.Alerts, seg.Segment)

@@ -75,11 +75,14 @@ func (s State) Worse(t State) State {
 
 // Limits are a watch's configured levels. A zero level is not drawn.
 type Limits struct {
-	VIFWarn      float64       `json:"vif_warn"`
-	VIFCritical  float64       `json:"vif_critical"`
-	CondWarn     float64       `json:"condition_warn"`
-	CondCritical float64       `json:"condition_critical"`
-	Horizon      time.Duration `json:"-"`
+	VIFWarn      float64 `json:"vif_warn"`
+	VIFCritical  float64 `json:"vif_critical"`
+	CondWarn     float64 `json:"condition_warn"`
+	CondCritical float64 `json:"condition_critical"`
+	// CondBasis says which condition number the condition levels judge:
+	// "centered" (the columns among themselves) or "intercept".
+	CondBasis string        `json:"condition_basis"`
+	Horizon   time.Duration `json:"-"`
 }
 
 // WatchSummary is one row of the overview.
@@ -179,12 +182,21 @@ func forecastOf(fs []Forecast, metric string) *Forecast {
 // extra fields beside. A metric that is not finite (an exact dependency
 // makes the condition number unbounded) is +Inf here and null in JSON.
 type Point struct {
-	At              time.Time `json:"at"`
-	ConditionNumber float64   `json:"condition_number"`
-	MaxVIF          float64   `json:"max_vif"`
-	Rank            int       `json:"rank"`
-	Rows            int64     `json:"rows"`
-	RowsDropped     int64     `json:"rows_dropped"`
+	At time.Time `json:"at"`
+	// ConditionNumber (with the intercept) and CenteredCondition describe
+	// the whole design: +Inf (null in JSON) when it is singular.
+	ConditionNumber   float64 `json:"condition_number"`
+	CenteredCondition float64 `json:"centered_condition_number"`
+	// Judged is the condition number the limits apply to (the watch's
+	// basis), on the design without the columns that exact and constant
+	// alerts explain.
+	Judged float64 `json:"judged_condition_number"`
+	// Filling marks a window that is not yet full: no alert comes from it.
+	Filling     bool    `json:"filling,omitempty"`
+	MaxVIF      float64 `json:"max_vif"`
+	Rank        int     `json:"rank"`
+	Rows        int64   `json:"rows"`
+	RowsDropped int64   `json:"rows_dropped"`
 	// Columns is the number of regressors; the design [1 X] has full
 	// rank Columns+1.
 	Columns int `json:"columns"`
@@ -340,9 +352,9 @@ func levelState(p *Point, l Limits) State {
 	}
 	over := func(v, level float64) bool { return level > 0 && (v >= level || math.IsNaN(v)) }
 	switch {
-	case p.RankDeficiency() > 0, over(p.ConditionNumber, l.CondCritical), over(p.MaxVIF, l.VIFCritical):
+	case p.RankDeficiency() > 0, over(p.Judged, l.CondCritical), over(p.MaxVIF, l.VIFCritical):
 		return StateCritical
-	case over(p.ConditionNumber, l.CondWarn), over(p.MaxVIF, l.VIFWarn):
+	case over(p.Judged, l.CondWarn), over(p.MaxVIF, l.VIFWarn):
 		return StateWarning
 	}
 	return StateOK
@@ -369,9 +381,12 @@ func (p Point) MarshalJSON() ([]byte, error) {
 	type plain Point
 	return json.Marshal(struct {
 		plain
-		ConditionNumber *float64 `json:"condition_number"`
-		MaxVIF          *float64 `json:"max_vif"`
-	}{plain(p), finite(p.ConditionNumber), finite(p.MaxVIF)})
+		ConditionNumber   *float64 `json:"condition_number"`
+		CenteredCondition *float64 `json:"centered_condition_number"`
+		Judged            *float64 `json:"judged_condition_number"`
+		Singular          bool     `json:"singular"`
+		MaxVIF            *float64 `json:"max_vif"`
+	}{plain(p), finite(p.ConditionNumber), finite(p.CenteredCondition), finite(p.Judged), p.RankDeficiency() > 0, finite(p.MaxVIF)})
 }
 
 // MarshalJSON writes non-finite values as null.

@@ -128,7 +128,7 @@ func (v *View) detail(ctx context.Context, w *config.Watch, full bool) (*web.Wat
 	d := &web.WatchDetail{Summary: web.WatchSummary{
 		Name: w.Name, Source: w.Source, Table: w.Table, Target: w.Target, SegmentBy: w.SegmentBy, Schedule: w.Schedule,
 		Limits: web.Limits{VIFWarn: lim.VIF.Warn, VIFCritical: lim.VIF.Critical, CondWarn: lim.Condition.Warn,
-			CondCritical: lim.Condition.Critical, Horizon: lim.Horizon.D()},
+			CondCritical: lim.Condition.Critical, CondBasis: cmp.Or(lim.ConditionBasis, config.DefaultConditionBasis), Horizon: lim.Horizon.D()},
 	}}
 	if d.Summary.Table == "" {
 		d.Summary.Table = "query"
@@ -155,7 +155,15 @@ func (v *View) detail(ctx context.Context, w *config.Watch, full bool) (*web.Wat
 		ps := bySeg[s]
 		seg := web.SegmentDetail{SegmentSummary: web.SegmentSummary{Segment: s}}
 		for _, p := range ps {
-			seg.Timeline = append(seg.Timeline, web.Point{At: p.At, ConditionNumber: p.ConditionNumber, MaxVIF: p.MaxVIF,
+			// The numbers the rules judged: the condition number of the
+			// watch's basis on the design without the columns that exact
+			// and constant alerts explain, and whether the window was full.
+			o, err := agent.ObservationFromPoint(p, lim.ConditionBasis)
+			if err != nil {
+				return nil, err
+			}
+			seg.Timeline = append(seg.Timeline, web.Point{At: p.At, ConditionNumber: p.ConditionNumber,
+				CenteredCondition: p.CenteredCondition, Judged: o.Cond, Filling: !o.Full, MaxVIF: p.MaxVIF,
 				Rank: p.Rank, Rows: p.RowsUsed, RowsDropped: p.RowsDropped, Columns: p.Columns})
 		}
 		if full && len(ps) > 0 {
