@@ -125,7 +125,7 @@ const (
 type Alert struct {
 	ID           string      `json:"id"`
 	Watch        string      `json:"watch"`
-	Segment      string      `json:"segment,omitempty"`
+	Segment      string      `json:"segment"`
 	Rule         Rule        `json:"rule"`
 	Subject      string      `json:"subject"`
 	Severity     Severity    `json:"severity"`

@@ -260,19 +260,25 @@ const (
 // Alert is one alert in its lifecycle. The first fields are those of
 // `plumb alerts --format json`.
 type Alert struct {
-	ID         string     `json:"id"`
-	Watch      string     `json:"watch"`
-	Rule       string     `json:"rule"`     // level, trend, exact, constant, jump, blind
-	Severity   string     `json:"severity"` // warning or critical
-	AsOf       time.Time  `json:"as_of"`
+	ID       string `json:"id"`
+	Watch    string `json:"watch"`
+	Rule     string `json:"rule"`     // level, trend, jump, exact, constant, broken, blind
+	Severity string `json:"severity"` // warning or critical
+	// Data times: since when the cause holds, the window end that opened
+	// the alert and the one that resolved it (null while open).
+	Onset        time.Time  `json:"onset"`
+	AsOf         time.Time  `json:"as_of"`
+	ResolvedAsOf *time.Time `json:"resolved_as_of"`
+	// Wall-clock times: when plumb recorded the opening and resolution.
 	OpenedAt   time.Time  `json:"opened_at"`
 	ResolvedAt *time.Time `json:"resolved_at"`
 	Message    string     `json:"message"`
 
-	Segment  string   `json:"segment,omitempty"`
-	Columns  []string `json:"columns,omitempty"`
-	Equation string   `json:"equation,omitempty"`
-	Remedy   string   `json:"remedy,omitempty"`
+	Segment  string               `json:"segment"`
+	Columns  []string             `json:"columns"`
+	Drivers  []diagnostics.Driver `json:"drivers,omitempty"`
+	Equation string               `json:"equation,omitempty"`
+	Remedy   string               `json:"remedy,omitempty"`
 	// Metric is the metric a level, trend or jump alert is about
 	// (MetricCondition or MetricMaxVIF), "" for the other rules.
 	Metric string `json:"metric,omitempty"`

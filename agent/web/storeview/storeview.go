@@ -214,12 +214,21 @@ func (v *View) detail(ctx context.Context, w *config.Watch, full bool) (*web.Wat
 		return nil, fmt.Errorf("watch %q: %w", w.Name, err)
 	}
 	for _, a := range alerts {
-		wa := web.Alert{ID: a.ID, Watch: a.Watch, Rule: string(a.Rule), Severity: string(a.Severity), AsOf: a.AsOf,
+		wa := web.Alert{ID: a.ID, Watch: a.Watch, Rule: string(a.Rule), Severity: string(a.Severity), Onset: a.Onset, AsOf: a.AsOf,
 			OpenedAt: a.OpenedAt, Message: a.Message, Segment: a.Segment,
-			Columns: a.Detail.Columns, Equation: a.Detail.Equation, Remedy: a.Detail.Remedy, Metric: a.Detail.Metric}
+			Columns: a.Columns, Equation: a.Detail.Equation, Remedy: a.Detail.Remedy, Metric: a.Detail.Metric}
+		if wa.Columns == nil {
+			wa.Columns = []string{}
+		}
+		if wa.Onset.IsZero() {
+			wa.Onset = a.AsOf
+		}
+		if a.Detail.Metric == agent.MetricMaxVIF {
+			wa.Drivers = a.Drivers
+		}
 		if !a.ResolvedAt.IsZero() {
-			t := a.ResolvedAt
-			wa.ResolvedAt = &t
+			t, d := a.ResolvedAt, a.ResolvedAsOf
+			wa.ResolvedAt, wa.ResolvedAsOf = &t, &d
 		}
 		d.Alerts = append(d.Alerts, wa)
 	}
