@@ -35,6 +35,10 @@ type historyPoint struct {
 	Rank         int      `json:"rank"`
 	Rows         int64    `json:"rows"`
 	MaxVIFColumn string   `json:"max_vif_column,omitempty"`
+	// LeftOut are the columns max VIF leaves out: the dependent column of
+	// each exact dependency and each constant column, which their own
+	// alerts report.
+	LeftOut []string `json:"left_out,omitempty"`
 }
 
 func newHistoryCmd() *cobra.Command {
@@ -98,6 +102,9 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 		if singular {
 			hp.ConditionNumber, hp.CenteredCondition = nil, nil
 		}
+		if o, err := agent.ObservationFromPoint(p, ""); err == nil {
+			hp.LeftOut = o.LeftOut
+		}
 		out = append(out, hp)
 	}
 	if format == "json" {
@@ -120,8 +127,12 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 		return "–"
 	}
 	for _, p := range out {
+		col := p.MaxVIFColumn
+		if len(p.LeftOut) > 0 {
+			col += " (left out, reported by their own alerts: " + strings.Join(p.LeftOut, ", ") + ")"
+		}
 		fmt.Fprintf(stdout, "%-20s %8d %5d %14s %14s %12s  %s\n", p.At.Format("2006-01-02 15:04"), p.Rows, p.Rank,
-			show(p.ConditionNumber, p.Singular), show(p.CenteredCondition, p.Singular), show(p.MaxVIF, false), p.MaxVIFColumn)
+			show(p.ConditionNumber, p.Singular), show(p.CenteredCondition, p.Singular), show(p.MaxVIF, false), col)
 	}
 	if f, ok := stdout.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
 		cond := make([]*float64, len(out))
