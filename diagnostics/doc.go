@@ -93,6 +93,20 @@
 // (p + 1 − rank) largest which are the exact dependencies, with at least
 // two proportions above PropLimit ("(intercept)" can be one of them).
 //
+// # Drivers
+//
+// ColumnReport.Drivers names the partner columns behind a VIF: R_j², the R²
+// of regressing column j on the others, is split by Pratt's product
+// measure (Pratt 1987) into share_k = β_k·r_jk/R_j², β_k the standardized
+// coefficient of partner k in that regression and r_jk the correlation of
+// j and k. Since R_j² = Σ_k β_k·r_jk the shares sum to 1; a negative share
+// marks a suppressor. The β come from P = (SᵀS)⁻¹ restricted to the
+// independent columns, β_k = −P_jk/P_jj, O(p²) per column from the inverse
+// factor the VIFs already use; R_j² = 1 − 1/P_jj is the reported R2. The
+// dependent column of an exact dependency is no partner (its terms stand
+// for it). Kept: |share| ≥ 0.05 (common practice, no source), at most five,
+// largest share first.
+//
 // # What-if drops
 //
 // Dropping a column k outside every exact dependency updates the other

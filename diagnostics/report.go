@@ -140,7 +140,11 @@ type ColumnReport struct {
 	Dropped      int64    `json:"dropped"`
 	OverLimit    bool     `json:"over_limit"` // VIF ≥ VIFLimit, or undefined
 	// Drivers are the partner columns that explain this column in its
-	// regression on the others, largest share first.
+	// regression on the others, largest share first: Pratt's product
+	// measure β_k·r_jk/R²_j, whose shares over all partners sum to 1 (a
+	// negative share marks a suppressor). Only partners with |share| ≥ 0.05
+	// are listed, at most five; empty when the VIF is undefined or R²_j is
+	// below 1e-6.
 	Drivers []Driver `json:"drivers,omitempty"`
 }
 
