@@ -113,11 +113,14 @@
 // VIFs by the Schur-complement identity on P = (SᵀS)⁻¹: VIF_j becomes
 // P_jj − P_jk²/P_kk (relative rounding about eps·P_jj/result). Dropping a
 // column of an exact dependency reruns the analysis without it. The
-// suggested drops are greedy: constant columns, then, while an exact
-// dependency remains, the column of one whose removal leaves the fewest
-// undefined and over-limit VIFs and the smallest largest VIF, then the same
-// for VIFs over the limit. Every suggestion carries the omitted-variable
-// bias caution.
+// suggested drops are greedy: constant columns, then the dependent column
+// of each exact dependency (the column its equation expresses, e.g.
+// total_connections for total_connections = residential_connections +
+// commercial_connections; the rest spans the same space, so nothing is
+// lost), then, while a VIF is over the limit, the column whose removal
+// leaves the fewest over-limit VIFs and the smallest largest VIF; a drop
+// that turns out not to be needed is put back. Every suggestion carries the
+// omitted-variable bias caution.
 //
 // # Variance split
 //
