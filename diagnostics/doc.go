@@ -124,22 +124,37 @@
 //
 // # Variance split
 //
-// With a target, Var(b_j) = σ²/(SST_j·(1 − R_j²)). Each factor is compared
-// with a reference and given a severity that is 1 at its alarm level:
+// With a target, Var(b_j) = σ²/(SST_j·(1 − R_j²)). Each factor gets a
+// severity that is 1 at its alarm level:
 //
 //   - poor fit: (σ²/Var(y)) / 0.5, i.e. half of the target's variance left
 //     unexplained;
-//   - little variation: (0.01/(sd_j/scale_j))², scale_j = max(|min_j|,
-//     |max_j|): a column whose spread is 1% of its own magnitude (the
-//     square, because SST_j enters the variance squared in the spread);
+//   - little variation: (sd_ref/sd_j)²/VIFLimit, sd_ref the column's SD in
+//     a broader sample given in Options.ReferenceSD (the watch's history,
+//     the whole table for a bucket or segment): the factor by which the
+//     column's narrow spread here multiplies Var(b_j), held to the same
+//     limit as the VIF, which measures the same multiplication by
+//     redundancy. A ratio of two SDs of one column depends neither on its
+//     origin nor on its unit (°C, K and °F give the same answer), unlike
+//     the spread relative to the column's magnitude. Without a reference
+//     the factor is not judged: one sample alone cannot tell whether a
+//     column varies little;
 //   - redundancy: VIF_j/VIFLimit.
 //
-// The largest severity names the dominant cause and its remedy (add the
-// missing explanatory variables; widen the sample so that the column
-// varies; drop or combine the redundant columns, with the omitted-variable
-// bias caution). When even the largest is below 1, Inflated is false and
-// the remedy says that nothing needs fixing. These levels are the package's own rule, not a published
-// one. Without an intercept SST_j and R_j² are uncentered.
+// The split speaks (Inflated, with the dominant cause and its remedy) only
+// when the variance is in fact large: |t_j| is below the two-sided 5%
+// quantile of Student's t on the residual degrees of freedom (the
+// coefficient's 95% interval covers 0), AND the largest severity is at
+// least 1. A coefficient that stands clear of zero needs no remedy, however
+// large its VIF; a small |t| with no factor at alarm shows a small effect,
+// not an inflated variance. Reason says which case holds; Dominant, Remedy
+// and Caution are empty when the split is silent. Remedies: add the missing
+// explanatory variables (σ given in the target's units beside its SD);
+// widen the sample so that the column varies (its SD here and in the
+// reference, in its units); drop or combine the redundant columns (naming
+// the drivers), with the omitted-variable bias caution. The alarm levels
+// are the package's own rule, not a published one. Without an intercept
+// SST_j and R_j² are uncentered.
 //
 // # Numerical trust
 //

@@ -101,3 +101,14 @@ func (rep *Report) Column(name string) (ColumnReport, bool) {
 	}
 	return ColumnReport{}, false
 }
+
+// ColumnSDs returns each regressor's standard deviation, for use as another
+// analysis's Options.ReferenceSD (a bucket or segment judged against the
+// whole table).
+func (rep *Report) ColumnSDs() map[string]float64 {
+	out := make(map[string]float64, len(rep.Columns))
+	for _, c := range rep.Columns {
+		out[c.Name] = c.SD
+	}
+	return out
+}
