@@ -283,6 +283,7 @@ func analyzeDesign(d *design, m *stream.Moments, opt Options) (*Report, error) {
 		}
 		rep.Columns = append(rep.Columns, cr)
 	}
+	rep.drivers(col)
 
 	rep.correlation(col)
 	rep.components(col)

@@ -580,59 +580,6 @@ func TestErrors(t *testing.T) {
 	}
 }
 
-// The variance split names the dominant cause (the package's documented
-// rule): a near copy (redundancy), a sensor that barely moves (little
-// variation) and a target that is mostly noise (poor fit).
-func TestVarianceSplit(t *testing.T) {
-	r := rand.New(rand.NewPCG(81, 82))
-	names := []string{"temperature", "population_served", "households", "pressure_z1", "metered_volume", "billed_volume"}
-	var rows [][]float64
-	for i := 0; i < 3000; i++ {
-		temp := 15 + 8*r.NormFloat64()
-		pop := 48000 + 1500*r.NormFloat64()
-		hh := pop/2.6 + 5*r.NormFloat64()      // near copy of population
-		press := 52.3 + 0.0002*r.NormFloat64() // barely moves
-		metered := 300*temp + 0.2*pop + 2e5*press + 400*r.NormFloat64()
-		billed := 300*temp + 0.2*pop + 1e5*r.NormFloat64() // mostly noise
-		rows = append(rows, []float64{temp, pop, hh, press, metered, billed})
-	}
-	m, q := feedRows(names, rows, 512)
-	cases := []struct {
-		target string
-		want   map[string]string
-	}{
-		{"metered_volume", map[string]string{"population_served": CauseRedundancy, "households": CauseRedundancy, "pressure_z1": CauseLittleVariation}},
-		{"billed_volume", map[string]string{"temperature": CausePoorFit}},
-	}
-	for _, tc := range cases {
-		cols := []string{"temperature", "population_served", "households", "pressure_z1"}
-		qr, cp := analyzeBoth(t, m, q, Options{Columns: cols, Target: tc.target})
-		for _, rep := range []*Report{qr, cp} {
-			for _, vs := range rep.Regression.Attribution {
-				if want, ok := tc.want[vs.Name]; ok && (vs.Dominant != want || !vs.Inflated) {
-					t.Errorf("%s path, target %s: %s dominant %q (inflated %v), want %q (%+v)", rep.Path, tc.target, vs.Name, vs.Dominant, vs.Inflated, want, vs)
-				}
-				if vs.Dominant == CauseRedundancy && vs.Inflated && !strings.Contains(vs.Caution, "omitted-variable bias") {
-					t.Errorf("%s: redundancy without the caution", vs.Name)
-				}
-				// Var(b_j) = σ²/(SST_j·(1−R_j²)) and the reported SE agree.
-				se := 0.0
-				for _, c := range rep.Regression.Coefficients {
-					if c.Name == vs.Name {
-						se = c.StdError
-					}
-				}
-				if v := vs.Sigma2 / (vs.SST * vs.OneMinusR2); relErr(v, se*se) > 1e-10 || relErr(v, vs.Variance) > 1e-10 {
-					t.Errorf("%s: split %g, variance %g, SE² %g", vs.Name, v, vs.Variance, se*se)
-				}
-				if c := colByName(t, rep, vs.Name); relErr(1/vs.OneMinusR2, *c.VIF) > 1e-9 {
-					t.Errorf("%s: 1/(1−R²) %g, VIF %g", vs.Name, 1/vs.OneMinusR2, *c.VIF)
-				}
-			}
-		}
-	}
-}
-
 // On well-conditioned data both paths agree and the cross-product path
 // declares itself trustworthy.
 func TestPathsAgreeWhenTrustworthy(t *testing.T) {

@@ -93,36 +93,68 @@
 // (p + 1 − rank) largest which are the exact dependencies, with at least
 // two proportions above PropLimit ("(intercept)" can be one of them).
 //
+// # Drivers
+//
+// ColumnReport.Drivers names the partner columns behind a VIF: R_j², the R²
+// of regressing column j on the others, is split by Pratt's product
+// measure (Pratt 1987) into share_k = β_k·r_jk/R_j², β_k the standardized
+// coefficient of partner k in that regression and r_jk the correlation of
+// j and k. Since R_j² = Σ_k β_k·r_jk the shares sum to 1; a negative share
+// marks a suppressor. The β come from P = (SᵀS)⁻¹ restricted to the
+// independent columns, β_k = −P_jk/P_jj, O(p²) per column from the inverse
+// factor the VIFs already use; R_j² = 1 − 1/P_jj is the reported R2. The
+// dependent column of an exact dependency is no partner (its terms stand
+// for it). Kept: |share| ≥ 0.05 (common practice, no source), at most five,
+// largest share first.
+//
 // # What-if drops
 //
 // Dropping a column k outside every exact dependency updates the other
 // VIFs by the Schur-complement identity on P = (SᵀS)⁻¹: VIF_j becomes
 // P_jj − P_jk²/P_kk (relative rounding about eps·P_jj/result). Dropping a
 // column of an exact dependency reruns the analysis without it. The
-// suggested drops are greedy: constant columns, then, while an exact
-// dependency remains, the column of one whose removal leaves the fewest
-// undefined and over-limit VIFs and the smallest largest VIF, then the same
-// for VIFs over the limit. Every suggestion carries the omitted-variable
-// bias caution.
+// suggested drops are greedy: constant columns, then the dependent column
+// of each exact dependency (the column its equation expresses, e.g.
+// total_connections for total_connections = residential_connections +
+// commercial_connections; the rest spans the same space, so nothing is
+// lost), then, while a VIF is over the limit, the column whose removal
+// leaves the fewest over-limit VIFs and the smallest largest VIF; a drop
+// that turns out not to be needed is put back. Every suggestion carries the
+// omitted-variable bias caution.
 //
 // # Variance split
 //
-// With a target, Var(b_j) = σ²/(SST_j·(1 − R_j²)). Each factor is compared
-// with a reference and given a severity that is 1 at its alarm level:
+// With a target, Var(b_j) = σ²/(SST_j·(1 − R_j²)). Each factor gets a
+// severity that is 1 at its alarm level:
 //
 //   - poor fit: (σ²/Var(y)) / 0.5, i.e. half of the target's variance left
 //     unexplained;
-//   - little variation: (0.01/(sd_j/scale_j))², scale_j = max(|min_j|,
-//     |max_j|): a column whose spread is 1% of its own magnitude (the
-//     square, because SST_j enters the variance squared in the spread);
+//   - little variation: (sd_ref/sd_j)²/VIFLimit, sd_ref the column's SD in
+//     a broader sample given in Options.ReferenceSD (the watch's history,
+//     the whole table for a bucket or segment): the factor by which the
+//     column's narrow spread here multiplies Var(b_j), held to the same
+//     limit as the VIF, which measures the same multiplication by
+//     redundancy. A ratio of two SDs of one column depends neither on its
+//     origin nor on its unit (°C, K and °F give the same answer), unlike
+//     the spread relative to the column's magnitude. Without a reference
+//     the factor is not judged: one sample alone cannot tell whether a
+//     column varies little;
 //   - redundancy: VIF_j/VIFLimit.
 //
-// The largest severity names the dominant cause and its remedy (add the
-// missing explanatory variables; widen the sample so that the column
-// varies; drop or combine the redundant columns, with the omitted-variable
-// bias caution). When even the largest is below 1, Inflated is false and
-// the remedy says that nothing needs fixing. These levels are the package's own rule, not a published
-// one. Without an intercept SST_j and R_j² are uncentered.
+// The split speaks (Inflated, with the dominant cause and its remedy) only
+// when the variance is in fact large: |t_j| is below the two-sided 5%
+// quantile of Student's t on the residual degrees of freedom (the
+// coefficient's 95% interval covers 0), AND the largest severity is at
+// least 1. A coefficient that stands clear of zero needs no remedy, however
+// large its VIF; a small |t| with no factor at alarm shows a small effect,
+// not an inflated variance. Reason says which case holds; Dominant, Remedy
+// and Caution are empty when the split is silent. Remedies: add the missing
+// explanatory variables (σ given in the target's units beside its SD);
+// widen the sample so that the column varies (its SD here and in the
+// reference, in its units); drop or combine the redundant columns (naming
+// the drivers), with the omitted-variable bias caution. The alarm levels
+// are the package's own rule, not a published one. Without an intercept
+// SST_j and R_j² are uncentered.
 //
 // # Numerical trust
 //

@@ -3,13 +3,19 @@ package diagnostics
 import (
 	"fmt"
 	"math"
+	"strings"
+
+	"gonum.org/v1/gonum/stat/distuv"
 )
 
-// Reference levels of the dominant-cause rule (see the package
-// documentation). Each severity is 1 at its alarm level.
+// Reference levels of the variance split (see the package documentation).
+// Each severity is 1 at its alarm level.
 const (
-	fitAlarm       = 0.5  // σ² at half the target's variance
-	variationAlarm = 0.01 // spread at 1% of the column's magnitude
+	fitAlarm = 0.5 // σ² at half the target's variance
+	// tLevel: a coefficient's variance is large when its two-sided t test
+	// at this level does not reject b_j = 0 (its 95% confidence interval
+	// covers 0).
+	tLevel = 0.05
 )
 
 // regression fits the target on the estimable regressors by back
@@ -112,10 +118,12 @@ func (rep *Report) regression(d *design, c *collin, opt Options) {
 		reg.Coefficients = append(reg.Coefficients, Coefficient{Name: InterceptName, Estimate: o.b0, StdError: o.se0, T: tstat(o.b0, o.se0)})
 	}
 	varY := d.sd(y) * d.sd(y)
+	tcrit := distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(df)}.Quantile(1 - tLevel/2)
 	for a, j := range fit {
 		se := o.se[a]
-		reg.Coefficients = append(reg.Coefficients, Coefficient{Name: d.names[j], Estimate: o.b[a], StdError: se, T: tstat(o.b[a], se)})
-		reg.Attribution = append(reg.Attribution, splitVariance(d, c, j, reg.Sigma2, sst[a], o.inv[a], varY, opt))
+		coef := Coefficient{Name: d.names[j], Estimate: o.b[a], StdError: se, T: tstat(o.b[a], se)}
+		reg.Coefficients = append(reg.Coefficients, coef)
+		reg.Attribution = append(reg.Attribution, splitVariance(d, c, j, coef, tcrit, reg.Sigma, sst[a], o.inv[a], varY, opt))
 	}
 	rep.Regression = reg
 	rep.regressionErrors(d, fit, o.b, o.tinv, sst, syy, o.ssr, opt)
@@ -323,42 +331,101 @@ func tstat(b, se float64) float64 {
 	return b / se
 }
 
-// splitVariance names the dominant cause of Var(b_j) = σ²·inv, where
-// inv = 1/(SST_j·(1 − R_j²)).
-func splitVariance(d *design, c *collin, j int, sigma2, sst, inv, varY float64, opt Options) VarianceSplit {
+// splitVariance splits Var(b_j) = σ²·inv, inv = 1/(SST_j·(1 − R_j²)), into
+// its three factors, and speaks (Inflated, Dominant, Remedy) only when the
+// variance is in fact large: the coefficient cannot be told from zero
+// (|t_j| < tcrit, the two-sided 5% quantile of Student's t on the residual
+// degrees of freedom, so its 95% interval covers 0) AND at least one factor
+// is at its alarm level. A coefficient that stands clear of zero needs no
+// remedy whatever its VIF; one that does not, with no factor at alarm, shows
+// a small effect rather than an inflated variance. Reason says which case
+// holds. The factors' severities (1 at alarm):
+//
+//   - poor fit: (σ²/Var(y))/0.5;
+//   - little variation: (sd_ref/sd_j)²/VIFLimit, sd_ref the column's SD in
+//     a broader sample (Options.ReferenceSD): the factor by which Var(b_j)
+//     exceeds what the column's usual variation would give, judged against
+//     the same limit as the VIF. SDs do not depend on the origin (°C and K
+//     give the same ratio) and the ratio not on the unit; without a
+//     reference this factor is not judged (0);
+//   - redundancy: VIF_j/VIFLimit.
+func splitVariance(d *design, c *collin, j int, coef Coefficient, tcrit, sigma, sst, inv, varY float64, opt Options) VarianceSplit {
 	name := d.names[j]
+	tname := d.names[d.k]
 	omr := 1 / (sst * inv)
 	vs := VarianceSplit{
-		Name: name, Sigma2: sigma2, SST: sst, OneMinusR2: omr,
-		Variance: sigma2 * inv, VIF: 1 / omr,
+		Name: name, Sigma2: sigma * sigma, SST: sst, OneMinusR2: omr,
+		Variance: sigma * sigma * inv, VIF: 1 / omr, TCritical: tcrit,
 	}
 	if varY > 0 {
-		vs.FitSeverity = sigma2 / varY / fitAlarm
+		vs.FitSeverity = vs.Sigma2 / varY / fitAlarm
 	}
-	scale := math.Max(math.Abs(d.min[j]), math.Abs(d.max[j]))
-	rel := d.sd(j) / scale
-	vs.VariationSeverity = (variationAlarm / rel) * (variationAlarm / rel)
+	sd := d.sd(j)
+	if ref, ok := opt.ReferenceSD[name]; ok && ref > 0 && !math.IsInf(ref, 0) {
+		vs.ReferenceSD = fptr(ref)
+		if sd > 0 {
+			vs.VariationSeverity = (ref / sd) * (ref / sd) / opt.VIFLimit
+		}
+	}
 	vs.RedundancySeverity = vs.VIF / opt.VIFLimit
-	switch {
-	case vs.RedundancySeverity >= vs.VariationSeverity && vs.RedundancySeverity >= vs.FitSeverity:
-		vs.Dominant = CauseRedundancy
-		vs.Remedy = fmt.Sprintf("VIF %.3g: %s largely repeats other columns (R² %.4g on them%s); drop or combine the columns that measure the same thing, or replace the correlated block by its principal components",
-			vs.VIF, name, 1-omr, closest(d, c, j))
-		vs.Caution = DropCaution
-	case vs.VariationSeverity >= vs.FitSeverity:
-		vs.Dominant = CauseLittleVariation
-		vs.Remedy = fmt.Sprintf("%s varies by only %.3g%% of its magnitude: widen the sample (more districts, seasons or operating conditions) so that it varies", name, 100*rel)
-	default:
-		vs.Dominant = CausePoorFit
-		vs.Remedy = fmt.Sprintf("σ² is %.3g of the target's variance: add the relevant explanatory variables that are missing", vs.FitSeverity*fitAlarm)
+
+	// The largest severity and its cause.
+	top, cause := vs.RedundancySeverity, CauseRedundancy
+	if vs.VariationSeverity > top {
+		top, cause = vs.VariationSeverity, CauseLittleVariation
 	}
-	top := math.Max(vs.RedundancySeverity, math.Max(vs.VariationSeverity, vs.FitSeverity))
-	vs.Inflated = top >= 1
+	if vs.FitSeverity > top {
+		top, cause = vs.FitSeverity, CausePoorFit
+	}
+	absT := math.Abs(coef.T)
+	unclear := coef.StdError > 0 && absT < tcrit
+	vs.Inflated = unclear && top >= 1
+	tText := fmt.Sprintf("|t| %.3g", absT)
+	switch {
+	case vs.Inflated:
+		vs.Reason = fmt.Sprintf("%s < %.3g: the 95%% interval of the coefficient covers 0, and %s is %.3g× its alarm level", tText, tcrit, cause, top)
+	case !unclear && top >= 1:
+		vs.Reason = fmt.Sprintf("%s ≥ %.3g: the coefficient stands clear of zero although %s is %.3g× its alarm level; its variance needs no remedy", tText, tcrit, cause, top)
+	case !unclear:
+		vs.Reason = fmt.Sprintf("%s ≥ %.3g: the coefficient stands clear of zero", tText, tcrit)
+	default:
+		vs.Reason = fmt.Sprintf("%s < %.3g, but no factor is at its alarm level (largest: %s, %.2g of it): no clear effect of %s rather than an inflated variance",
+			tText, tcrit, cause, top, name)
+		if vs.ReferenceSD == nil {
+			vs.Reason += fmt.Sprintf("; variation not judged (no reference SD; SD here %.3g in %s's units)", sd, name)
+		}
+	}
 	if !vs.Inflated {
-		vs.Remedy = fmt.Sprintf("no factor reaches its alarm level (largest: %s at %.2g of it); nothing to fix", vs.Dominant, top)
-		vs.Caution = ""
+		return vs
+	}
+	vs.Dominant = cause
+	switch cause {
+	case CauseRedundancy:
+		vs.Remedy = fmt.Sprintf("VIF %.3g: %s largely repeats other columns (R² %.4g on them%s); drop or combine the columns that measure the same thing, or replace the correlated block by its principal components",
+			vs.VIF, name, 1-omr, explainedBy(d, c, j))
+		vs.Caution = DropCaution
+	case CauseLittleVariation:
+		vs.Remedy = fmt.Sprintf("%s varies with SD %.3g here against %.3g in its reference sample (in %s's units), which makes the coefficient's variance %.3g times larger: widen the sample (more districts, seasons or operating conditions) so that it varies",
+			name, sd, *vs.ReferenceSD, name, vs.VariationSeverity*opt.VIFLimit)
+	default:
+		vs.Remedy = fmt.Sprintf("σ is %.3g in %s's units against its SD of %.3g (σ² is %.3g of the target's variance): add the relevant explanatory variables that are missing",
+			sigma, tname, math.Sqrt(varY), vs.FitSeverity*fitAlarm)
 	}
 	return vs
+}
+
+// explainedBy names the partner columns that explain j (its drivers), or
+// when it has none the varying column most correlated with it.
+func explainedBy(d *design, c *collin, j int) string {
+	top := topDrivers(c.pratt(j))
+	if len(top) == 0 {
+		return closest(d, c, j)
+	}
+	parts := make([]string, 0, 3)
+	for _, dr := range top[:min(len(top), 3)] {
+		parts = append(parts, fmt.Sprintf("%s %.0f%%", dr.Column, 100*dr.Share))
+	}
+	return "; explained by " + strings.Join(parts, ", ")
 }
 
 // closest names the varying column most correlated with j.

@@ -22,6 +22,11 @@ type Options struct {
 	// NoIntercept fits the regression without an intercept. The
 	// collinearity diagnostics still describe the design [1 X].
 	NoIntercept bool
+	// ReferenceSD gives, per column, its standard deviation in a broader
+	// sample (the watch's whole history, the whole table) against which
+	// the variance split judges whether the column varies too little here.
+	// A column without one is not judged for little variation.
+	ReferenceSD map[string]float64
 }
 
 // Default limits (common practice).
@@ -140,7 +145,11 @@ type ColumnReport struct {
 	Dropped      int64    `json:"dropped"`
 	OverLimit    bool     `json:"over_limit"` // VIF ≥ VIFLimit, or undefined
 	// Drivers are the partner columns that explain this column in its
-	// regression on the others, largest share first.
+	// regression on the others, largest share first: Pratt's product
+	// measure β_k·r_jk/R²_j, whose shares over all partners sum to 1 (a
+	// negative share marks a suppressor). Only partners with |share| ≥ 0.05
+	// are listed, at most five; empty when the VIF is undefined or R²_j is
+	// below 1e-6.
 	Drivers []Driver `json:"drivers,omitempty"`
 }
 
@@ -237,8 +246,9 @@ type Coefficient struct {
 }
 
 // VarianceSplit splits Var(b_j) = σ² / (SST_j·(1 − R_j²)) into its three
-// factors and names the dominant one (see the package documentation for
-// the rule).
+// factors. It speaks (Inflated, Dominant, Remedy) only when the variance is
+// in fact large: |t_j| below TCritical and at least one severity at its
+// alarm level (see the package documentation for the rule).
 type VarianceSplit struct {
 	Name       string  `json:"name"`
 	Sigma2     float64 `json:"sigma2"`
@@ -246,17 +256,27 @@ type VarianceSplit struct {
 	OneMinusR2 float64 `json:"one_minus_r2"`
 	Variance   float64 `json:"variance"`
 	VIF        float64 `json:"vif"`
+	// ReferenceSD is the column's SD in the broader sample it was judged
+	// against (Options.ReferenceSD); null when none was given.
+	ReferenceSD *float64 `json:"reference_sd"`
+	// TCritical is the two-sided 5% quantile of Student's t on the
+	// residual degrees of freedom: |t| below it leaves 0 inside the
+	// coefficient's 95% interval.
+	TCritical float64 `json:"t_critical"`
 
 	// The three severities the rule compares; 1 is the alarm level.
 	FitSeverity        float64 `json:"fit_severity"`        // (σ²/Var(y)) / 0.5
-	VariationSeverity  float64 `json:"variation_severity"`  // (0.01 / (sd_j/scale_j))²
+	VariationSeverity  float64 `json:"variation_severity"`  // (sd_ref/sd_j)² / VIFLimit; 0 without a reference
 	RedundancySeverity float64 `json:"redundancy_severity"` // VIF_j / VIFLimit
 
-	// Inflated reports whether the dominant severity reaches its alarm
-	// level (1); when it does not, Dominant is only the largest of three
-	// unremarkable factors and Remedy says so.
+	// Inflated reports that the coefficient's variance is in fact large:
+	// |t| < TCritical and the largest severity is at least 1. Only then
+	// are Dominant (the factor with the largest severity), Remedy and, for
+	// redundancy, Caution set.
 	Inflated bool   `json:"inflated"`
 	Dominant string `json:"dominant"`
 	Remedy   string `json:"remedy"`
 	Caution  string `json:"caution,omitempty"`
+	// Reason says in words which case of the rule holds.
+	Reason string `json:"reason"`
 }

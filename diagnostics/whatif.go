@@ -93,13 +93,13 @@ func (c *collin) all() map[int]vifResult {
 }
 
 // greedyDrops returns a small set of columns whose removal leaves every VIF
-// defined and below limit: constant columns first, then, while an exact
-// dependency remains, the column of a dependency whose removal gives the
-// best outcome (each candidate is re-analyzed), then, while a VIF is over
-// the limit, the column whose removal gives the best outcome by the
-// Schur-complement update; finally any dropped column that can be put back
-// without breaking the limit is put back. Greedy: every suggestion is
-// needed, but the set is not guaranteed to be the smallest.
+// defined and below limit: constant columns first, then the dependent column
+// of each exact dependency (the one its equation expresses, as in
+// Report.Dependencies), then, while a VIF is over the limit, the column
+// whose removal gives the best outcome by the Schur-complement update;
+// finally any dropped column that can be put back without breaking the
+// limit is put back. Greedy: every suggestion is needed, but the set is not
+// guaranteed to be the smallest.
 func greedyDrops(d *design, c *collin, limit float64) []int {
 	var drops []int
 	cur := c
@@ -123,39 +123,28 @@ func greedyDrops(d *design, c *collin, limit float64) []int {
 			cur = analyzeSet(d, rest)
 			continue
 		}
-		best, bestScore := -1, score{}
-		var bestSet *collin
 		if len(cur.deps) > 0 {
-			// Dependents first, so that ties favour them.
-			var cand []int
+			// Each equation's dependent column: the one its equation
+			// expresses (a total beside its parts, a copy, the last
+			// dummy), so that the suggestion is the column the owner
+			// reads as derived. The rest spans the same space.
+			rest := cur.cols
 			for _, e := range cur.deps {
-				cand = append(cand, e.dep)
+				drops = append(drops, e.dep)
+				rest = without(rest, e.dep)
 			}
-			for _, j := range cur.cols {
-				if cur.inv[j] && !cur.isDep[j] {
-					cand = append(cand, j)
-				}
-			}
-			for _, j := range cand {
-				o := analyzeSet(d, without(cur.cols, j))
-				sc := scoreOf(o.all(), limit)
-				if best < 0 || sc.less(bestScore) {
-					best, bestScore, bestSet = j, sc, o
-				}
-			}
-		} else {
-			for _, j := range cur.cols {
-				sc := scoreOf(cur.dropVIF(j), limit)
-				if best < 0 || sc.less(bestScore) {
-					best, bestScore = j, sc
-				}
+			cur = analyzeSet(d, rest)
+			continue
+		}
+		best, bestScore := -1, score{}
+		for _, j := range cur.cols {
+			sc := scoreOf(cur.dropVIF(j), limit)
+			if best < 0 || sc.less(bestScore) {
+				best, bestScore = j, sc
 			}
 		}
 		drops = append(drops, best)
-		if bestSet == nil {
-			bestSet = analyzeSet(d, without(cur.cols, best))
-		}
-		cur = bestSet
+		cur = analyzeSet(d, without(cur.cols, best))
 	}
 	// Prune: put back, latest first, any dropped column without which
 	// the result is no better, so that every suggestion is needed.

@@ -197,11 +197,6 @@ type splitRow struct {
 	Coef *diagnostics.Coefficient
 }
 
-// Alarmed reports whether any factor reaches its alarm level (1).
-func (r splitRow) Alarmed() bool {
-	return max(r.FitSeverity, r.VariationSeverity, r.RedundancySeverity) >= 1
-}
-
 type watchData struct {
 	page
 	Summary     WatchSummary

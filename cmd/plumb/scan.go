@@ -276,12 +276,16 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 		}
 	}
 	if f.segment != "" || f.bucket != "" {
+		// Each bucket's or segment's variation is judged against the
+		// whole table's.
+		gopt := opt
+		gopt.ReferenceSD = rep.ColumnSDs()
 		for _, g := range res.Groups {
 			gout := groupOutput{Segment: g.Key.Segment}
 			if !g.Key.Bucket.IsZero() {
 				gout.Bucket = g.Key.Bucket.Format("2006-01-02T15:04:05Z07:00")
 			}
-			r, err := diagnostics.Analyze(g.Moments, g.QR, opt)
+			r, err := diagnostics.Analyze(g.Moments, g.QR, gopt)
 			if err != nil {
 				gout.Error = err.Error()
 			} else {

@@ -125,7 +125,11 @@ func writeText(w io.Writer, out *scanOutput) error {
 		tw.Flush()
 		b.WriteString("\nWhy each coefficient's variance is what it is: Var(b_j) = sigma² / (SST_j · (1 − R_j²))\n")
 		for _, s := range reg.Attribution {
-			fmt.Fprintf(&b, "  %s: mostly %s — %s\n", s.Name, s.Dominant, s.Remedy)
+			if s.Inflated {
+				fmt.Fprintf(&b, "  %s: mostly %s — %s\n", s.Name, s.Dominant, s.Remedy)
+			} else {
+				fmt.Fprintf(&b, "  %s: %s\n", s.Name, s.Reason)
+			}
 		}
 	}
 	if len(r.SuggestedDrops) > 0 {
