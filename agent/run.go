@@ -388,6 +388,7 @@ func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time
 	if w.SegmentBy != "" {
 		todo = append(todo, segs...)
 	}
+	var wholeSDs map[string]float64 // a segment's variation is judged against the whole table's
 	for _, seg := range todo {
 		parts := all
 		if seg != "" {
@@ -397,7 +398,10 @@ func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time
 		if a.m == nil || a.m.N() == 0 {
 			continue
 		}
-		rep, err := analyze(w, regressors, a)
+		rep, err := analyze(w, regressors, a, wholeSDs)
+		if err == nil && seg == "" && w.Target != "" {
+			wholeSDs = rep.ColumnSDs()
+		}
 		if err != nil {
 			col.skipped = append(col.skipped, fmt.Sprintf("%s segment %q: %v", at.Format(time.RFC3339), seg, err))
 			continue

@@ -156,10 +156,17 @@ func merge(cols []string, parts []acc) acc {
 // precision: fast uses the cross-products only, exact the QR factor,
 // precise the double-double QR factor, and auto the QR factor when the
 // cross-products cannot be trusted.
-func analyze(w *config.Watch, regressors []string, a acc) (*diagnostics.Report, error) {
+//
+// ref, when given, holds the columns' SDs in a broader sample (the whole
+// table, for a segment): the regression's low-variation verdict compares
+// with them.
+func analyze(w *config.Watch, regressors []string, a acc, ref ...map[string]float64) (*diagnostics.Report, error) {
 	opt := diagnostics.Options{
 		Target: w.Target, Columns: regressors, Groups: w.Groups,
 		VIFLimit: w.Limits.VIF.Critical, CondLimit: w.Limits.Condition.Critical,
+	}
+	if len(ref) > 0 {
+		opt.ReferenceSD = ref[0]
 	}
 	switch {
 	case (w.Precision == "exact" || w.Precision == "precise") && a.q != nil:
