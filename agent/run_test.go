@@ -108,7 +108,7 @@ func (s *driftSource) addDay(t *testing.T, d int) {
 // records what it was sent; while down it answers 503.
 type receiver struct {
 	mu      sync.Mutex
-	secret  []byte
+	secret  string
 	down    bool
 	got     []agent.Notification
 	badSigs int
@@ -116,7 +116,7 @@ type receiver struct {
 }
 
 func newReceiver(t *testing.T, secret string) *receiver {
-	r := &receiver{secret: []byte(secret)}
+	r := &receiver{secret: secret}
 	r.srv = httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, req *http.Request) {
 		b, _ := io.ReadAll(req.Body)
 		r.mu.Lock()
@@ -125,13 +125,13 @@ func newReceiver(t *testing.T, secret string) *receiver {
 			w.WriteHeader(http.StatusServiceUnavailable)
 			return
 		}
-		if !notify.Verify(r.secret, req.Header.Get(notify.HeaderTimestamp), req.Header.Get(notify.HeaderSignature), b) {
+		if !notify.Verify(r.secret, req.Header.Get(notify.HeaderID), req.Header.Get(notify.HeaderTimestamp), req.Header.Get(notify.HeaderSignature), b) {
 			r.badSigs++
 			w.WriteHeader(http.StatusUnauthorized)
 			return
 		}
 		var n agent.Notification
-		if err := json.Unmarshal(b, &n); err != nil || n.ID != req.Header.Get(notify.HeaderEvent) {
+		if err := json.Unmarshal(b, &n); err != nil || n.ID != req.Header.Get(notify.HeaderID) {
 			w.WriteHeader(http.StatusBadRequest)
 			return
 		}
@@ -200,7 +200,7 @@ func newHarness(t *testing.T) *harness {
 	t.Cleanup(func() { h.store.Close() })
 	h.run = &agent.Runner{Store: h.store, Config: cfg, Clock: h.clock}
 	h.del = &agent.Deliverer{Store: h.store, Clock: h.clock, Notifiers: map[string]agent.NotifierConfig{
-		"oncall": {Notifier: &notify.Webhook{URL: h.recv.srv.URL, Secret: []byte("hook-secret"), Now: h.clock.Now}, Timeout: 5 * time.Second, MaxAge: 7 * 24 * time.Hour},
+		"oncall": {Notifier: &notify.Webhook{URL: h.recv.srv.URL, Secrets: []string{"hook-secret"}, Now: h.clock.Now}, Timeout: 5 * time.Second, MaxAge: 7 * 24 * time.Hour},
 	}}
 	return h
 }

@@ -5,6 +5,7 @@
 // default shown):
 //
 //	store: sqlite:plumb-state.db        # or postgres://user@host/db
+//	public_url: https://plumb.example.org # optional: notifications link to the watch pages
 //	sources:                            # NAME: URL (required by watches)
 //	  districts: sqlite:/data/districts.db
 //	  warehouse: postgres://reader@db.internal/features
@@ -12,10 +13,11 @@
 //	  oncall:
 //	    webhook: https://hooks.example.org/plumb
 //	    secret_env: PLUMB_WEBHOOK_SECRET # or secret_file: /run/secrets/plumb
+//	    previous_secret_env: PLUMB_WEBHOOK_SECRET_OLD # during a key rotation (or previous_secret_file)
 //	    timeout: 10s                     # per attempt
 //	    max_age: 24h                     # retries stop after this age
 //	  audit:
-//	    log: true                        # one slog JSON line per event, on stderr
+//	    log: true                        # one JSON object per line per event, on stderr
 //	  owners:
 //	    smtp:
 //	      addr: mail.example.org:587
@@ -103,7 +105,11 @@ const (
 
 // Config is a parsed and validated configuration file.
 type Config struct {
-	Store     string               `yaml:"store"`
+	Store string `yaml:"store"`
+	// PublicURL is where the dashboard is reached from outside (an
+	// absolute http or https URL); notifications link to watch pages
+	// under it. Empty: no links.
+	PublicURL string               `yaml:"public_url"`
 	Sources   map[string]string    `yaml:"sources"`
 	Notifiers map[string]*Notifier `yaml:"notifiers"`
 	Watches   []*Watch             `yaml:"watches"`
@@ -118,18 +124,32 @@ type Config struct {
 // Notifier is one delivery channel; exactly one of Webhook, Log and SMTP is
 // set.
 type Notifier struct {
-	Webhook    string   `yaml:"webhook"`
-	SecretEnv  string   `yaml:"secret_env"`
-	SecretFile string   `yaml:"secret_file"`
-	Timeout    Duration `yaml:"timeout"`
-	MaxAge     Duration `yaml:"max_age"`
+	Webhook    string `yaml:"webhook"`
+	SecretEnv  string `yaml:"secret_env"`
+	SecretFile string `yaml:"secret_file"`
+	// The previous signing key, during a key rotation: requests then
+	// carry a signature under each key.
+	PreviousSecretEnv  string   `yaml:"previous_secret_env"`
+	PreviousSecretFile string   `yaml:"previous_secret_file"`
+	Timeout            Duration `yaml:"timeout"`
+	MaxAge             Duration `yaml:"max_age"`
 
 	Log bool `yaml:"log"`
 
 	SMTP *SMTP `yaml:"smtp"`
 
-	// Secret is the webhook signing key, filled by Resolve.
-	Secret Secret `yaml:"-"`
+	// Secret is the webhook signing key and PreviousSecret the one it
+	// replaces (empty outside a rotation), filled by Resolve.
+	Secret, PreviousSecret Secret `yaml:"-"`
+}
+
+// Secrets returns the webhook's signing secrets, the current one first.
+func (n *Notifier) Secrets() []string {
+	out := []string{n.Secret.Reveal()}
+	if n.PreviousSecret != "" {
+		out = append(out, n.PreviousSecret.Reveal())
+	}
+	return out
 }
 
 // Kind names the notifier's channel: "webhook", "log" or "smtp".
@@ -286,8 +306,8 @@ var (
 
 // typeNames turns the decoder's Go types into words for the reader.
 var typeNames = map[string]string{
-	"config.Config":               "the top level (store, sources, notifiers, watches)",
-	"config.Notifier":             "a notifier (webhook, secret_env, secret_file, timeout, max_age, log, smtp)",
+	"config.Config":               "the top level (store, public_url, sources, notifiers, watches)",
+	"config.Notifier":             "a notifier (webhook, secret_env, secret_file, previous_secret_env, previous_secret_file, timeout, max_age, log, smtp)",
 	"config.SMTP":                 "smtp (addr, from, to, username, password_env, password_file, starttls)",
 	"config.Watch":                "a watch",
 	"config.Limits":               "limits (vif, condition, condition_basis, horizon, clear_after, blind_after, jump, trend_points)",

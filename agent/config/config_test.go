@@ -143,6 +143,11 @@ func TestParseErrors(t *testing.T) {
 		{"webhook without secret", "notifiers: {h: {webhook: \"https://x.example/h\"}}\n" + bare, []string{"line 1", "signing key"}},
 		{"webhook with inline credentials", "notifiers: {h: {webhook: \"https://u:pw@x.example/h\", secret_env: S}}\n" + bare, []string{"credentials"}},
 		{"two kinds", "notifiers: {h: {log: true, webhook: \"https://x.example/h\", secret_env: S}}\n" + bare, []string{"exactly one"}},
+		{"relative public_url", "public_url: plumb.example.org/dash\n" + base, []string{"line 1", "public_url", "absolute"}},
+		{"public_url scheme", "public_url: ftp://plumb.example.org\n" + base, []string{"line 1", "public_url"}},
+		{"public_url credentials", "public_url: https://u:pw@plumb.example.org\n" + base, []string{"line 1", "credentials"}},
+		{"two previous secrets", "notifiers: {h: {webhook: \"https://x.example/h\", secret_env: S, previous_secret_env: P, previous_secret_file: /f}}\n" + bare, []string{"previous_secret_env and previous_secret_file"}},
+		{"previous secret on log", "notifiers: {h: {log: true, previous_secret_env: P}}\n" + bare, []string{"belong to a webhook"}},
 		{"smtp bad from", "notifiers: {m: {smtp: {addr: \"h:25\", from: nope, to: [a@b.example]}}}\n" + bare, []string{"from"}},
 		{"no watches", "sources: {d: \"sqlite:x.db\"}\n", []string{"no watches"}},
 		{"empty file", "", []string{"empty"}},
@@ -163,6 +168,42 @@ func TestParseErrors(t *testing.T) {
 				}
 			}
 		})
+	}
+}
+
+func TestPublicURLAndRotation(t *testing.T) {
+	c, err := Parse([]byte("public_url: https://plumb.example.org/water/\n" + strings.Replace(full,
+		"secret_env: PLUMB_WEBHOOK_SECRET\n", "secret_env: PLUMB_WEBHOOK_SECRET\n    previous_secret_env: OLD_SECRET\n", 1)))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.PublicURL != "https://plumb.example.org/water/" {
+		t.Fatalf("public_url %q", c.PublicURL)
+	}
+	env := map[string]string{"PLUMB_WEBHOOK_SECRET": "whsec_cGx1bWIgbmV3", "OLD_SECRET": "old-key", "PG_PW": "x"}
+	r := Resolver{Env: func(k string) (string, bool) { v, ok := env[k]; return v, ok },
+		ReadFile: func(string) ([]byte, error) { return []byte("pw"), nil }}
+	if err := c.Resolve(r); err != nil {
+		t.Fatal(err)
+	}
+	if got := c.Notifiers["oncall"].Secrets(); len(got) != 2 || got[0] != "whsec_cGx1bWIgbmV3" || got[1] != "old-key" {
+		t.Fatalf("secrets %q", got)
+	}
+	// A whsec_ secret that does not decode is refused, without its value.
+	env["PLUMB_WEBHOOK_SECRET"] = "whsec_%%%notbase64"
+	err = c.Resolve(r)
+	if err == nil || !strings.Contains(err.Error(), "whsec_ must be") || strings.Contains(err.Error(), "notbase64") {
+		t.Fatalf("bad whsec_ secret: %v", err)
+	}
+	// Without a rotation there is one secret.
+	delete(env, "OLD_SECRET")
+	env["PLUMB_WEBHOOK_SECRET"] = "plain"
+	c.Notifiers["oncall"].PreviousSecretEnv = ""
+	if err := c.Resolve(r); err != nil {
+		t.Fatal(err)
+	}
+	if got := c.Notifiers["oncall"].Secrets(); len(got) != 1 {
+		t.Fatalf("secrets %q", got)
 	}
 }
 

@@ -27,8 +27,12 @@ func (c *Config) Describe(w io.Writer, now time.Time, env Env) {
 		n := c.Notifiers[name]
 		switch n.Kind() {
 		case "webhook":
+			signed := secretSource(n.SecretEnv, n.SecretFile, env)
+			if n.PreviousSecretEnv != "" || n.PreviousSecretFile != "" {
+				signed += " and, during the rotation, " + secretSource(n.PreviousSecretEnv, n.PreviousSecretFile, env)
+			}
 			p("  %s: webhook POST %s, signed with %s, timeout %s, retried for %s\n",
-				name, connectors.Redact(n.Webhook), secretSource(n.SecretEnv, n.SecretFile, env), n.Timeout, n.MaxAge)
+				name, connectors.Redact(n.Webhook), signed, n.Timeout, n.MaxAge)
 		case "log":
 			p("  %s: log (JSON lines on stderr)\n", name)
 		case "smtp":

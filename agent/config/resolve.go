@@ -1,6 +1,7 @@
 package config
 
 import (
+	"encoding/base64"
 	"fmt"
 	"os"
 	"regexp"
@@ -60,7 +61,17 @@ func (c *Config) Resolve(r Resolver) error {
 		n := c.Notifiers[name]
 		switch n.Kind() {
 		case "webhook":
-			n.Secret = get(fmt.Sprintf("notifier %q", name), n.SecretEnv, n.SecretFile)
+			what := fmt.Sprintf("notifier %q", name)
+			n.Secret = get(what, n.SecretEnv, n.SecretFile)
+			n.PreviousSecret = get(what+" (previous key)", n.PreviousSecretEnv, n.PreviousSecretFile)
+			for _, s := range []struct {
+				what string
+				v    Secret
+			}{{what, n.Secret}, {what + " (previous key)", n.PreviousSecret}} {
+				if msg := checkSigningSecret(s.v.Reveal()); msg != "" {
+					problems = append(problems, s.what+": "+msg)
+				}
+			}
 		case "smtp":
 			n.SMTP.Password = get(fmt.Sprintf("notifier %q", name), n.SMTP.PasswordEnv, n.SMTP.PasswordFile)
 		}
@@ -125,4 +136,19 @@ func (c *Config) ResolveStore(r Resolver) error {
 	}
 	c.resolvedStore = Secret(u)
 	return nil
+}
+
+// checkSigningSecret says what is wrong with a webhook secret written
+// whsec_BASE64 whose key does not decode ("" when nothing is); the
+// webhook notifier keys HMAC with the decoded bytes of such a secret.
+func checkSigningSecret(s string) string {
+	rest, ok := strings.CutPrefix(s, "whsec_")
+	if !ok {
+		return ""
+	}
+	k, err := base64.StdEncoding.DecodeString(rest)
+	if err != nil || len(k) == 0 {
+		return "a secret that starts with whsec_ must be non-empty base64 after it"
+	}
+	return ""
 }

@@ -79,6 +79,17 @@ func (v *validator) config(c *Config) {
 	} else if !strings.HasPrefix(c.Store, "sqlite:") && !isPostgres(c.Store) {
 		v.addf([]any{"store"}, "store %q: want sqlite:PATH or postgres://user@host/db", connectors.Redact(c.Store))
 	}
+	if c.PublicURL != "" {
+		u, err := url.Parse(c.PublicURL)
+		switch {
+		case err != nil || (u.Scheme != "http" && u.Scheme != "https") || u.Host == "":
+			v.addf([]any{"public_url"}, "public_url %q: want an absolute http:// or https:// URL, e.g. https://plumb.example.org", connectors.Redact(c.PublicURL))
+		case u.User != nil:
+			v.addf([]any{"public_url"}, "public_url carries credentials; it is shown in every notification, so give it without them")
+		case u.RawQuery != "" || u.Fragment != "":
+			v.addf([]any{"public_url"}, "public_url %q: give it without ? or #; watch pages are linked under it", c.PublicURL)
+		}
+	}
 	for _, name := range sortedKeys(c.Sources) {
 		u := c.Sources[name]
 		p := []any{"sources", name}
@@ -136,8 +147,8 @@ func (v *validator) notifier(name string, n *Notifier) {
 		v.addf(p, "notifier %q: give exactly one of webhook, log and smtp", name)
 		return
 	}
-	if n.Webhook == "" && (n.SecretEnv != "" || n.SecretFile != "") {
-		v.addf(p, "notifier %q: secret_env and secret_file belong to a webhook", name)
+	if n.Webhook == "" && (n.SecretEnv != "" || n.SecretFile != "" || n.PreviousSecretEnv != "" || n.PreviousSecretFile != "") {
+		v.addf(p, "notifier %q: secret_env, secret_file and their previous_ forms belong to a webhook", name)
 	}
 	if n.Timeout == 0 {
 		n.Timeout = Duration(DefaultNotifyTimeout)
@@ -158,6 +169,9 @@ func (v *validator) notifier(name string, n *Notifier) {
 			v.addf(p, "notifier %q: a webhook needs a signing key: secret_env: VAR or secret_file: PATH", name)
 		case n.SecretEnv != "" && n.SecretFile != "":
 			v.addf(p, "notifier %q: give one of secret_env and secret_file", name)
+		}
+		if n.PreviousSecretEnv != "" && n.PreviousSecretFile != "" {
+			v.addf(p, "notifier %q: give one of previous_secret_env and previous_secret_file", name)
 		}
 	case "smtp":
 		s := n.SMTP

@@ -1,52 +1,43 @@
 package notify
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"fmt"
-	"log/slog"
+	"io"
+	"sync"
 
 	"plumb/agent"
 )
 
-// Log writes each notification as one structured log line.
+// Log writes each notification as one JSON object on a line of its own:
+// the webhook's body, compacted. The alert's severity is its own field
+// ("severity"); there is no log level, so a critical alert is not mistaken
+// for an error of plumb itself.
 type Log struct {
-	Logger *slog.Logger
+	W  io.Writer
+	mu sync.Mutex
 }
 
 var _ agent.Notifier = (*Log)(nil)
 
-// Notify logs the delivery; it fails only on a body that is not a
-// notification.
+// Notify writes the delivery's line; it fails only on a body that is not
+// a notification or a writer that refuses it.
 func (l *Log) Notify(ctx context.Context, d agent.Delivery) (bool, error) {
 	var n agent.Notification
 	if err := json.Unmarshal(d.Body, &n); err != nil {
 		return false, fmt.Errorf("log notifier: %w", err)
 	}
-	level := slog.LevelWarn
-	if n.Severity == agent.Critical {
-		level = slog.LevelError
+	var line bytes.Buffer
+	if err := json.Compact(&line, d.Body); err != nil {
+		return false, fmt.Errorf("log notifier: %w", err)
 	}
-	if n.Event == agent.EventResolved {
-		level = slog.LevelInfo
+	line.WriteByte('\n')
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	if _, err := l.W.Write(line.Bytes()); err != nil {
+		return true, fmt.Errorf("log notifier: %w", err)
 	}
-	attrs := []slog.Attr{
-		slog.String("id", n.ID), slog.String("event", n.Event), slog.String("alert_id", n.AlertID),
-		slog.String("watch", n.Watch), slog.String("rule", string(n.Rule)), slog.String("severity", string(n.Severity)),
-		slog.Time("as_of", n.AsOf),
-	}
-	if n.Segment != "" {
-		attrs = append(attrs, slog.String("segment", n.Segment))
-	}
-	if len(n.Columns) > 0 {
-		attrs = append(attrs, slog.Any("columns", n.Columns))
-	}
-	if n.Equation != "" {
-		attrs = append(attrs, slog.String("equation", n.Equation))
-	}
-	if n.Remedy != "" {
-		attrs = append(attrs, slog.String("remedy", n.Remedy))
-	}
-	l.Logger.LogAttrs(ctx, level, n.Message, attrs...)
 	return false, nil
 }

@@ -6,13 +6,16 @@ import (
 	"context"
 	"crypto/hmac"
 	"crypto/sha256"
+	"encoding/base64"
 	"encoding/hex"
 	"encoding/json"
+	"errors"
+	"fmt"
 	"io"
-	"log/slog"
 	"net"
 	"net/http"
 	"net/http/httptest"
+	"strconv"
 	"strings"
 	"sync"
 	"testing"
@@ -41,34 +44,82 @@ func TestSign(t *testing.T) {
 	if rfc := rawHMAC([]byte("Jefe"), []byte("what do ya want for nothing?")); rfc != "5bdcc146bf60754e6a042426089575c75a003f089d2739839dec58b964ec3843" {
 		t.Fatalf("HMAC-SHA256 of the RFC 4231 vector: %s", rfc)
 	}
-	// The signature is that HMAC over TIMESTAMP + "." + BODY.
-	if Sign([]byte("k"), 1767225600, []byte(`{"a":1}`)) != "sha256="+rawHMAC([]byte("k"), []byte(`1767225600.{"a":1}`)) {
-		t.Fatal(`Sign is not HMAC(secret, TIMESTAMP + "." + BODY)`)
+	// The signing convention's published example (recalled from memory;
+	// Python's hmac module from Debian's python3 gives the same value).
+	const (
+		secret = "whsec_MfKQ9r8GKYqrTwjUPD8ILPZIo2LaLaSw"
+		id     = "msg_p5jXN8AQM9LWM0D4loKWxJek"
+		want   = "v1,g0hM9SsE+OTPJTGt/tmIKtSyZlE3uFJELVlNIOLJ1OE="
+	)
+	body := []byte(`{"test": 2432232314}`)
+	got, err := Sign([]string{secret}, id, 1614265330, body)
+	if err != nil || got != want {
+		t.Fatalf("Sign = %q, %v; want %q", got, err, want)
 	}
-	got := Sign([]byte("Jefe"), 0, nil)
-	if !Verify([]byte("Jefe"), "0", got, nil) || Verify([]byte("jefe"), "0", got, nil) ||
-		Verify([]byte("Jefe"), "1", got, nil) || Verify([]byte("Jefe"), "x", got, nil) {
-		t.Fatal("Verify does not check key and timestamp")
+	if !Verify(secret, id, "1614265330", got, body) || Verify(secret, id, "1614265331", got, body) ||
+		Verify(secret, "msg_other", "1614265330", got, body) || Verify(secret, id, "1614265330", got, []byte(`{"test": 2432232315}`)) {
+		t.Fatal("Verify does not check id, timestamp and body")
+	}
+	// A secret without the prefix is keyed with its raw bytes: the same
+	// bytes as the decoded form give the same signature.
+	raw, _ := base64.StdEncoding.DecodeString(strings.TrimPrefix(secret, SecretPrefix))
+	if got, _ := Sign([]string{string(raw)}, id, 1614265330, body); got != want {
+		t.Fatalf("raw secret: %q", got)
+	}
+	if _, err := Sign([]string{"whsec_not base64!"}, id, 0, body); err == nil {
+		t.Fatal("a whsec_ secret that is not base64 was accepted")
+	}
+	// A rotation signs under each secret, current first.
+	two, _ := Sign([]string{"new-key", secret}, id, 1614265330, body)
+	if parts := strings.Split(two, " "); len(parts) != 2 || parts[1] != want {
+		t.Fatalf("two secrets: %q", two)
 	}
 }
 
-func TestMIMEHeader(t *testing.T) {
-	// RFC 2047 Q encoding: UTF-8 bytes of ü are C3 BC.
-	if got := mimeHeader("segment Zürich_1"); got != "=?utf-8?q?segment_Z=C3=BCrich=5F1?=" {
-		t.Fatalf("encoded %q", got)
+// receiverCheck verifies a delivery as a receiver following the signing
+// convention would, written without the package's helpers: key from the
+// secret (base64 after whsec_, else raw bytes), HMAC-SHA256 of
+// ID.TIMESTAMP.BODY, base64, compared with every "v1," entry of the
+// signature header; the timestamp within five minutes of now.
+func receiverCheck(secret string, h http.Header, body []byte, now time.Time) error {
+	key := []byte(secret)
+	if rest, ok := strings.CutPrefix(secret, "whsec_"); ok {
+		var err error
+		if key, err = base64.StdEncoding.DecodeString(rest); err != nil {
+			return err
+		}
 	}
-	if got := mimeHeader("plain"); got != "plain" {
-		t.Fatalf("ASCII changed: %q", got)
+	id, ts := h.Get("webhook-id"), h.Get("webhook-timestamp")
+	sec, err := strconv.ParseInt(ts, 10, 64)
+	if err != nil || id == "" {
+		return fmt.Errorf("id %q timestamp %q", id, ts)
 	}
+	if d := now.Sub(time.Unix(sec, 0)); d > 5*time.Minute || d < -5*time.Minute {
+		return fmt.Errorf("timestamp %s is %s from now", ts, d)
+	}
+	m := hmac.New(sha256.New, key)
+	m.Write([]byte(id + "." + ts + "."))
+	m.Write(body)
+	want := m.Sum(nil)
+	for _, sig := range strings.Split(h.Get("webhook-signature"), " ") {
+		v, b64, _ := strings.Cut(sig, ",")
+		got, err := base64.StdEncoding.DecodeString(b64)
+		if v == "v1" && err == nil && hmac.Equal(got, want) {
+			return nil
+		}
+	}
+	return errors.New("no valid signature")
 }
 
 func TestWebhook(t *testing.T) {
-	secret := []byte("s3cret")
+	now := time.Unix(1785000000, 0)
 	var (
-		mu     sync.Mutex
-		status = http.StatusOK
-		got    []http.Header
-		bodies [][]byte
+		mu      sync.Mutex
+		status  = http.StatusOK
+		accept  = []string{"s3cret"} // the receiver's keys
+		got     []http.Header
+		bodies  [][]byte
+		refused []error
 	)
 	srv := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
 		b, _ := io.ReadAll(r.Body)
@@ -76,22 +127,29 @@ func TestWebhook(t *testing.T) {
 		defer mu.Unlock()
 		got = append(got, r.Header.Clone())
 		bodies = append(bodies, b)
-		if r.Method != http.MethodPost || !Verify(secret, r.Header.Get(HeaderTimestamp), r.Header.Get(HeaderSignature), b) {
+		err := errors.New("no key")
+		for _, k := range accept {
+			if err = receiverCheck(k, r.Header, b, now); err == nil {
+				break
+			}
+		}
+		if r.Method != http.MethodPost || err != nil {
+			refused = append(refused, err)
 			w.WriteHeader(http.StatusUnauthorized)
 			return
 		}
 		w.WriteHeader(status)
 	}))
 	defer srv.Close()
-	now := time.Unix(1785000000, 0)
-	wh := &Webhook{URL: srv.URL, Secret: secret, Now: func() time.Time { return now }}
+	wh := &Webhook{URL: srv.URL, Secrets: []string{"s3cret"}, Now: func() time.Time { return now }}
 	d := sampleDelivery(t)
 	ctx := context.Background()
 	if retry, err := wh.Notify(ctx, d); err != nil || retry {
-		t.Fatalf("delivery: %v, retry %v", err, retry)
+		t.Fatalf("delivery: %v, retry %v (receiver: %v)", err, retry, refused)
 	}
 	h := got[0]
-	if h.Get(HeaderTimestamp) != "1785000000" || h.Get(HeaderEvent) != d.EventID || h.Get("Content-Type") != "application/json" {
+	if h.Get("webhook-timestamp") != "1785000000" || h.Get("webhook-id") != d.EventID || h.Get("Content-Type") != "application/json" ||
+		h.Get("X-Plumb-Signature") != "" || h.Get("X-Plumb-Timestamp") != "" {
 		t.Errorf("headers %v", h)
 	}
 	if !bytes.Equal(bodies[0], d.Body) {
@@ -109,10 +167,52 @@ func TestWebhook(t *testing.T) {
 			t.Errorf("status %d: err %v retry %v; want retry %v", c.status, err, retry, c.retry)
 		}
 	}
+	mu.Lock()
+	status = http.StatusOK
+	mu.Unlock()
 	// A wrong secret is refused by the receiver and not retried.
-	bad := &Webhook{URL: srv.URL, Secret: []byte("wrong")}
+	bad := &Webhook{URL: srv.URL, Secrets: []string{"wrong"}, Now: wh.Now}
 	if retry, err := bad.Notify(ctx, d); err == nil || retry {
 		t.Fatalf("wrong secret: %v retry %v", err, retry)
+	}
+	// A whsec_ secret: the receiver keys with the decoded bytes.
+	const wsec = "whsec_cGx1bWIgZGlzdHJpY3QgZGFpbHkga2V5" // base64 of "plumb district daily key"
+	mu.Lock()
+	accept = []string{wsec}
+	mu.Unlock()
+	ws := &Webhook{URL: srv.URL, Secrets: []string{wsec}, Now: wh.Now}
+	if _, err := ws.Notify(ctx, d); err != nil {
+		t.Fatalf("whsec_ secret: %v", err)
+	}
+	// The raw string of a whsec_ secret is not its key.
+	mu.Lock()
+	accept = []string{"raw:" + wsec}
+	mu.Unlock()
+	if _, err := ws.Notify(ctx, d); err == nil {
+		t.Fatal("a receiver keyed with the undecoded whsec_ string accepted the signature")
+	}
+	// Rotation: plumb signs with the new and the old key; a receiver that
+	// knows only the old one, and one that knows only the new one, both
+	// accept; the request carries two signatures.
+	rot := &Webhook{URL: srv.URL, Secrets: []string{"new-key", wsec}, Now: wh.Now}
+	for _, keys := range [][]string{{wsec}, {"new-key"}} {
+		mu.Lock()
+		accept = keys
+		mu.Unlock()
+		if _, err := rot.Notify(ctx, d); err != nil {
+			t.Fatalf("rotation, receiver with %v: %v", keys, err)
+		}
+		mu.Lock()
+		sig := got[len(got)-1].Get("webhook-signature")
+		mu.Unlock()
+		if n := len(strings.Fields(sig)); n != 2 {
+			t.Fatalf("rotation: %d signatures in %q", n, sig)
+		}
+	}
+	// A replayed request from long ago is refused by the receiver's clock.
+	old := &Webhook{URL: srv.URL, Secrets: []string{"new-key"}, Now: func() time.Time { return now.Add(-time.Hour) }}
+	if _, err := old.Notify(ctx, d); err == nil {
+		t.Fatal("an hour-old timestamp was accepted")
 	}
 	// A receiver that is down is retried.
 	srv.Close()
@@ -123,16 +223,49 @@ func TestWebhook(t *testing.T) {
 
 func TestLog(t *testing.T) {
 	var buf bytes.Buffer
-	l := &Log{Logger: slog.New(slog.NewJSONHandler(&buf, nil))}
-	if _, err := l.Notify(context.Background(), sampleDelivery(t)); err != nil {
+	l := &Log{W: &buf}
+	d := sampleDelivery(t)
+	if _, err := l.Notify(context.Background(), d); err != nil {
 		t.Fatal(err)
 	}
-	var line map[string]any
-	if err := json.Unmarshal(buf.Bytes(), &line); err != nil {
-		t.Fatalf("not one JSON line: %q", buf.String())
+	// A warning after the critical one: each is its own line.
+	var n agent.Notification
+	json.Unmarshal(d.Body, &n)
+	n.Severity, n.ID = agent.Warning, "a2:opened:oncall"
+	d.Body, _ = json.Marshal(n)
+	if _, err := l.Notify(context.Background(), d); err != nil {
+		t.Fatal(err)
 	}
-	if line["level"] != "ERROR" || line["rule"] != "exact" || !strings.Contains(line["msg"].(string), "total_connections") || line["equation"] == nil {
-		t.Fatalf("log line %v", line)
+	lines := strings.Split(strings.TrimSuffix(buf.String(), "\n"), "\n")
+	if len(lines) != 2 {
+		t.Fatalf("want 2 lines, got %d: %q", len(lines), buf.String())
+	}
+	for i, want := range []string{"critical", "warning"} {
+		var line map[string]any
+		if err := json.Unmarshal([]byte(lines[i]), &line); err != nil {
+			t.Fatalf("line %d is not one JSON object: %q", i+1, lines[i])
+		}
+		if line["severity"] != want || line["rule"] != "exact" || line["equation"] == nil ||
+			!strings.Contains(line["message"].(string), "total_connections") {
+			t.Fatalf("line %d: %v", i+1, line)
+		}
+		// The alert's severity is not dressed up as a log level.
+		if _, ok := line["level"]; ok {
+			t.Fatalf("line %d has a log level: %v", i+1, line)
+		}
+	}
+	if _, err := l.Notify(context.Background(), agent.Delivery{Body: []byte("not json")}); err == nil {
+		t.Fatal("a body that is not a notification was logged")
+	}
+}
+
+func TestMIMEHeader(t *testing.T) {
+	// RFC 2047 Q encoding: UTF-8 bytes of ü are C3 BC.
+	if got := mimeHeader("segment Zürich_1"); got != "=?utf-8?q?segment_Z=C3=BCrich=5F1?=" {
+		t.Fatalf("encoded %q", got)
+	}
+	if got := mimeHeader("plain"); got != "plain" {
+		t.Fatalf("ASCII changed: %q", got)
 	}
 }
 

@@ -43,9 +43,9 @@ func buildNotifiers(c *config.Config, log *slog.Logger) map[string]agent.Notifie
 		nc := agent.NotifierConfig{Timeout: n.Timeout.D(), MaxAge: n.MaxAge.D()}
 		switch n.Kind() {
 		case "webhook":
-			nc.Notifier = &notify.Webhook{URL: n.Webhook, Secret: []byte(n.Secret.Reveal())}
+			nc.Notifier = &notify.Webhook{URL: n.Webhook, Secrets: n.Secrets()}
 		case "log":
-			nc.Notifier = &notify.Log{Logger: log.With("notifier", name)}
+			nc.Notifier = &notify.Log{W: os.Stderr}
 		case "smtp":
 			s := n.SMTP
 			nc.Notifier = &notify.SMTP{Addr: s.Addr, From: s.From, To: s.To, Username: s.Username,
