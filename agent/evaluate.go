@@ -211,7 +211,7 @@ func (e *evaluation) replay(ctx context.Context, col *collected, now time.Time) 
 func (e *evaluation) finish(res *RunResult, now time.Time) {
 	var outbox []Delivery
 	enqueue := func(a *Alert, event string) {
-		body := e.notification(a, event)
+		body := e.notification(a, event, now)
 		for _, n := range e.w.Notify {
 			eid := a.ID + ":" + event
 			if event == EventEscalated {
@@ -280,9 +280,11 @@ func (e *evaluation) finish(res *RunResult, now time.Time) {
 			if a.Open() {
 				switch {
 				case !wasSent:
-					enqueue(a, EventOpened)
-					a.NotifyState = NotifySent
-				case sevRank(a.Severity) > sevRank(b.Severity):
+					if !e.quiet(a, now) { // else held until the acknowledgement lapses
+						enqueue(a, EventOpened)
+						a.NotifyState = NotifySent
+					}
+				case sevRank(a.Severity) > sevRank(b.Severity) && !e.quiet(a, now):
 					enqueue(a, EventEscalated)
 				}
 				continue
@@ -293,6 +295,13 @@ func (e *evaluation) finish(res *RunResult, now time.Time) {
 				a.NotifyState = NotifySuppressed
 			}
 		}
+	}
+	if e.opt.Kind != RunBackfill || e.opt.Notify {
+		sent := map[string]bool{}
+		for _, d := range outbox {
+			sent[d.AlertID] = true
+		}
+		outbox = append(outbox, e.snoozesEnded(res, now, sent)...)
 	}
 	for _, id := range ids {
 		res.Alerts = append(res.Alerts, *e.alerts[id])
@@ -338,41 +347,4 @@ func (e *evaluation) openAlerts() []Alert {
 		return cmp.Or(a.AsOf.Compare(b.AsOf), cmp.Compare(a.Segment, b.Segment), cmp.Compare(a.Rule, b.Rule), cmp.Compare(a.ID, b.ID))
 	})
 	return out
-}
-
-// Notification is the content every channel delivers: the webhook's JSON
-// body, the log line's fields, the email's text.
-type Notification struct {
-	ID         string             `json:"id"` // the event's id: receivers deduplicate on it
-	Event      string             `json:"event"`
-	AlertID    string             `json:"alert_id"`
-	Watch      string             `json:"watch"`
-	Source     string             `json:"source"`
-	Table      string             `json:"table,omitempty"`
-	Segment    string             `json:"segment,omitempty"`
-	Rule       Rule               `json:"rule"`
-	Subject    string             `json:"subject,omitempty"`
-	Severity   Severity           `json:"severity"`
-	AsOf       time.Time          `json:"as_of"`
-	OpenedAt   time.Time          `json:"opened_at"`
-	ResolvedAt *time.Time         `json:"resolved_at"`
-	Message    string             `json:"message"`
-	Values     map[string]float64 `json:"values,omitempty"`
-	Columns    []string           `json:"columns,omitempty"`
-	Equation   string             `json:"equation,omitempty"`
-	Remedy     string             `json:"remedy,omitempty"`
-	Forecast   *Forecast          `json:"forecast,omitempty"`
-}
-
-func (e *evaluation) notification(a *Alert, event string) Notification {
-	n := Notification{Event: event, AlertID: a.ID, Watch: a.Watch, Source: e.w.Source, Table: e.w.Table,
-		Segment: a.Segment, Rule: a.Rule, Subject: a.Subject, Severity: a.Severity,
-		AsOf: a.AsOf.UTC(), OpenedAt: a.OpenedAt.UTC(), Message: a.Message,
-		Values: a.Detail.Values, Columns: a.Detail.Columns, Equation: a.Detail.Equation,
-		Remedy: a.Detail.Remedy, Forecast: a.Detail.Forecast}
-	if !a.Open() {
-		t := a.ResolvedAt.UTC()
-		n.ResolvedAt = &t
-	}
-	return n
 }

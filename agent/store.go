@@ -150,6 +150,23 @@ type Alert struct {
 	Drivers []diagnostics.Driver `json:"drivers,omitempty"`
 	// Window is the data window of the latest point the alert was judged on.
 	Window *AlertWindow `json:"window,omitempty"`
+	// Ack is the owner's acknowledgement, nil when there is none. Runs
+	// never change it; Store.Acknowledge does.
+	Ack *Ack `json:"acknowledged,omitempty"`
+}
+
+// Ack is an owner's acknowledgement of an open alert. Until it lapses the
+// alert is not notified again, except when it escalates past Severity or
+// resolves. Its times are wall-clock times.
+type Ack struct {
+	By    string    `json:"by"`
+	At    time.Time `json:"at"`
+	Until time.Time `json:"until,omitzero"` // end of the snooze; zero: until it resolves or escalates
+	Note  string    `json:"note,omitempty"`
+	// Severity is the alert's severity when it was acknowledged.
+	Severity Severity `json:"severity"`
+	// EndedAt is when a run noticed that the snooze had ended.
+	EndedAt time.Time `json:"snooze_ended_at,omitzero"`
 }
 
 // AlertWindow is the data window an alert was judged on.
@@ -217,6 +234,9 @@ const (
 	EventOpened    = "opened"
 	EventEscalated = "escalated"
 	EventResolved  = "resolved"
+	// EventSnoozeEnded: an acknowledged alert's snooze ended and it is
+	// still open.
+	EventSnoozeEnded = "snooze_ended"
 )
 
 // WatchState is the rule state of one watch and segment.
@@ -252,6 +272,18 @@ type RunResult struct {
 
 	States []WatchState
 	Outbox []Delivery // inserted; an existing EventID is left as it is
+
+	// SnoozesEnded mark acknowledgements whose snooze ended (only when
+	// the alert still carries that snooze: a newer acknowledgement stays).
+	SnoozesEnded []SnoozeEnd
+}
+
+// SnoozeEnd records that the snooze of an alert's acknowledgement, ending
+// at Until, was seen to end at At.
+type SnoozeEnd struct {
+	AlertID string
+	Until   time.Time
+	At      time.Time
 }
 
 // AlertQuery selects alerts.
@@ -277,6 +309,12 @@ type LockInfo struct {
 	Host       string
 	AcquiredAt time.Time
 }
+
+// Errors of Store.Acknowledge.
+var (
+	ErrNoAlert       = errors.New("no such alert")
+	ErrAlertResolved = errors.New("the alert is resolved")
+)
 
 // ErrLocked is wrapped by Store.Lock when another process holds the store.
 var ErrLocked = errors.New("the state store is in use by another plumb")
@@ -322,6 +360,13 @@ type Store interface {
 	States(ctx context.Context, watch string) ([]WatchState, error)
 	// Alerts returns alerts, ordered by as_of, then opened_at, then id.
 	Alerts(ctx context.Context, q AlertQuery) ([]Alert, error)
+
+	// Acknowledge records an owner's acknowledgement of the open alert
+	// id, replacing an earlier one, and returns the alert. ack.Severity
+	// is set to the alert's severity at that moment. An unknown id wraps
+	// ErrNoAlert, a resolved alert ErrAlertResolved. It does not need the
+	// store's lock: a running agent keeps what it records.
+	Acknowledge(ctx context.Context, id string, ack Ack) (Alert, error)
 
 	// CommitRun writes a run's results in one transaction and returns
 	// the run's id; the points, buckets and alerts of r get it too.

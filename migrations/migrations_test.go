@@ -145,3 +145,70 @@ func TestAlertCausesKeepsOutbox(t *testing.T) {
 		t.Fatalf("outbox after deleting its alert: %d, %v", n, err)
 	}
 }
+
+// testAcknowledgements migrates to version 1, writes an alert and a
+// delivery, migrates to 3 (acknowledgement columns, the outbox rebuilt on
+// SQLite to learn the snooze_ended event) and back: the delivery survives
+// both ways.
+func testAcknowledgements(t *testing.T, ctx context.Context, d Dialect, db *sql.DB) {
+	t.Helper()
+	p, err := NewProvider(d, db, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := p.UpTo(ctx, 1); err != nil {
+		t.Fatal(err)
+	}
+	q := func(s string) string {
+		if d != Postgres {
+			return s
+		}
+		for i := 1; strings.Contains(s, "?"); i++ {
+			s = strings.Replace(s, "?", "$"+string(rune('0'+i)), 1)
+		}
+		return s
+	}
+	exec := func(s string, args ...any) error {
+		_, err := db.ExecContext(ctx, q(s), args...)
+		return err
+	}
+	if err := exec(`INSERT INTO plumb_alerts (id, watch, segment, rule, subject, severity, as_of, opened_at, updated_as_of,
+		updated_at, message, detail, notify_state) VALUES ('a1', 'district_daily', '', 'exact', 's', 'critical', 1, 2, 1, 2, 'm', '{}', 'sent')`); err != nil {
+		t.Fatal(err)
+	}
+	if err := exec(`INSERT INTO plumb_outbox (event_id, alert_id, notifier, event, body, created_at, next_attempt_at)
+		VALUES ('a1:opened:oncall', 'a1', 'oncall', 'opened', '{}', 5, 5)`); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := p.UpTo(ctx, 3); err != nil {
+		t.Fatal(err)
+	}
+	var n int
+	if err := db.QueryRowContext(ctx, `SELECT count(*) FROM plumb_outbox WHERE event_id = 'a1:opened:oncall' AND delivered_at IS NULL`).Scan(&n); err != nil || n != 1 {
+		t.Fatalf("the delivery did not survive the migration: %d, %v", n, err)
+	}
+	if err := exec(`UPDATE plumb_alerts SET ack_by = ?, ack_at = ?, ack_severity = 'critical' WHERE id = 'a1'`, "hydro-analyst", 7); err != nil {
+		t.Fatal(err)
+	}
+	if err := exec(`INSERT INTO plumb_outbox (event_id, alert_id, notifier, event, body, created_at, next_attempt_at)
+		VALUES ('a1:snooze_ended:9:oncall', 'a1', 'oncall', 'snooze_ended', '{}', 9, 9)`); err != nil {
+		t.Fatalf("snooze_ended refused after the migration: %v", err)
+	}
+	if err := exec(`INSERT INTO plumb_outbox (event_id, alert_id, notifier, event, body, created_at, next_attempt_at)
+		VALUES ('a1:ignored:oncall', 'a1', 'oncall', 'ignored', '{}', 9, 9)`); err == nil {
+		t.Fatal("an unknown event was accepted")
+	}
+	if _, err := p.DownTo(ctx, 1); err != nil {
+		t.Fatal(err)
+	}
+	if err := db.QueryRowContext(ctx, `SELECT count(*) FROM plumb_outbox`).Scan(&n); err != nil || n != 1 {
+		t.Fatalf("after down: %d deliveries, %v; want the opening only", n, err)
+	}
+	if err := exec(`UPDATE plumb_alerts SET ack_by = 'x' WHERE id = 'a1'`); err == nil {
+		t.Fatal("ack columns still there after down")
+	}
+}
+
+func TestAcknowledgementsSQLite(t *testing.T) {
+	testAcknowledgements(t, context.Background(), SQLite, openSQLite(t))
+}

@@ -22,3 +22,13 @@ func TestUpPostgres(t *testing.T) {
 	defer db.Close()
 	testUp(t, context.Background(), Postgres, db)
 }
+
+func TestAcknowledgementsPostgres(t *testing.T) {
+	url := pgtest.Start(t)
+	db, err := sql.Open("pgx", url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	testAcknowledgements(t, context.Background(), Postgres, db)
+}

@@ -26,11 +26,16 @@ import (
 
 func sampleDelivery(t *testing.T) agent.Delivery {
 	t.Helper()
+	onset := time.Date(2026, 8, 10, 0, 0, 0, 0, time.UTC)
 	n := agent.Notification{ID: "a1:opened:oncall", Event: agent.EventOpened, AlertID: "a1", Watch: "district_daily",
 		Source: "districts", Table: "district_daily", Rule: agent.RuleExact, Severity: agent.Critical,
 		AsOf: time.Date(2026, 8, 10, 0, 0, 0, 0, time.UTC), Message: "exact linear dependency: total_connections = 1·residential_connections + 1·commercial_connections + 0",
 		Columns:  []string{"total_connections", "residential_connections", "commercial_connections"},
-		Equation: "total_connections = 1·residential_connections + 1·commercial_connections + 0", Remedy: "drop one of them"}
+		Equation: "total_connections = 1·residential_connections + 1·commercial_connections + 0", Remedy: "drop one of them",
+		Summary: "district_daily: total_connections became the exact sum of two columns since 2026-08-10",
+		Onset:   &onset, Window: &agent.AlertWindow{Start: onset.AddDate(0, 0, -6), End: onset.AddDate(0, 0, 1), Rows: 196},
+		Caution: agent.CautionGovernance, URL: "https://plumb.example.org/watches/district_daily",
+		RecordedAt: time.Date(2026, 8, 11, 6, 15, 0, 0, time.UTC)}
 	b, err := json.Marshal(n)
 	if err != nil {
 		t.Fatal(err)
@@ -341,9 +346,12 @@ func TestSMTP(t *testing.T) {
 		t.Fatalf("send: %v (retry %v)", err, retry)
 	}
 	msg := <-msgs
-	for _, want := range []string{"Subject: [plumb] critical opened: district_daily - exact", "To: network-analytics@example.org",
-		"equation:  total_connections = 1·residential_connections + 1·commercial_connections + 0",
-		"What to do: drop one of them", "event id: a1:opened:oncall"} {
+	for _, want := range []string{"Subject: district_daily: total_connections became the exact sum of two columns since 2026-08-10",
+		"To: network-analytics@example.org",
+		"equation:    total_connections = 1·residential_connections + 1·commercial_connections + 0",
+		"onset:       2026-08-10T00:00:00Z", "window:      2026-08-04T00:00:00Z to 2026-08-11T00:00:00Z, 196 rows used",
+		"segment:     whole table", "What to do: drop one of them", "Watch page: https://plumb.example.org/watches/district_daily",
+		"Caution: " + agent.CautionGovernance, "recorded at 2026-08-11T06:15:00Z (wall clock) · event id a1:opened:oncall"} {
 		if !strings.Contains(msg, want) {
 			t.Errorf("message lacks %q:\n%s", want, msg)
 		}

@@ -125,15 +125,15 @@ func classify(addr string, err error) (bool, error) {
 	return true, fmt.Errorf("smtp %s: %w", addr, err)
 }
 
-// Message renders a notification as an RFC 5322 plain-text message.
+// Message renders a notification as an RFC 5322 plain-text message. Its
+// subject says what happened in words (the notification's summary).
 func Message(from string, to []string, n agent.Notification, now time.Time) []byte {
 	var b strings.Builder
 	hdr := func(k, v string) { b.WriteString(k + ": " + v + "\r\n") }
-	subject := fmt.Sprintf("[plumb] %s %s: %s", n.Severity, n.Event, n.Watch)
-	if n.Segment != "" {
-		subject += " (" + n.Segment + ")"
+	subject := n.Summary
+	if subject == "" {
+		subject = fmt.Sprintf("%s: %s %s alert %s", n.Watch, n.Severity, n.Rule, n.Event)
 	}
-	subject += " - " + string(n.Rule)
 	hdr("From", from)
 	hdr("To", strings.Join(to, ", "))
 	hdr("Subject", mimeHeader(subject))
@@ -144,17 +144,26 @@ func Message(from string, to []string, n agent.Notification, now time.Time) []by
 	hdr("Content-Transfer-Encoding", "8bit")
 	b.WriteString("\r\n")
 	line := func(format string, args ...any) { b.WriteString(fmt.Sprintf(format, args...) + "\r\n") }
+	day := func(t time.Time) string { return t.UTC().Format(time.RFC3339) }
 	line("%s", n.Message)
 	line("")
-	line("watch:     %s (source %s%s)", n.Watch, n.Source, tableSuffix(n.Table))
-	if n.Segment != "" {
-		line("segment:   %s", n.Segment)
+	line("watch:       %s (source %s%s)", n.Watch, n.Source, tableSuffix(n.Table))
+	seg := n.Segment
+	if seg == "" {
+		seg = "whole table"
 	}
-	line("rule:      %s, %s", n.Rule, n.Severity)
-	line("event:     %s", n.Event)
-	line("data time: %s", n.AsOf.UTC().Format(time.RFC3339))
-	if n.ResolvedAt != nil {
-		line("resolved:  %s", n.ResolvedAt.UTC().Format(time.RFC3339))
+	line("segment:     %s", seg)
+	line("rule:        %s, %s", n.Rule, n.Severity)
+	line("event:       %s", eventWords(n.Event))
+	if n.Onset != nil {
+		line("onset:       %s (data time: the cause holds from here)", day(*n.Onset))
+	}
+	line("as of:       %s (data time: the window that opened the alert)", day(n.AsOf))
+	if n.ResolvedAsOf != nil {
+		line("resolved as of: %s (data time)", day(*n.ResolvedAsOf))
+	}
+	if w := n.Window; w != nil {
+		line("window:      %s to %s, %d rows used", day(w.Start), day(w.End), w.Rows)
 	}
 	if len(n.Values) > 0 {
 		keys := make([]string, 0, len(n.Values))
@@ -163,26 +172,65 @@ func Message(from string, to []string, n agent.Notification, now time.Time) []by
 		}
 		sort.Strings(keys)
 		for _, k := range keys {
-			line("%-10s %.4g", k+":", n.Values[k])
+			line("%-12s %.4g", k+":", n.Values[k])
 		}
 	}
 	if len(n.Columns) > 0 {
-		line("columns:   %s", strings.Join(n.Columns, ", "))
+		line("columns:     %s", strings.Join(n.Columns, ", "))
 	}
 	if n.Equation != "" {
-		line("equation:  %s", n.Equation)
+		line("equation:    %s", n.Equation)
+	}
+	if len(n.Drivers) > 0 {
+		parts := make([]string, len(n.Drivers))
+		for i, d := range n.Drivers {
+			parts[i] = fmt.Sprintf("%s %.0f%%", d.Column, 100*d.Share)
+		}
+		line("explained by: %s (shares of R²)", strings.Join(parts, ", "))
 	}
 	if n.Forecast != nil {
-		line("forecast:  %+.1f%%/day, reaches %.4g around %s", 100*n.Forecast.RatePerDay, n.Forecast.Limit, n.Forecast.Crossing.UTC().Format("2006-01-02"))
+		line("forecast:    %+.1f%%/day, reaches %.4g around %s", 100*n.Forecast.RatePerDay, n.Forecast.Limit, n.Forecast.Crossing.UTC().Format("2006-01-02"))
+	}
+	if a := n.Acknowledged; a != nil {
+		ack := fmt.Sprintf("acknowledged: by %s at %s", a.By, a.At.UTC().Format("2006-01-02 15:04 UTC"))
+		if !a.Until.IsZero() {
+			ack += ", snoozed until " + a.Until.UTC().Format("2006-01-02 15:04 UTC")
+		}
+		if a.Note != "" {
+			ack += ": " + a.Note
+		}
+		line("%s", ack)
 	}
 	if n.Remedy != "" {
 		line("")
 		line("What to do: %s", n.Remedy)
 	}
+	if n.URL != "" {
+		line("")
+		line("Watch page: %s", n.URL)
+	}
+	if n.Caution != "" {
+		line("")
+		line("Caution: %s", n.Caution)
+	}
 	line("")
-	line("event id: %s", n.ID)
+	line("recorded at %s (wall clock) · event id %s", n.RecordedAt.UTC().Format(time.RFC3339), n.ID)
 	// Dot-stuffing is done by net/smtp's data writer.
 	return []byte(b.String())
+}
+
+func eventWords(e string) string {
+	switch e {
+	case agent.EventOpened:
+		return "opened"
+	case agent.EventEscalated:
+		return "escalated"
+	case agent.EventResolved:
+		return "resolved"
+	case agent.EventSnoozeEnded:
+		return "snooze ended, still open"
+	}
+	return e
 }
 
 func tableSuffix(t string) string {

@@ -315,6 +315,10 @@ func (s *Store) States(ctx context.Context, watch string) ([]agent.WatchState, e
 const alertCols = `id, watch, segment, rule, subject, severity, as_of, opened_at, updated_as_of, updated_at,
 	resolved_as_of, resolved_at, message, detail, notify_state, onset, columns, drivers, data_window`
 
+// ackCols are the acknowledgement's columns, read after alertCols. Runs
+// never write them (Acknowledge and the end of a snooze do).
+const ackCols = `ack_by, ack_at, ack_until, ack_note, ack_severity, ack_ended_at`
+
 func scanAlert(rows *sql.Rows) (agent.Alert, error) {
 	var (
 		a                          agent.Alert
@@ -322,9 +326,12 @@ func scanAlert(rows *sql.Rows) (agent.Alert, error) {
 		asOf, opened, updAsOf, upd int64
 		resAsOf, res, onset        sql.NullInt64
 		drivers, window            sql.NullString
+		ackBy, ackNote, ackSev     sql.NullString
+		ackAt, ackUntil, ackEnded  sql.NullInt64
 	)
 	err := rows.Scan(&a.ID, &a.Watch, &a.Segment, &rule, &a.Subject, &sev, &asOf, &opened, &updAsOf, &upd,
-		&resAsOf, &res, &a.Message, &detail, &a.NotifyState, &onset, &cols, &drivers, &window)
+		&resAsOf, &res, &a.Message, &detail, &a.NotifyState, &onset, &cols, &drivers, &window,
+		&ackBy, &ackAt, &ackUntil, &ackNote, &ackSev, &ackEnded)
 	if err != nil {
 		return a, err
 	}
@@ -349,12 +356,54 @@ func scanAlert(rows *sql.Rows) (agent.Alert, error) {
 	if err := json.Unmarshal([]byte(detail), &a.Detail); err != nil {
 		return a, fmt.Errorf("alert %s: detail: %w", a.ID, err)
 	}
+	if ackBy.Valid {
+		a.Ack = &agent.Ack{By: ackBy.String, At: fromNullMicro(ackAt), Until: fromNullMicro(ackUntil), Note: ackNote.String,
+			Severity: agent.Severity(ackSev.String), EndedAt: fromNullMicro(ackEnded)}
+	}
 	return a, nil
+}
+
+// Acknowledge records an owner's acknowledgement of an open alert.
+func (s *Store) Acknowledge(ctx context.Context, id string, ack agent.Ack) (agent.Alert, error) {
+	res, err := s.exec(ctx, `UPDATE plumb_alerts SET ack_by = ?, ack_at = ?, ack_until = ?, ack_note = ?,
+		ack_severity = severity, ack_ended_at = NULL WHERE id = ? AND resolved_at IS NULL`,
+		ack.By, ack.At.UnixMicro(), micro(ack.Until), nullString(ack.Note), id)
+	if err != nil {
+		return agent.Alert{}, s.wrap("acknowledging alert "+id, err)
+	}
+	n, err := res.RowsAffected()
+	if err != nil {
+		return agent.Alert{}, s.wrap("acknowledging alert "+id, err)
+	}
+	a, found, err := s.alert(ctx, id)
+	switch {
+	case err != nil:
+		return agent.Alert{}, err
+	case !found:
+		return agent.Alert{}, fmt.Errorf("alert %s: %w", id, agent.ErrNoAlert)
+	case n == 0:
+		return a, fmt.Errorf("alert %s: %w (as of %s)", id, agent.ErrAlertResolved, a.ResolvedAsOf.UTC().Format(time.RFC3339))
+	}
+	return a, nil
+}
+
+// alert reads one alert by id.
+func (s *Store) alert(ctx context.Context, id string) (agent.Alert, bool, error) {
+	rows, err := s.db.QueryContext(ctx, s.q(`SELECT `+alertCols+`, `+ackCols+` FROM plumb_alerts WHERE id = ?`), id)
+	if err != nil {
+		return agent.Alert{}, false, s.wrap("reading alert "+id, err)
+	}
+	defer rows.Close()
+	if !rows.Next() {
+		return agent.Alert{}, false, s.wrap("reading alert "+id, rows.Err())
+	}
+	a, err := scanAlert(rows)
+	return a, err == nil, s.wrap("reading alert "+id, err)
 }
 
 // Alerts returns alerts ordered by data time.
 func (s *Store) Alerts(ctx context.Context, aq agent.AlertQuery) ([]agent.Alert, error) {
-	query := `SELECT ` + alertCols + ` FROM plumb_alerts WHERE 1 = 1`
+	query := `SELECT ` + alertCols + `, ` + ackCols + ` FROM plumb_alerts WHERE 1 = 1`
 	var args []any
 	if aq.Watch != "" {
 		query += ` AND watch = ?`
@@ -562,6 +611,12 @@ func (s *Store) commit(ctx context.Context, tx *sql.Tx, r *agent.RunResult) (int
 				state = excluded.state, failures = excluded.failures, last_run_at = excluded.last_run_at`,
 			st.Watch, st.Segment, micro(st.EvaluatedThrough), state, st.Failures, micro(st.LastRunAt)); err != nil {
 			return 0, fmt.Errorf("state of %s/%s: %w", st.Watch, st.Segment, err)
+		}
+	}
+	for _, se := range r.SnoozesEnded {
+		if err := exec(`UPDATE plumb_alerts SET ack_ended_at = ? WHERE id = ? AND ack_until = ? AND ack_ended_at IS NULL`,
+			se.At.UnixMicro(), se.AlertID, se.Until.UnixMicro()); err != nil {
+			return 0, fmt.Errorf("alert %s: end of snooze: %w", se.AlertID, err)
 		}
 	}
 	for _, d := range r.Outbox {

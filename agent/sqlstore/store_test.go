@@ -217,6 +217,65 @@ func storeSuite(t *testing.T, s *Store) {
 			t.Fatalf("deliveries of a deleted alert remain: %+v", ob)
 		}
 	})
+	t.Run("acknowledgements", func(t *testing.T) {
+		a := agent.Alert{ID: "k1", Watch: "district_acks", Rule: agent.RuleExact, Subject: "total_connections",
+			Severity: agent.Warning, AsOf: day(3), OpenedAt: day(3).Add(time.Hour), UpdatedAsOf: day(3), UpdatedAt: day(3).Add(time.Hour),
+			Message: "exact", NotifyState: agent.NotifySent}
+		r := sampleRun("district_acks", 0)
+		r.Alerts = []agent.Alert{a}
+		if _, err := s.CommitRun(ctx, r); err != nil {
+			t.Fatal(err)
+		}
+		at := day(4).Add(9 * time.Hour)
+		got, err := s.Acknowledge(ctx, "k1", agent.Ack{By: "hydro-analyst", At: at, Until: at.Add(48 * time.Hour), Note: "upstream fix due Friday"})
+		if err != nil {
+			t.Fatal(err)
+		}
+		want := agent.Ack{By: "hydro-analyst", At: at, Until: at.Add(48 * time.Hour), Note: "upstream fix due Friday", Severity: agent.Warning}
+		if got.Ack == nil || *got.Ack != want {
+			t.Fatalf("ack %+v, want %+v", got.Ack, want)
+		}
+		// A run rewrites the alert (escalated) without touching the ack,
+		// and records the end of that snooze.
+		a.Severity, a.UpdatedAsOf = agent.Critical, day(5)
+		r = sampleRun("district_acks", 1)
+		r.Alerts = []agent.Alert{a}
+		r.SnoozesEnded = []agent.SnoozeEnd{{AlertID: "k1", Until: at.Add(48 * time.Hour), At: day(7)}}
+		if _, err := s.CommitRun(ctx, r); err != nil {
+			t.Fatal(err)
+		}
+		as, err := s.Alerts(ctx, agent.AlertQuery{Watch: "district_acks"})
+		if err != nil || len(as) != 1 || as[0].Severity != agent.Critical || as[0].Ack == nil || as[0].Ack.By != "hydro-analyst" ||
+			as[0].Ack.Severity != agent.Warning || !as[0].Ack.EndedAt.Equal(day(7)) {
+			t.Fatalf("after the run: %+v, %v", as, err)
+		}
+		// A new acknowledgement replaces it; the end of the old snooze does
+		// not mark the new one.
+		got, err = s.Acknowledge(ctx, "k1", agent.Ack{By: "dashboard", At: day(8)})
+		if err != nil || got.Ack.By != "dashboard" || !got.Ack.Until.IsZero() || got.Ack.Note != "" || got.Ack.Severity != agent.Critical || !got.Ack.EndedAt.IsZero() {
+			t.Fatalf("second ack %+v, %v", got.Ack, err)
+		}
+		r = sampleRun("district_acks", 2)
+		r.SnoozesEnded = []agent.SnoozeEnd{{AlertID: "k1", Until: at.Add(48 * time.Hour), At: day(9)}}
+		if _, err := s.CommitRun(ctx, r); err != nil {
+			t.Fatal(err)
+		}
+		if as, _ := s.Alerts(ctx, agent.AlertQuery{Watch: "district_acks"}); !as[0].Ack.EndedAt.IsZero() {
+			t.Fatalf("a stale snooze end marked the new ack: %+v", as[0].Ack)
+		}
+		if _, err := s.Acknowledge(ctx, "nope", agent.Ack{By: "x", At: day(8)}); !errors.Is(err, agent.ErrNoAlert) {
+			t.Fatalf("unknown alert: %v", err)
+		}
+		a.ResolvedAsOf, a.ResolvedAt = day(9), day(9)
+		r = sampleRun("district_acks", 3)
+		r.Alerts = []agent.Alert{a}
+		if _, err := s.CommitRun(ctx, r); err != nil {
+			t.Fatal(err)
+		}
+		if _, err := s.Acknowledge(ctx, "k1", agent.Ack{By: "x", At: day(10)}); !errors.Is(err, agent.ErrAlertResolved) {
+			t.Fatalf("resolved alert: %v", err)
+		}
+	})
 }
 
 func TestSQLiteStore(t *testing.T) {
