@@ -38,12 +38,16 @@ type alertOutput struct {
 	Drivers      []diagnostics.Driver `json:"drivers,omitempty"`
 	Message      string               `json:"message"`
 	Remedy       string               `json:"remedy,omitempty"`
+	// Acknowledged is the owner's acknowledgement: by, at, until (the
+	// snooze's end), note, severity, snooze_ended_at.
+	Acknowledged *agent.Ack `json:"acknowledged,omitempty"`
 }
 
 func toAlertOutput(a agent.Alert) alertOutput {
 	o := alertOutput{ID: a.ID, Watch: a.Watch, Segment: a.Segment, Rule: string(a.Rule), Subject: a.Subject,
 		Severity: string(a.Severity), Onset: a.Onset.UTC(), AsOf: a.AsOf.UTC(), OpenedAt: a.OpenedAt.UTC(),
-		Columns: a.Columns, Equation: a.Detail.Equation, Message: a.Message, Remedy: a.Detail.Remedy}
+		Columns: a.Columns, Equation: a.Detail.Equation, Message: a.Message, Remedy: a.Detail.Remedy,
+		Acknowledged: a.Ack}
 	if o.Columns == nil {
 		o.Columns = []string{}
 	}
@@ -96,6 +100,7 @@ end that opened the alert, resolved_as_of the one that resolved it.`,
 	cmd.Flags().StringVar(&watch, "watch", "", "only this watch")
 	cmd.Flags().BoolVar(&open, "open", false, "only alerts that are not resolved")
 	cmd.Flags().StringVar(&since, "since", "30d", `resolved alerts this recent (e.g. 7d, 12h), or "all"`)
+	cmd.AddCommand(newAlertsAckCmd())
 	return cmd
 }
 
@@ -145,6 +150,9 @@ func runAlerts(cmd *cobra.Command, stdout io.Writer, path string, q agent.AlertQ
 		}
 		if a.Remedy != "" {
 			fmt.Fprintf(stdout, "    what to do: %s\n", a.Remedy)
+		}
+		if a.Acknowledged != nil {
+			fmt.Fprintf(stdout, "    %s\n", ackLine(a.Acknowledged, time.Now()))
 		}
 	}
 	return nil
