@@ -217,6 +217,7 @@ type watchData struct {
 	Alerts      []Alert
 	OpenAlerts  []Alert        // of the segment shown, and blind alerts
 	OtherAlerts []segmentCount // open alerts of the other segments
+	CanAck      bool           // the View records acknowledgements
 }
 
 // segmentCount is a number of open alerts in one segment.
@@ -256,6 +257,7 @@ func (s *Server) watchPage(w http.ResponseWriter, r *http.Request) {
 		seg = d.Segment(h.Segment)
 	}
 	data := watchData{page: page{Title: d.Summary.Name, Generated: now}, Summary: d.Summary, Runs: d.Runs, Alerts: d.Alerts}
+	_, data.CanAck = s.opt.View.(Acknowledger)
 	cur := ""
 	if seg != nil {
 		cur = seg.Segment

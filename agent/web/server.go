@@ -166,6 +166,7 @@ func (s *Server) routes(metrics http.Handler) http.Handler {
 	mux.HandleFunc("GET /api/watches/{name}/runs", s.apiRuns)
 	mux.HandleFunc("GET /api/watches/{name}/report", s.apiReport)
 	mux.HandleFunc("GET /api/alerts", s.apiAlerts)
+	s.ackRoutes(mux)
 	var h http.Handler = mux
 	if s.opt.Token != "" {
 		h = newAuth(s.opt.Token).wrap(h)

@@ -282,6 +282,8 @@ type Alert struct {
 	// Metric is the metric a level, trend or jump alert is about
 	// (MetricCondition or MetricMaxVIF), "" for the other rules.
 	Metric string `json:"metric,omitempty"`
+	// Acknowledged is the owner's acknowledgement, nil when none.
+	Acknowledged *AlertAck `json:"acknowledged,omitempty"`
 }
 
 // Open reports whether the alert is not resolved.

@@ -26,7 +26,8 @@ func newServeCmd() *cobra.Command {
 interrupted: the dashboard (an overview of every watch and a page per watch with
 its timelines, VIF bars, correlation heat map, dependencies and run log), the
 JSON API under /api/, /healthz and /metrics in the Prometheus text format.
-It runs no watch and writes nothing.
+It runs no watch; its one write is an owner's acknowledgement of an alert, from
+the form on the watch page.
 
 The server listens on ` + web.DefaultListen + ` unless told otherwise. Any address that
 is not loopback needs a bearer token in $` + web.TokenEnv + `: requests must send

@@ -7,6 +7,7 @@ import (
 	"cmp"
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"slices"
 	"sync"
@@ -45,7 +46,42 @@ type View struct {
 	Now func() time.Time
 }
 
-var _ web.View = (*View)(nil)
+var (
+	_ web.View         = (*View)(nil)
+	_ web.Acknowledger = (*View)(nil)
+)
+
+// Acknowledge records an owner's acknowledgement of an open alert of a
+// configured watch: the dashboard's one write.
+func (v *View) Acknowledge(ctx context.Context, watch, id, by, note string, until time.Time) error {
+	var w *config.Watch
+	for _, c := range v.watches {
+		if c.Name == watch {
+			w = c
+		}
+	}
+	if w == nil {
+		return fmt.Errorf("watch %q: %w", watch, web.ErrNotFound)
+	}
+	as, err := v.store.Alerts(ctx, agent.AlertQuery{Watch: watch})
+	if err != nil {
+		return fmt.Errorf("watch %q: %w", watch, err)
+	}
+	if !slices.ContainsFunc(as, func(a agent.Alert) bool { return a.ID == id }) {
+		return fmt.Errorf("watch %q: alert %s: %w", watch, id, web.ErrNotFound)
+	}
+	_, err = v.store.Acknowledge(ctx, id, agent.Ack{By: by, At: v.now(), Until: until, Note: note})
+	v.mu.Lock()
+	delete(v.cache, watch)
+	v.mu.Unlock()
+	switch {
+	case errors.Is(err, agent.ErrNoAlert):
+		return fmt.Errorf("watch %q: alert %s: %w", watch, id, web.ErrNotFound)
+	case errors.Is(err, agent.ErrAlertResolved):
+		return fmt.Errorf("watch %q: alert %s: %w", watch, id, web.ErrResolved)
+	}
+	return err
+}
 
 // New returns a view of st for the watches of cfg, in their order.
 func New(st agent.Store, cfg *config.Config) *View {
@@ -229,6 +265,10 @@ func (v *View) detail(ctx context.Context, w *config.Watch, full bool) (*web.Wat
 		if !a.ResolvedAt.IsZero() {
 			t, d := a.ResolvedAt, a.ResolvedAsOf
 			wa.ResolvedAt, wa.ResolvedAsOf = &t, &d
+		}
+		if k := a.Ack; k != nil {
+			wa.Acknowledged = &web.AlertAck{By: k.By, At: k.At, Until: k.Until, Note: k.Note,
+				Lapsed: a.Open() && !agent.AckHolds(k, a.Severity, v.now())}
 		}
 		d.Alerts = append(d.Alerts, wa)
 	}
