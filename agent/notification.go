@@ -129,7 +129,7 @@ func Headline(a *Alert, event string) string {
 	if since.IsZero() {
 		since = a.AsOf
 	}
-	s := where + ": " + cause(a, since)
+	s := where + ": " + cause(a, since, event == EventResolved)
 	switch event {
 	case EventEscalated:
 		s += "; now " + string(a.Severity)
@@ -145,8 +145,10 @@ func Headline(a *Alert, event string) string {
 	return s
 }
 
-// cause is the alert's cause in words, dated from since.
-func cause(a *Alert, since time.Time) string {
+// cause is the alert's cause in words, dated from since. For a
+// resolution it leaves out the figures of the latest point (the level
+// and forecast then describe the point that cleared it).
+func cause(a *Alert, since time.Time, resolved bool) string {
 	d := a.Detail
 	from := " since " + dataTime(since)
 	switch a.Rule {
@@ -162,12 +164,12 @@ func cause(a *Alert, since time.Time) string {
 		if d.Metric == MetricMaxVIF && len(alertColumns(a)) > 0 {
 			what += " (" + alertColumns(a)[0] + ")"
 		}
-		if d.Limit > 0 {
+		if d.Limit > 0 && !resolved {
 			return fmt.Sprintf("%s at or above the %s level %s%s", what, a.Severity, num(d.Limit), from)
 		}
 		return what + " at " + string(a.Severity) + " level" + from
 	case RuleTrend:
-		if f := d.Forecast; f != nil {
+		if f := d.Forecast; f != nil && !resolved {
 			return fmt.Sprintf("%s rising ~%s/day, forecast to reach %s around %s", metricPhrase(d.Metric), pct(f.RatePerDay),
 				num(f.Limit), f.Crossing.UTC().Format("2006-01-02"))
 		}

@@ -51,6 +51,11 @@ func TestHeadline(t *testing.T) {
 			t.Errorf("got  %q\nwant %q", got, c.want)
 		}
 	}
+	lv := &Alert{Watch: "district_daily", Rule: RuleLevel, Severity: Critical, AsOf: asOf, Onset: onset, ResolvedAsOf: onset.AddDate(0, 0, 30),
+		Detail: AlertDetail{Metric: MetricMaxVIF, Limit: 5}}
+	if got := Headline(lv, EventResolved); got != "district_daily: max VIF at critical level since 2026-08-10; resolved as of 2026-09-09" {
+		t.Errorf("resolved level: %q", got)
+	}
 	resolved := exact("total_connections = 1·residential_connections + 1·commercial_connections + 0")
 	resolved.ResolvedAsOf = onset.AddDate(0, 0, 30)
 	if got := Headline(resolved, EventResolved); !strings.HasSuffix(got, "; resolved as of 2026-09-09") {
