@@ -41,10 +41,7 @@ func TestAckInDrift(t *testing.T) {
 		if n.Summary == "" || n.Caution != agent.CautionGovernance || n.RecordedAt.IsZero() || n.AsOf.IsZero() || n.Columns == nil {
 			t.Errorf("notification lacks content: %+v", n)
 		}
-		// Openings carry the window and onset the rules found. (Later
-		// events are built from the stored alert, which does not keep
-		// them yet.)
-		if n.Event == agent.EventOpened && n.Rule != agent.RuleBlind && (n.Window == nil || n.Window.Rows == 0 || n.Onset == nil) {
+		if n.Rule != agent.RuleBlind && (n.Window == nil || n.Window.Rows == 0 || n.Onset == nil || len(n.Columns) == 0) {
 			t.Errorf("notification %s lacks its window or onset: %+v", n.ID, n)
 		}
 		if (n.Event == agent.EventResolved) != (n.ResolvedAsOf != nil) {
@@ -86,6 +83,9 @@ func TestAckInDrift(t *testing.T) {
 		if a.Ack == nil || a.Ack.Note != "billing migration" {
 			t.Errorf("acknowledgement lost by the runs: %+v", a.Ack)
 		}
+	}
+	for _, n := range ackedEvents {
+		t.Logf("%s %s: %s", n.Event, n.Severity, n.Summary)
 	}
 	t.Logf("acknowledged alert %s: %d notifications (%v snooze_ended)", acked, len(ackedEvents), sawEnd)
 }
