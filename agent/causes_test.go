@@ -13,6 +13,7 @@ import (
 
 	"plumb/agent"
 	"plumb/agent/config"
+	"plumb/agent/notify"
 	"plumb/agent/sqlstore"
 )
 
@@ -87,9 +88,19 @@ type watcher struct {
 
 func newWatcher(t *testing.T, dir, url, watches string) *watcher {
 	t.Helper()
-	yaml := fmt.Sprintf("store: sqlite:%s\nsources: {features: %q}\nwatches:\n%s", filepath.Join(dir, "state.db"), url, watches)
+	return newWatcherWith(t, dir, url, "", watches)
+}
+
+// newWatcherWith adds a notifiers section; secret_env PLUMB_TEST_SECRET
+// resolves to "hook-secret".
+func newWatcherWith(t *testing.T, dir, url, notifiers, watches string) *watcher {
+	t.Helper()
+	yaml := fmt.Sprintf("store: sqlite:%s\nsources: {features: %q}\n%swatches:\n%s", filepath.Join(dir, "state.db"), url, notifiers, watches)
 	cfg, err := config.Parse([]byte(yaml))
 	if err != nil {
+		t.Fatal(err)
+	}
+	if err := cfg.Resolve(config.Resolver{Env: func(k string) (string, bool) { return "hook-secret", k == "PLUMB_TEST_SECRET" }}); err != nil {
 		t.Fatal(err)
 	}
 	st, err := sqlstore.Open(context.Background(), cfg.StoreURL(), sqlstore.Options{Migrate: true})
@@ -342,5 +353,62 @@ func TestDriftingTableOneAlertPerCause(t *testing.T) {
 			t.Errorf("day %d: rank %d of %d, condition number %v, max VIF %v: want singular, undefined, and a finite max VIF of the rest",
 				d, p.Rank, p.Columns+1, p.ConditionNumber, p.MaxVIF)
 		}
+	}
+}
+
+// TestOneEquationOneNotification checks that an equation that starts to
+// hold in every district at once opens one alert per segment (and one for
+// the whole table) but one notification, listing the segments.
+func TestOneEquationOneNotification(t *testing.T) {
+	dir := t.TempDir()
+	tb := newTable(t, dir, []string{"residential_connections", "commercial_connections", "total_connections", "temperature_c"})
+	recv := newReceiver(t, "hook-secret")
+	w := newWatcherWith(t, dir, tb.url, fmt.Sprintf("notifiers:\n  oncall: {webhook: %q, secret_env: PLUMB_TEST_SECRET}\n", recv.srv.URL), `
+  - name: connections
+    source: features
+    table: district_readings
+    time_column: day
+    window: 7 buckets
+    segment_by: district
+    notify: [oncall]
+`)
+	del := &agent.Deliverer{Store: w.store, Clock: w.clock, Notifiers: map[string]agent.NotifierConfig{
+		"oncall": {Notifier: &notify.Webhook{URL: recv.srv.URL, Secrets: []string{"hook-secret"}, Now: w.clock.Now}, Timeout: 5 * time.Second, MaxAge: 7 * 24 * time.Hour},
+	}}
+	rng := rand.New(rand.NewPCG(3, 4))
+	for d := 0; d < 30; d++ {
+		rows := make([][]float64, 48)
+		for i := range rows {
+			res := 8000 + 300*rng.NormFloat64()
+			com := 600 + 40*rng.NormFloat64()
+			tot := res + com
+			if d < 10 {
+				tot += 50 * rng.NormFloat64()
+			}
+			rows[i] = []float64{res, com, tot, 15 + 4*rng.NormFloat64()}
+		}
+		tb.add(t, d, rows)
+		w.live(t, 0, d)
+		if _, err := del.Once(context.Background()); err != nil {
+			t.Fatal(err)
+		}
+	}
+	var exact []agent.Alert
+	for _, a := range w.alerts(t, "connections") {
+		if a.Rule == agent.RuleExact {
+			exact = append(exact, a)
+		}
+	}
+	if len(exact) != 5 {
+		t.Fatalf("%d exact alerts, want one per district and one for the whole table", len(exact))
+	}
+	var opened []agent.Notification
+	for _, n := range recv.notifications() {
+		if n.Rule == agent.RuleExact && n.Event == agent.EventOpened {
+			opened = append(opened, n)
+		}
+	}
+	if len(opened) != 1 || len(opened[0].Segments) != 5 || !strings.Contains(opened[0].Message, "in 5 segments") {
+		t.Fatalf("exact openings notified: %+v; want one listing the 5 segments", opened)
 	}
 }

@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"slices"
 	"strconv"
+	"strings"
 	"time"
 
 	"plumb/agent/config"
@@ -206,12 +207,44 @@ func (e *evaluation) replay(ctx context.Context, col *collected, now time.Time) 
 	return nil
 }
 
+// sameEquation groups the exact-dependency openings this run is about to
+// notify by their equation: one equation found in several segments is one
+// notification, sent with the first segment's alert (the leader) and
+// listing them all; the others follow it.
+func (e *evaluation) sameEquation(ids []string, now time.Time) (leaders map[string][]string, follows map[string]bool) {
+	leaders, follows = map[string][]string{}, map[string]bool{}
+	first := map[string]string{} // equation → leader id
+	for _, id := range ids {
+		a := e.alerts[id]
+		b, existed := e.before[id]
+		if a.Rule != RuleExact || !a.Open() || existed && b.NotifyState == NotifySent || e.quiet(a, now) {
+			continue
+		}
+		k := a.Subject + "\x00" + a.Detail.Equation
+		l, ok := first[k]
+		if !ok {
+			first[k] = id
+			leaders[id] = []string{a.Segment}
+			continue
+		}
+		leaders[l] = append(leaders[l], a.Segment)
+		follows[id] = true
+	}
+	return leaders, follows
+}
+
 // finish decides the notifications and fills the run's alert, state and
 // outbox parts.
 func (e *evaluation) finish(res *RunResult, now time.Time) {
 	var outbox []Delivery
+	var together map[string][]string // leader id → the segments its opening speaks for
 	enqueue := func(a *Alert, event string) {
 		body := e.notification(a, event, now)
+		if segs := together[a.ID]; event == EventOpened && len(segs) > 1 {
+			body.Segments = segs
+			body.Message = fmt.Sprintf("in %d segments (%s): %s", len(segs), strings.Join(segs, ", "),
+				strings.TrimPrefix(body.Message, "segment "+a.Segment+": "))
+		}
 		for _, n := range e.w.Notify {
 			eid := a.ID + ":" + event
 			if event == EventEscalated {
@@ -273,12 +306,16 @@ func (e *evaluation) finish(res *RunResult, now time.Time) {
 			}
 		}
 	default:
+		var follows map[string]bool
+		together, follows = e.sameEquation(ids, now)
 		for _, id := range ids {
 			a := e.alerts[id]
 			b, existed := e.before[id]
 			wasSent := existed && b.NotifyState == NotifySent
 			if a.Open() {
 				switch {
+				case !wasSent && follows[id]:
+					a.NotifyState = NotifySent // its leader's notification names its segment
 				case !wasSent:
 					if !e.quiet(a, now) { // else held until the acknowledgement lapses
 						enqueue(a, EventOpened)

@@ -34,6 +34,10 @@ type Notification struct {
 	Source   string   `json:"source"`
 	Table    string   `json:"table,omitempty"`
 	Segment  string   `json:"segment"` // "" is the whole table
+	// Segments, on the opening of an exact dependency that appeared in
+	// several segments in the same run, lists them all: one notification
+	// for one equation (the alerts stay one per segment).
+	Segments []string `json:"segments,omitempty"`
 	Rule     Rule     `json:"rule"`
 	Subject  string   `json:"subject,omitempty"`
 	Severity Severity `json:"severity"`
