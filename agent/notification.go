@@ -29,11 +29,11 @@ type Notification struct {
 	Event   string `json:"event"`
 	AlertID string `json:"alert_id"`
 	// Summary says what happened in words (an email's subject).
-	Summary  string   `json:"summary"`
-	Watch    string   `json:"watch"`
-	Source   string   `json:"source"`
-	Table    string   `json:"table,omitempty"`
-	Segment  string   `json:"segment"` // "" is the whole table
+	Summary string `json:"summary"`
+	Watch   string `json:"watch"`
+	Source  string `json:"source"`
+	Table   string `json:"table,omitempty"`
+	Segment string `json:"segment"` // "" is the whole table
 	// Segments, on the opening of an exact dependency that appeared in
 	// several segments in the same run, lists them all: one notification
 	// for one equation (the alerts stay one per segment).
