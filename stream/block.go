@@ -270,6 +270,13 @@ func scaleFor(mag float64) float64 {
 	return math.Ldexp(1, min(max(e, minScaleExp), maxScaleExp))
 }
 
+// ScaleFor returns the scale the accumulators give a column whose values
+// lie between lo and hi: the power of two just above the larger of |lo| and
+// |hi| (1 for a column of zeros). Sums computed elsewhere (a database's
+// aggregate) on values divided by it, or by any power of two near it,
+// stay within float64 as the accumulators' own do.
+func ScaleFor(lo, hi float64) float64 { return scaleFor(magnitude(lo, hi)) }
+
 // magnitude returns the larger of |lo| and |hi|.
 func magnitude(lo, hi float64) float64 { return math.Max(math.Abs(lo), math.Abs(hi)) }
 
