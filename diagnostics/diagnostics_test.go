@@ -239,7 +239,30 @@ func TestScaleInvariance(t *testing.T) {
 		"total_connections", "pipe_age", "pressure_z1", "pressure_z2", "pressure_z3", "billed_volume"}
 	opt := Options{Columns: cols, Target: "metered_volume",
 		Groups: map[string][]string{"weather": {"temperature", "rainfall"}}}
-	analyze := func(rows [][]float64) []*Report {
+	// Reference SDs in the columns' own units: a fifth of the sample's for
+	// rainfall and pipe age (so that they vary too little by the rule), as
+	// much for the others.
+	refSD := func(k func(string) int) map[string]float64 {
+		sd := map[string]float64{}
+		for j, name := range names {
+			mean, ss := 0.0, 0.0
+			for _, r := range rows {
+				mean += r[j] / float64(len(rows))
+			}
+			for _, r := range rows {
+				ss += (r[j] - mean) * (r[j] - mean)
+			}
+			f := 1.0
+			if name == "rainfall" || name == "pipe_age" {
+				f = 5
+			}
+			sd[name] = math.Ldexp(f*math.Sqrt(ss/float64(len(rows)-1)), k(name))
+		}
+		return sd
+	}
+	analyze := func(rows [][]float64, k func(string) int) []*Report {
+		opt := opt
+		opt.ReferenceSD = refSD(k)
 		m, q := feedRows(names, rows, 200)
 		qr, cp := analyzeBoth(t, m, q, opt)
 		pr, err := Analyze(m, feedExtended(names, rows, 200), opt)
@@ -252,7 +275,8 @@ func TestScaleInvariance(t *testing.T) {
 		return []*Report{qr, cp, pr}
 	}
 	const tol = 1e-13
-	refs, gots := analyze(rows), analyze(scaled)
+	refs := analyze(rows, func(string) int { return 0 })
+	gots := analyze(scaled, func(name string) int { return exp[name] })
 	for i, ref := range refs {
 		got := gots[i]
 		label := got.Path
@@ -323,12 +347,34 @@ func TestScaleInvariance(t *testing.T) {
 		if relErr(rg.Sigma/uy, rr.Sigma) > tol || relErr(rg.R2, rr.R2) > tol {
 			t.Errorf("%s: σ %g, R² %g; unscaled %g, %g", label, rg.Sigma, rg.R2, rr.Sigma, rr.R2)
 		}
+		for k, a := range rr.Attribution {
+			g := rg.Attribution[k]
+			uj := math.Ldexp(1, exp[a.Name])
+			if g.Name != a.Name || g.Inflated != a.Inflated || g.Dominant != a.Dominant ||
+				relErr(g.VariationSeverity, a.VariationSeverity) > 1e-10 || relErr(g.FitSeverity, a.FitSeverity) > 1e-10 ||
+				relErr(g.RedundancySeverity, a.RedundancySeverity) > 1e-10 ||
+				!sameOrCapped(g.SST, a.SST*uj*uj, 1e-10) || !sameOrCapped(g.Variance, a.Variance*(uy/uj)*(uy/uj), 1e-10) {
+				t.Errorf("%s: variance split %+v, unscaled %+v", label, g, a)
+			}
+		}
+		if a := rr.Attribution; !slices.ContainsFunc(a, func(v VarianceSplit) bool { return v.VariationSeverity > 1 }) {
+			t.Errorf("%s: no column varies too little against its reference SD: %+v", label, a)
+		}
 		// σ² of metered volume at 2^600 is about 1e365: beyond float64,
 		// reported as the largest float64 with a note.
 		if rg.Sigma2 != math.MaxFloat64 || !slices.ContainsFunc(got.Notes, func(n string) bool { return strings.Contains(n, "regression.sigma2") }) {
 			t.Errorf("%s: σ² %g, notes %q: want the overflow capped and noted", label, rg.Sigma2, got.Notes)
 		}
 	}
+}
+
+// sameOrCapped reports whether got is want to tol relative, or the largest
+// float64 where want overflowed.
+func sameOrCapped(got, want, tol float64) bool {
+	if math.IsInf(want, 1) {
+		return got == math.MaxFloat64
+	}
+	return relErr(got, want) <= tol
 }
 
 // Exact dependencies built into the generated water table (by construction,
