@@ -12,7 +12,9 @@ import (
 // Stats are the sufficient statistics of one group computed outside the
 // stream package, by a pushdown aggregate: sums of values and of products
 // shifted by a provisional origin close to the data, so that no raw sums of
-// products are formed.
+// products are formed, and divided by a power of two per column (Scale,
+// see stream.ScaleFor), so that data near 1e-200 or 1e200 neither
+// underflow nor overflow in the products.
 type Stats struct {
 	Names      []string
 	Used       int64   // rows folded in
@@ -23,8 +25,9 @@ type Stats struct {
 	NaN        []int64
 	Inf        []int64
 	Origin     []float64 // the shift c
-	Sum        []float64 // Σ w (x_j − c_j)
-	Cross      []float64 // Σ w (x_i − c_i)(x_j − c_j), i ≤ j, row-major upper triangle
+	Scale      []float64 // the powers of two s the shifted values were divided by; nil: all 1
+	Sum        []float64 // Σ w (x_j − c_j)/s_j
+	Cross      []float64 // Σ w (x_i − c_i)(x_j − c_j)/(s_i·s_j), i ≤ j, row-major upper triangle
 	Min, Max   []float64
 	// Centered: Cross already holds the co-moment Σw(x−x̄)(x−x̄)ᵀ (an
 	// updating algorithm computed it), so W·d·dᵀ is not subtracted.
@@ -32,16 +35,34 @@ type Stats struct {
 }
 
 // Moments turns the statistics into an accumulator, with mean
-// c + Σw(x−c)/W and co-moment Σw(x−c)(x−c)ᵀ − W·d·dᵀ, d = Σw(x−c)/W. With
-// Centered set, Cross is taken as the co-moment.
+// c + Σw(x−c)/W and co-moment Σw(x−c)(x−c)ᵀ − W·d·dᵀ, d = Σw(x−c)/W (all
+// on the scaled values, then brought to the scales the accumulator would
+// have chosen, stream.ScaleFor of each column's extremes: exact, powers of
+// two). With Centered set, Cross is taken as the co-moment.
 //
 // It goes through the accumulator's versioned binary encoding, the one
 // public way to build a stream.Moments from parts.
 func (s *Stats) Moments() (*stream.Moments, error) {
 	p := len(s.Names)
 	if p == 0 || len(s.Null) != p || len(s.NaN) != p || len(s.Inf) != p || len(s.Origin) != p ||
-		len(s.Sum) != p || len(s.Min) != p || len(s.Max) != p || len(s.Cross) != p*(p+1)/2 {
+		len(s.Sum) != p || len(s.Min) != p || len(s.Max) != p || len(s.Cross) != p*(p+1)/2 ||
+		(s.Scale != nil && len(s.Scale) != p) {
 		panic(fmt.Sprintf("connectors: Stats.Moments: inconsistent lengths for %d columns", p))
+	}
+	// ratio[j] takes column j from the aggregate's scale to the
+	// accumulator's.
+	scale := make([]float64, p)
+	ratio := make([]float64, p)
+	for j := range scale {
+		scale[j], ratio[j] = 1, 1
+		if s.Used > 0 {
+			scale[j] = stream.ScaleFor(s.Min[j], s.Max[j])
+		}
+		if s.Scale != nil {
+			ratio[j] = s.Scale[j] / scale[j]
+		} else {
+			ratio[j] = 1 / scale[j]
+		}
 	}
 	w := s.SumWeights
 	d := make([]float64, p)
@@ -68,7 +89,7 @@ func (s *Stats) Moments() (*stream.Moments, error) {
 	le := binary.LittleEndian
 	f64 := func(v float64) { b = le.AppendUint64(b, math.Float64bits(v)) }
 	i64 := func(v int64) { b = le.AppendUint64(b, uint64(v)) }
-	b = append(b, 'P', 'L', 'M', 'B', 'M', 1)
+	b = append(b, 'P', 'L', 'M', 'B', 'M', 2)
 	hasOrg := s.Used > 0
 	if hasOrg {
 		b = append(b, 1)
@@ -97,7 +118,10 @@ func (s *Stats) Moments() (*stream.Moments, error) {
 		}
 	}
 	for j := 0; j < p; j++ {
-		f64(d[j])
+		f64(scale[j])
+	}
+	for j := 0; j < p; j++ {
+		f64(d[j] * ratio[j])
 	}
 	k := 0
 	for i := 0; i < p; i++ {
@@ -112,7 +136,7 @@ func (s *Stats) Moments() (*stream.Moments, error) {
 					v = 0 // rounding on a (near) constant column
 				}
 			}
-			f64(v)
+			f64(v * ratio[i] * ratio[j])
 			k++
 		}
 	}

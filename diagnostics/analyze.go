@@ -23,12 +23,14 @@ var (
 )
 
 // Factor is what Analyze needs of a QR accumulator: the upper triangular
-// factor R of the design [1 X−c] over its columns (column 0 the intercept,
-// column j+1 data column j shifted by Origin(j)), the column names and the
-// number of rows. *stream.QR implements it.
+// factor R of the design [1 (X−c)/s] over its columns (column 0 the
+// intercept, column j+1 data column j shifted by Origin(j) and divided by
+// Scale(j), a power of two), the column names and the number of rows.
+// *stream.QR implements it.
 type Factor interface {
 	R(dst *mat.TriDense) *mat.TriDense
 	Origin(j int) float64
+	Scale(j int) float64
 	Names() []string
 	N() int64
 }
@@ -269,7 +271,8 @@ func analyzeDesign(d *design, m *stream.Moments, opt Options) (*Report, error) {
 	for _, j := range regs {
 		cr := ColumnReport{
 			Name: d.names[j], Constant: d.constant[j], NearConstant: d.nearConst[j],
-			Mean: d.mean[j], SD: d.sd(j), Min: d.min[j], Max: d.max[j], Dropped: d.drop[j],
+			Mean: d.own(j, d.mean[j]), SD: d.own(j, d.sd(j)), Min: d.own(j, d.min[j]), Max: d.own(j, d.max[j]),
+			Dropped: d.drop[j],
 		}
 		if v, why := col.vifOf(j); why == "" {
 			cr.VIF = fptr(v)
@@ -297,8 +300,10 @@ func analyzeDesign(d *design, m *stream.Moments, opt Options) (*Report, error) {
 	rep.condition(d, col)
 	if opt.Target != "" {
 		rep.regression(d, col, opt)
+		rep.regressionOwnUnits(d)
 	}
 	rep.trust(d)
+	rep.finite()
 	return rep, nil
 }
 
@@ -419,9 +424,9 @@ func (rep *Report) exactDependencies(d *design, c *collin) {
 	rep.Dependencies = []Dependency{}
 	for _, j := range c.cols {
 		if d.constant[j] || d.nearConst[j] {
-			v := d.mean[j]
+			v := d.own(j, d.mean[j])
 			if d.constant[j] {
-				v = d.min[j]
+				v = d.own(j, d.min[j])
 			}
 			rep.Dependencies = append(rep.Dependencies, Dependency{
 				Kind: KindExact, Columns: []string{d.names[j]}, Dependent: d.names[j],
@@ -437,7 +442,9 @@ func (rep *Report) exactDependencies(d *design, c *collin) {
 // originalUnits converts a standardized equation to the columns' units:
 // x_d = Σ b_j x_j + b₀ with b_j = a_j·√SST_d/√SST_j and b₀ = x̄_d − Σ b_j x̄_j.
 // An intercept below 1e-9 of the magnitude of the terms it balances is
-// rounding and reported as 0.
+// rounding and reported as 0. The sums are formed on the scaled columns
+// (in the dependent column's scaled units) and multiplied back by the
+// scales at the end.
 func originalUnits(d *design, e exactDep) Dependency {
 	dep := Dependency{Kind: KindExact, Dependent: d.names[e.dep], Coefficients: map[string]float64{}}
 	order := append([]int(nil), e.terms...)
@@ -445,15 +452,17 @@ func originalUnits(d *design, e exactDep) Dependency {
 	b0 := d.mean[e.dep]
 	mag := math.Abs(d.mean[e.dep])
 	for i, j := range e.terms {
-		b := e.coef[i] * math.Sqrt(d.sst[e.dep]/d.sst[j])
-		coef[j] = b
-		dep.Coefficients[d.names[j]] = b
+		b := e.coef[i] * math.Sqrt(d.sst[e.dep]/d.sst[j]) // scaled units
 		b0 -= b * d.mean[j]
 		mag += math.Abs(b * d.mean[j])
+		b *= d.scale[e.dep] / d.scale[j] // own units
+		coef[j] = b
+		dep.Coefficients[d.names[j]] = b
 	}
 	if math.Abs(b0) <= 1e-9*mag {
 		b0 = 0
 	}
+	b0 = d.own(e.dep, b0)
 	dep.Intercept = fptr(b0)
 	sort.Ints(order)
 	dep.Columns = []string{}

@@ -81,6 +81,11 @@ func analyzeCols(d *design, cols []int, precise bool) *collin {
 	c.s = d.f.cols(c.vary, sc)
 	c.tol = d.rankTol(nv)
 	c.sv, c.v, c.svdOK = svd(c.s)
+	if c.svdOK && !allFinite(c.sv) {
+		// A NaN or an infinity in the factor (an accumulator that
+		// overflowed) is no decomposition to read a rank from.
+		c.svdOK = false
+	}
 	if !c.svdOK {
 		// Fall back to a full-rank reading; the caller reports it.
 		c.rank = nv
@@ -182,6 +187,12 @@ func (c *collin) reduceNullSpace() {
 					bi, bj = i, j
 				}
 			}
+		}
+		if bi < 0 {
+			// No finite pivot left (the basis holds NaN): report the
+			// dependencies found so far.
+			m = s
+			break
 		}
 		// Swap rows s and bi.
 		for j := 0; j < nv; j++ {
@@ -318,6 +329,16 @@ func dot(a, b []float64) float64 {
 		s += a[i] * b[i]
 	}
 	return s
+}
+
+// allFinite reports whether every value is finite.
+func allFinite(v []float64) bool {
+	for _, x := range v {
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			return false
+		}
+	}
+	return true
 }
 
 func without(cols []int, k int) []int {

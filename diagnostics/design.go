@@ -14,19 +14,28 @@ import (
 // is a Cholesky factor of the co-moments. The uncentered factor of
 // [1 X y] is then [[√W, √W·x̄ᵀ], [0, f]] without any further rounding of
 // the centered part.
+//
+// Every column is held divided by its scale (a power of two from the
+// accumulator, from the column's largest magnitude), so that sums of
+// squares of data at 1e-200 or 1e200 neither underflow nor overflow: mean,
+// sst, min, max, f and row0 (and their low parts) are those of x/scale.
+// Diagnostics that do not depend on the columns' units (VIFs, condition
+// indices, proportions, correlations, ranks) use them as they are; values
+// reported in the columns' own units are multiplied back (own), exactly.
 type design struct {
 	path  string
 	names []string // regressors, then the target
 	k     int      // number of regressors
 	hasY  bool
 
-	n    int64
-	w    float64
-	mean []float64
-	sst  []float64 // centered sums of squares, ‖f_j‖²
-	min  []float64
-	max  []float64
-	drop []int64
+	n     int64
+	w     float64
+	scale []float64 // per column, a power of two
+	mean  []float64
+	sst   []float64 // centered sums of squares, ‖f_j‖²
+	min   []float64
+	max   []float64
+	drop  []int64
 
 	f    dense     // r×(k+hasY)
 	row0 []float64 // first row of the uncentered factor, √W·x̄ (as computed by the path)
@@ -56,6 +65,9 @@ const eps = 0x1p-52
 
 func (d *design) ncols() int { return len(d.names) }
 
+// own returns a value of column j's scaled units in the column's own units.
+func (d *design) own(j int, v float64) float64 { return v * d.scale[j] }
+
 // finish fills sst, constant and near-constant flags from f, min and max.
 func (d *design) finish() {
 	p := d.ncols()
@@ -83,8 +95,8 @@ func (d *design) finish() {
 	}
 }
 
-// sd returns the standard deviation of column j (n − 1 denominator for
-// unweighted rows; weights are treated as frequencies).
+// sd returns the standard deviation of column j, in its scaled units (n − 1
+// denominator for unweighted rows; weights are treated as frequencies).
 func (d *design) sd(j int) float64 {
 	if d.n < 2 || d.w == 0 {
 		return 0
@@ -92,22 +104,26 @@ func (d *design) sd(j int) float64 {
 	return math.Sqrt(d.sst[j] / (d.w * float64(d.n-1) / float64(d.n)))
 }
 
-func newDesign(m *stream.Moments, idx []int, names []string, k int, hasY bool) *design {
+// newDesign starts a design for the accumulator columns idx, column idx[a]
+// divided by scale(idx[a]).
+func newDesign(m *stream.Moments, scale func(int) float64, idx []int, names []string, k int, hasY bool) *design {
 	p := len(idx)
 	d := &design{
 		names: names, k: k, hasY: hasY,
-		n:    m.N(),
-		w:    m.SumWeights(),
-		mean: make([]float64, p),
-		min:  make([]float64, p),
-		max:  make([]float64, p),
-		drop: make([]int64, p),
-		row0: make([]float64, p),
+		n:     m.N(),
+		w:     m.SumWeights(),
+		scale: make([]float64, p),
+		mean:  make([]float64, p),
+		min:   make([]float64, p),
+		max:   make([]float64, p),
+		drop:  make([]int64, p),
+		row0:  make([]float64, p),
 	}
 	miss := m.Counts().Missing(nil)
 	for a, j := range idx {
-		d.min[a] = m.Min(j)
-		d.max[a] = m.Max(j)
+		d.scale[a] = scale(j)
+		d.min[a] = m.Min(j) / d.scale[a]
+		d.max[a] = m.Max(j) / d.scale[a]
 		d.drop[a] = miss[j]
 	}
 	return d
@@ -116,7 +132,7 @@ func newDesign(m *stream.Moments, idx []int, names []string, k int, hasY bool) *
 // designFromQR builds the design from the QR accumulator: the columns of
 // its R factor for the intercept and the chosen columns are re-factored (an
 // orthogonal reduction, so nothing is squared), which gives the R factor of
-// [1 X−c y−c] for exactly those columns. With low parts (an extended
+// [1 (X−c)/s (y−c)/s] for exactly those columns, s the factor's scales. With low parts (an extended
 // factor) the re-factoring runs in double-double and the design keeps them:
 // the precise path.
 func designFromQR(m *stream.Moments, q Factor, idx []int, names []string, k int, hasY bool) *design {
@@ -128,9 +144,9 @@ func designFromQR(m *stream.Moments, q Factor, idx []int, names []string, k int,
 			r.set(i, j, full.At(i, j))
 		}
 	}
-	origin := make([]float64, P)
+	origin := make([]float64, P) // c/s: exact
 	for j := range origin {
-		origin[j] = q.Origin(j)
+		origin[j] = q.Origin(j) / q.Scale(j)
 	}
 	if pf, ok := q.(PreciseFactor); ok && pf.Extended() {
 		lo := pf.RLo(nil)
@@ -140,15 +156,15 @@ func designFromQR(m *stream.Moments, q Factor, idx []int, names []string, k int,
 				rl.set(i, j, lo.At(i, j))
 			}
 		}
-		return designFromRParts(m, r, rl, origin, idx, names, k, hasY)
+		return designFromRParts(m, q.Scale, r, rl, origin, idx, names, k, hasY)
 	}
-	return designFromR(m, r, origin, idx, names, k, hasY)
+	return designFromR(m, q.Scale, r, origin, idx, names, k, hasY)
 }
 
 // designFromRParts is designFromR in double-double, from the high and low
 // parts of the factor: the design of the precise path.
-func designFromRParts(m *stream.Moments, hi, lo dense, origin []float64, idx []int, names []string, k int, hasY bool) *design {
-	d := newDesign(m, idx, names, k, hasY)
+func designFromRParts(m *stream.Moments, scale func(int) float64, hi, lo dense, origin []float64, idx []int, names []string, k int, hasY bool) *design {
+	d := newDesign(m, scale, idx, names, k, hasY)
 	d.path = PathQRPrecise
 	sel := make([]int, len(idx)+1)
 	for b, j := range idx {
@@ -178,9 +194,10 @@ func designFromRParts(m *stream.Moments, hi, lo dense, origin []float64, idx []i
 }
 
 // designFromR builds the design from the (P+1)×(P+1) upper triangular
-// factor of [1 X−c] over all accumulator columns and the origin c.
-func designFromR(m *stream.Moments, full dense, origin []float64, idx []int, names []string, k int, hasY bool) *design {
-	d := newDesign(m, idx, names, k, hasY)
+// factor of [1 (X−c)/s] over all accumulator columns and the scaled origin
+// c/s.
+func designFromR(m *stream.Moments, scale func(int) float64, full dense, origin []float64, idx []int, names []string, k int, hasY bool) *design {
+	d := newDesign(m, scale, idx, names, k, hasY)
 	d.path = PathQR
 	P := full.c - 1
 	a := newDense(P+1, len(idx)+1)
@@ -217,18 +234,18 @@ func designFromR(m *stream.Moments, full dense, origin []float64, idx []int, nam
 // exact dependency) the factor comes from the symmetric eigendecomposition
 // instead, with the eigenvalues below the rank tolerance set to zero.
 func designFromMoments(m *stream.Moments, idx []int, names []string, k int, hasY bool) *design {
-	d := newDesign(m, idx, names, k, hasY)
+	d := newDesign(m, m.Scale, idx, names, k, hasY)
 	d.path = PathCrossProduct
 	p := len(idx)
 	sw := math.Sqrt(d.w)
 	for b, j := range idx {
-		d.mean[b] = m.Mean(j)
+		d.mean[b] = m.Mean(j) / d.scale[b]
 		d.row0[b] = sw * d.mean[b]
 	}
 	var vary []int
 	scale := make([]float64, p)
 	for b, j := range idx {
-		c := m.At(j, j)
+		c := m.ScaledAt(j, j)
 		if d.min[b] != d.max[b] && c > 0 {
 			vary = append(vary, b)
 			scale[b] = math.Sqrt(c)
@@ -238,7 +255,7 @@ func designFromMoments(m *stream.Moments, idx []int, names []string, k int, hasY
 	corr := newDense(nv, nv)
 	for x, a := range vary {
 		for y, b := range vary {
-			corr.set(x, y, m.At(idx[a], idx[b])/(scale[a]*scale[b]))
+			corr.set(x, y, m.ScaledAt(idx[a], idx[b])/(scale[a]*scale[b]))
 		}
 		corr.set(x, x, 1)
 	}

@@ -1,6 +1,7 @@
 package diagnostics
 
 import (
+	"encoding/json"
 	"errors"
 	"math"
 	"math/rand/v2"
@@ -136,9 +137,11 @@ func compareReports(t *testing.T, label string, a, b *Report, tol float64) {
 }
 
 // Offset robustness (property, common practice): columns with mean 1e9 and
-// sd about 1, and the same scaled by 2⁻³⁰ ≈ 9.3e-10, give the VIFs of the
-// unshifted data to 1e-9. The base values are multiples of 2⁻²⁰ below 2⁸ in
-// magnitude, so adding 1e9 (and scaling by a power of two) is exact.
+// sd about 1, and the same scaled by powers of two from 2⁻¹⁰⁰⁰ to 2⁹⁸⁰
+// (values from about 1e-292 to 1e304, whose squares underflow or overflow
+// float64), give the VIFs of the unshifted data to 1e-9 on every path. The
+// base values are multiples of 2⁻²⁰ below 2⁸ in magnitude, so adding 1e9
+// (and scaling by a power of two) is exact.
 func TestOffsetRobustness(t *testing.T) {
 	r := rand.New(rand.NewPCG(21, 22))
 	q20 := func(v float64) float64 { return math.Round(v*(1<<20)) / (1 << 20) }
@@ -164,30 +167,214 @@ func TestOffsetRobustness(t *testing.T) {
 		}
 		return out
 	}
+	analyze := func(m *stream.Moments, q, x *stream.QR) []*Report {
+		qr, cp := analyzeBoth(t, m, q, Options{})
+		pr, err := Analyze(m, x, Options{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return []*Report{qr, cp, pr}
+	}
 	m0, q0 := feedRows(names, base, 256)
-	ref, refCP := analyzeBoth(t, m0, q0, Options{})
-	for _, scale := range []float64{1, 0x1p-30} {
-		m, q := feedRows(names, shift(scale), 256)
-		got, gotCP := analyzeBoth(t, m, q, Options{})
-		for _, pair := range [][2]*Report{{ref, got}, {refCP, gotCP}} {
-			for i, c := range pair[0].Columns {
-				g := pair[1].Columns[i]
+	refs := analyze(m0, q0, feedExtended(names, base, 256))
+	for _, scale := range []float64{1, 0x1p-30, 0x1p-700, 0x1p-1000, 0x1p600, 0x1p980} {
+		rows := shift(scale)
+		m, q := feedRows(names, rows, 256)
+		gots := analyze(m, q, feedExtended(names, rows, 256))
+		for i, got := range gots {
+			for k, c := range refs[i].Columns {
+				g := got.Columns[k]
 				if g.VIF == nil || g.NearConstant || g.Constant {
-					t.Fatalf("scale %g, %s path: %s: VIF undefined (%s)", scale, pair[1].Path, g.Name, g.Undefined)
+					t.Fatalf("scale %g, %s path: %s: VIF undefined (%s)", scale, got.Path, g.Name, g.Undefined)
 				}
 				if e := relErr(*c.VIF, *g.VIF); e > 1e-9 {
-					t.Errorf("scale %g, %s path: %s: VIF %.15g, unshifted %.15g (rel %.2g)", scale, pair[1].Path, c.Name, *g.VIF, *c.VIF, e)
+					t.Errorf("scale %g, %s path: %s: VIF %.15g, unshifted %.15g (rel %.2g)", scale, got.Path, c.Name, *g.VIF, *c.VIF, e)
+				}
+				if e := relErr(g.SD/scale, c.SD); e > 1e-6 {
+					t.Errorf("scale %g, %s path: %s: sd %g, unshifted %g times the scale", scale, got.Path, c.Name, g.SD, c.SD)
 				}
 			}
-			if pair[1].Rank != 5 {
-				t.Errorf("scale %g, %s path: rank %d, want 5", scale, pair[1].Path, pair[1].Rank)
+			if got.Rank != 5 {
+				t.Errorf("scale %g, %s path: rank %d, want 5", scale, got.Path, got.Rank)
 			}
 		}
 	}
 	// The VIFs are not trivially 1: the data were built collinear.
-	if v := *colByName(t, ref, "pressure_z4").VIF; v < 50 {
+	if v := *colByName(t, refs[0], "pressure_z4").VIF; v < 50 {
 		t.Fatalf("pressure_z4 VIF %g: the test data lost their collinearity", v)
 	}
+}
+
+// Scale invariance (property): the water table with each column multiplied
+// by its own power of two, from 2⁻⁹⁹⁰ to 2⁹⁹⁰ (values from about 1e-297 to
+// 1e303), gives on every path the diagnostics of the table as it is: the
+// same VIFs, condition indices, proportions, rank, trust verdict and
+// t statistics, and means, standard deviations, equations of the exact
+// dependencies and regression coefficients in the columns' own units, each
+// the unscaled one times its power of two. Each column is divided by a
+// power of two from its own magnitude before any product is formed, so the
+// computations are those of the unscaled table; 1e-13 leaves room for
+// norms that round differently at another scale. The report marshals to
+// JSON even where a value (σ² of a target near 1e300) overflows float64.
+func TestScaleInvariance(t *testing.T) {
+	names, rows := waterTable(41, 1500)
+	// Wide apart, but so that every result in the columns' own units stays
+	// within float64 (a coefficient scales with the ratio of two scales).
+	exp := map[string]int{
+		"temperature": 700, "rainfall": -300, "population_served": -400, "residential_connections": 980,
+		"commercial_connections": 700, "total_connections": 990, "pipe_age": 512, "pressure_z1": -380,
+		"pressure_z2": 0, "pressure_z3": -990, "metered_volume": 600, "billed_volume": -400,
+	}
+	scaled := make([][]float64, len(rows))
+	for i, r := range rows {
+		scaled[i] = make([]float64, len(r))
+		for j, v := range r {
+			scaled[i][j] = math.Ldexp(v, exp[names[j]])
+			if math.Ldexp(scaled[i][j], -exp[names[j]]) != v {
+				t.Fatalf("%s: %v times 2^%d is not exact", names[j], v, exp[names[j]])
+			}
+		}
+	}
+	cols := []string{"temperature", "rainfall", "population_served", "residential_connections", "commercial_connections",
+		"total_connections", "pipe_age", "pressure_z1", "pressure_z2", "pressure_z3", "billed_volume"}
+	opt := Options{Columns: cols, Target: "metered_volume",
+		Groups: map[string][]string{"weather": {"temperature", "rainfall"}}}
+	// Reference SDs in the columns' own units: a fifth of the sample's for
+	// rainfall and pipe age (so that they vary too little by the rule), as
+	// much for the others.
+	refSD := func(k func(string) int) map[string]float64 {
+		sd := map[string]float64{}
+		for j, name := range names {
+			mean, ss := 0.0, 0.0
+			for _, r := range rows {
+				mean += r[j] / float64(len(rows))
+			}
+			for _, r := range rows {
+				ss += (r[j] - mean) * (r[j] - mean)
+			}
+			f := 1.0
+			if name == "rainfall" || name == "pipe_age" {
+				f = 5
+			}
+			sd[name] = math.Ldexp(f*math.Sqrt(ss/float64(len(rows)-1)), k(name))
+		}
+		return sd
+	}
+	analyze := func(rows [][]float64, k func(string) int) []*Report {
+		opt := opt
+		opt.ReferenceSD = refSD(k)
+		m, q := feedRows(names, rows, 200)
+		qr, cp := analyzeBoth(t, m, q, opt)
+		pr, err := Analyze(m, feedExtended(names, rows, 200), opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if _, err := json.Marshal(pr); err != nil {
+			t.Fatalf("precise path: report does not marshal: %v", err)
+		}
+		return []*Report{qr, cp, pr}
+	}
+	const tol = 1e-13
+	refs := analyze(rows, func(string) int { return 0 })
+	gots := analyze(scaled, func(name string) int { return exp[name] })
+	for i, ref := range refs {
+		got := gots[i]
+		label := got.Path
+		compareReports(t, label, &Report{Columns: ref.Columns, ConditionIndices: ref.ConditionIndices,
+			CenteredConditionIndices: ref.CenteredConditionIndices, Proportions: ref.Proportions,
+			CenteredProportions: ref.CenteredProportions, Rank: ref.Rank}, got, tol)
+		if got.Trust.Trustworthy != ref.Trust.Trustworthy || relErr(got.Trust.ExpectedDigits, ref.Trust.ExpectedDigits) > tol {
+			t.Errorf("%s: trust %+v, unscaled %+v", label, got.Trust, ref.Trust)
+		}
+		for k, c := range ref.Columns {
+			g := got.Columns[k]
+			u := math.Ldexp(1, exp[c.Name])
+			if g.Constant != c.Constant || g.NearConstant != c.NearConstant || g.Undefined != c.Undefined {
+				t.Errorf("%s: %s: constant %v, near %v, undefined %q; unscaled %v, %v, %q", label, c.Name,
+					g.Constant, g.NearConstant, g.Undefined, c.Constant, c.NearConstant, c.Undefined)
+			}
+			if relErr(g.Mean/u, c.Mean) > tol || relErr(g.SD/u, c.SD) > tol || g.Min/u != c.Min || g.Max/u != c.Max {
+				t.Errorf("%s: %s: mean %g, sd %g, min %g, max %g; unscaled %g, %g, %g, %g times 2^%d", label, c.Name,
+					g.Mean, g.SD, g.Min, g.Max, c.Mean, c.SD, c.Min, c.Max, exp[c.Name])
+			}
+		}
+		if len(got.Dependencies) != len(ref.Dependencies) {
+			t.Fatalf("%s: %d dependencies, unscaled %d", label, len(got.Dependencies), len(ref.Dependencies))
+		}
+		exact := 0
+		for k, d := range ref.Dependencies {
+			g := got.Dependencies[k]
+			if g.Kind != d.Kind || g.Dependent != d.Dependent || !slices.Equal(g.Columns, d.Columns) {
+				t.Errorf("%s: dependency %+v, unscaled %+v", label, g, d)
+				continue
+			}
+			if d.Kind != KindExact {
+				continue
+			}
+			exact++
+			ud := math.Ldexp(1, exp[d.Dependent])
+			if relErr(*g.Intercept/ud, *d.Intercept) > 1e-9 && math.Abs(*g.Intercept/ud-*d.Intercept) > 1e-9 {
+				t.Errorf("%s: %s: intercept %g, unscaled %g times 2^%d", label, d.Dependent, *g.Intercept, *d.Intercept, exp[d.Dependent])
+			}
+			for term, b := range d.Coefficients {
+				if gb := g.Coefficients[term] / ud * math.Ldexp(1, exp[term]); relErr(gb, b) > 1e-9 {
+					t.Errorf("%s: %s: coefficient of %s %g, unscaled %g times 2^(%d − %d)", label, d.Dependent, term,
+						g.Coefficients[term], b, exp[d.Dependent], exp[term])
+				}
+			}
+		}
+		if exact != 3 {
+			t.Errorf("%s: %d exact dependencies, want the total, the pressure relation and the constant", label, exact)
+		}
+		if len(got.GVIF) != 1 || got.GVIF[0].GVIF == nil || relErr(*got.GVIF[0].GVIF, *ref.GVIF[0].GVIF) > tol {
+			t.Errorf("%s: groups %+v, unscaled %+v", label, got.GVIF, ref.GVIF)
+		}
+		rg, rr := got.Regression, ref.Regression
+		uy := math.Ldexp(1, exp[rr.Target])
+		if rg == nil || len(rg.Coefficients) != len(rr.Coefficients) {
+			t.Fatalf("%s: regression %+v, unscaled %+v", label, rg, rr)
+		}
+		for k, c := range rr.Coefficients {
+			g := rg.Coefficients[k]
+			u := uy
+			if c.Name != InterceptName {
+				u = uy / math.Ldexp(1, exp[c.Name])
+			}
+			if g.Name != c.Name || relErr(g.Estimate/u, c.Estimate) > 1e-10 || relErr(g.StdError/u, c.StdError) > 1e-10 || relErr(g.T, c.T) > 1e-10 {
+				t.Errorf("%s: coefficient %+v, unscaled %+v times %g", label, g, c, u)
+			}
+		}
+		if relErr(rg.Sigma/uy, rr.Sigma) > tol || relErr(rg.R2, rr.R2) > tol {
+			t.Errorf("%s: σ %g, R² %g; unscaled %g, %g", label, rg.Sigma, rg.R2, rr.Sigma, rr.R2)
+		}
+		for k, a := range rr.Attribution {
+			g := rg.Attribution[k]
+			uj := math.Ldexp(1, exp[a.Name])
+			if g.Name != a.Name || g.Inflated != a.Inflated || g.Dominant != a.Dominant ||
+				relErr(g.VariationSeverity, a.VariationSeverity) > 1e-10 || relErr(g.FitSeverity, a.FitSeverity) > 1e-10 ||
+				relErr(g.RedundancySeverity, a.RedundancySeverity) > 1e-10 ||
+				!sameOrCapped(g.SST, a.SST*uj*uj, 1e-10) || !sameOrCapped(g.Variance, a.Variance*(uy/uj)*(uy/uj), 1e-10) {
+				t.Errorf("%s: variance split %+v, unscaled %+v", label, g, a)
+			}
+		}
+		if a := rr.Attribution; !slices.ContainsFunc(a, func(v VarianceSplit) bool { return v.VariationSeverity > 1 }) {
+			t.Errorf("%s: no column varies too little against its reference SD: %+v", label, a)
+		}
+		// σ² of metered volume at 2^600 is about 1e365: beyond float64,
+		// reported as the largest float64 with a note.
+		if rg.Sigma2 != math.MaxFloat64 || !slices.ContainsFunc(got.Notes, func(n string) bool { return strings.Contains(n, "regression.sigma2") }) {
+			t.Errorf("%s: σ² %g, notes %q: want the overflow capped and noted", label, rg.Sigma2, got.Notes)
+		}
+	}
+}
+
+// sameOrCapped reports whether got is want to tol relative, or the largest
+// float64 where want overflowed.
+func sameOrCapped(got, want, tol float64) bool {
+	if math.IsInf(want, 1) {
+		return got == math.MaxFloat64
+	}
+	return relErr(got, want) <= tol
 }
 
 // Exact dependencies built into the generated water table (by construction,

@@ -39,6 +39,19 @@
 // untrustworthy, or promises fewer digits (Trust.ExpectedDigits) than it
 // needs.
 //
+// # Magnitudes
+//
+// The accumulators divide each column by a power of two from its largest
+// magnitude before forming any product (stream.Moments.Scale), and every
+// path works on those scaled columns: the sums of squares of data near
+// 1e-200 do not underflow, those of data near 1e200 do not overflow, and
+// the digits are those of the same data at ordinary scale. VIFs, condition
+// indices, proportions, correlations and ranks do not depend on the units;
+// means, standard deviations, equations and regression results are
+// multiplied back to the columns' own units (exact: powers of two). A
+// result that does not fit float64 even so (σ² of a target near 1e200) is
+// reported as ±1.8e308 with a note, never as NaN or an infinity.
+//
 // # Constant columns and the correlation matrix
 //
 // A column whose minimum equals its maximum is constant; a column whose

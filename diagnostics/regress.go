@@ -360,7 +360,7 @@ func splitVariance(d *design, c *collin, j int, coef Coefficient, tcrit, sigma, 
 	if varY > 0 {
 		vs.FitSeverity = vs.Sigma2 / varY / fitAlarm
 	}
-	sd := d.sd(j)
+	sd := d.own(j, d.sd(j)) // in the column's own units, as the reference
 	if ref, ok := opt.ReferenceSD[name]; ok && ref > 0 && !math.IsInf(ref, 0) {
 		vs.ReferenceSD = fptr(ref)
 		if sd > 0 {
@@ -409,7 +409,7 @@ func splitVariance(d *design, c *collin, j int, coef Coefficient, tcrit, sigma, 
 			name, sd, *vs.ReferenceSD, name, vs.VariationSeverity*opt.VIFLimit)
 	default:
 		vs.Remedy = fmt.Sprintf("σ is %.3g in %s's units against its SD of %.3g (σ² is %.3g of the target's variance): add the relevant explanatory variables that are missing",
-			sigma, tname, math.Sqrt(varY), vs.FitSeverity*fitAlarm)
+			d.own(d.k, sigma), tname, d.own(d.k, math.Sqrt(varY)), vs.FitSeverity*fitAlarm)
 	}
 	return vs
 }

@@ -170,20 +170,24 @@ func (c *Counts) clone() Counts {
 const expMask = 0x7ff0000000000000
 
 // gather copies the valid rows of b into the column-major buffer dst: column
-// j of the copy (j = 0..p−1) is dst[(off+j)*ld : (off+j)*ld+k], holding
-// x − origin[j] (x itself when origin is nil). It records listwise deletion in c, copies the valid rows'
+// j of the copy (j = 0..p−1) is dst[(off+j)*ld : (off+j)*ld+k], holding the
+// raw values. It records listwise deletion in c, copies the valid rows'
 // weights into w (when b is weighted), widens lo and hi to the extremes of
-// the raw values (when they are not nil) and returns k, the number of valid
-// rows. dst must hold (off+p)*ld values with ld ≥ b.Rows, and w b.Rows;
-// lo and hi must be nil when origin is.
+// the valid rows' values and returns k, the number of valid rows. dst must
+// hold (off+p)*ld values with ld ≥ b.Rows, and w b.Rows.
+//
+// The caller then shifts and scales each column (shiftScale) once it knows
+// the scale the extremes call for: no value is combined with another
+// before it is scaled, so nothing overflows on the way.
 //
 // Writing the columns contiguously lets the accumulators work on whole
 // columns: rank-k updates as dot products, Householder reflections as
 // vector operations.
-func gather(b *Block, c *Counts, origin []float64, dst []float64, ld, off int, w, lo, hi []float64) int {
+func gather(b *Block, c *Counts, dst []float64, ld, off int, w, lo, hi []float64) int {
 	p := b.P
 	k := 0
 	dst = dst[off*ld : (off+p)*ld]
+	lo, hi = lo[:p], hi[:p]
 	for i := 0; i < b.Rows; i++ {
 		row := b.Data[i*p : i*p+p]
 		// Adding 1 to the exponent field carries into the sign bit
@@ -226,33 +230,77 @@ func gather(b *Block, c *Counts, origin []float64, dst []float64, ld, off int, w
 			continue
 		}
 		d := dst[k:]
-		if origin == nil {
-			for j, v := range row {
-				d[j*ld] = v
+		for j, v := range row {
+			d[j*ld] = v
+			if v < lo[j] {
+				lo[j] = v
 			}
-			k++
-			continue
-		}
-		org := origin[:len(row)]
-		if lo != nil {
-			lo, hi := lo[:len(row)], hi[:len(row)]
-			for j, v := range row {
-				d[j*ld] = v - org[j]
-				if v < lo[j] {
-					lo[j] = v
-				}
-				if v > hi[j] {
-					hi[j] = v
-				}
-			}
-		} else {
-			for j, v := range row {
-				d[j*ld] = v - org[j]
+			if v > hi[j] {
+				hi[j] = v
 			}
 		}
 		k++
 	}
 	return k
+}
+
+// Column scales. Every accumulator holds each column j divided by a power
+// of two s_j (its scale), chosen from the largest magnitude seen in the
+// column before any product is formed: x/s_j lies in (−4, 4) (in [½, 1)
+// for the largest), so products and their sums neither overflow nor
+// underflow for data anywhere from 1e-300 to 1e300. Multiplying by a power
+// of two is exact in binary floating point (unless the result is
+// subnormal), so the scaled sums carry exactly the digits the unscaled ones
+// would have had where those did not overflow or underflow. When a later
+// block or a merged accumulator holds larger values, the sums kept so far
+// are rescaled to the new power of two, exactly again.
+const (
+	minScaleExp = -1021 // 1/s stays a normal number
+	maxScaleExp = 1022  // so does 1/s
+)
+
+// scaleFor returns the scale for a column whose largest magnitude is mag:
+// the power of two 2^e with mag < 2^e ≤ 2·mag, kept within
+// [2^minScaleExp, 2^maxScaleExp]; 1 for a column of zeros.
+func scaleFor(mag float64) float64 {
+	if mag == 0 || mag != mag {
+		return 1
+	}
+	_, e := math.Frexp(mag)
+	return math.Ldexp(1, min(max(e, minScaleExp), maxScaleExp))
+}
+
+// ScaleFor returns the scale the accumulators give a column whose values
+// lie between lo and hi: the power of two just above the larger of |lo| and
+// |hi| (1 for a column of zeros). Sums computed elsewhere (a database's
+// aggregate) on values divided by it, or by any power of two near it,
+// stay within float64 as the accumulators' own do.
+func ScaleFor(lo, hi float64) float64 { return scaleFor(magnitude(lo, hi)) }
+
+// magnitude returns the larger of |lo| and |hi|.
+func magnitude(lo, hi float64) float64 { return math.Max(math.Abs(lo), math.Abs(hi)) }
+
+// isScale reports whether s is a power of two a column scale may take.
+func isScale(s float64) bool {
+	f, e := math.Frexp(s)
+	return f == 0.5 && e-1 >= minScaleExp && e-1 <= maxScaleExp
+}
+
+// shiftScale sets col[i] to (col[i] − c)/s, computed as col[i]·(1/s) − c/s:
+// the two products are exact and the difference is rounded once, as
+// col[i] − c would be, but nothing can overflow.
+func shiftScale(col []float64, c, s float64) {
+	inv := 1 / s
+	cs := c * inv
+	if cs == 0 {
+		if inv != 1 {
+			floats.Scale(inv, col)
+		}
+		return
+	}
+	for i, v := range col {
+		col[i] = v*inv - cs
+	}
 }
 
 // leading returns the column stride for a column-major copy of rows rows:
@@ -261,31 +309,25 @@ func gather(b *Block, c *Counts, origin []float64, dst []float64, ld, off int, w
 // 8 KiB would) when gather writes a row across them.
 func leading(rows int) int { return (rows+7)&^7 + 8 }
 
-// originOf sets the provisional origin from the k valid rows held, not
-// shifted, in the column-major buffer (column j at buf[(off+j)*ld:]): the
-// column mean, or the column's value when it is the same in every row, so
-// that a column constant over the whole scan shifts to exact zeros and its
-// co-moments come out exactly zero.
-func originOf(origin, buf []float64, ld, off, k int) {
+// originOf sets the provisional origin from the k valid rows held, raw, in
+// the column-major buffer (column j at buf[(off+j)*ld:]): the column mean,
+// or the column's value when it is the same in every row, so that a column
+// constant over the whole scan shifts to exact zeros and its co-moments
+// come out exactly zero. The mean is summed on the values divided by the
+// column's scale, so that the sum cannot overflow.
+func originOf(origin, scale, buf []float64, ld, off, k int) {
 	for j := range origin {
 		col := buf[(off+j)*ld : (off+j)*ld+k]
+		inv := 1 / scale[j]
 		var s float64
 		same := true
 		for _, v := range col {
-			s += v
+			s += v * inv
 			same = same && v == col[0]
 		}
-		origin[j] = s / float64(k)
+		origin[j] = s / float64(k) * scale[j]
 		if same {
 			origin[j] = col[0]
 		}
-	}
-}
-
-// setOrigin sets the origin as originOf does and shifts the buffer by it.
-func setOrigin(origin, buf []float64, ld, off, k int) {
-	originOf(origin, buf, ld, off, k)
-	for j, c := range origin {
-		floats.AddConst(-c, buf[(off+j)*ld:(off+j)*ld+k])
 	}
 }

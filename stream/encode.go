@@ -6,24 +6,36 @@ import (
 	"fmt"
 	"hash/crc32"
 	"math"
+
+	"gonum.org/v1/gonum/floats"
 )
 
-// Encoding (little-endian), version 1:
+// Encoding (little-endian), version 2:
 //
 //	magic "PLMB" | kind byte ('M' moments, 'Q' QR) | version byte | flags byte
 //	p uint32 | p × (name length uint16, name bytes)
 //	used int64 | sum of weights float64 | dropped int64 | bad weights int64
 //	null, nan, inf: p × int64 each
-//	Moments: origin p × f64 | mean − origin p × f64 | co-moment upper triangle p(p+1)/2 × f64 | min p | max p
-//	QR:      origin p × f64 | R upper triangle (p+1)(p+2)/2 × f64
+//	Moments: origin p × f64 | scale p × f64 | (mean − origin)/scale p × f64 |
+//	         co-moment of x/scale, upper triangle p(p+1)/2 × f64 | min p | max p
+//	QR:      origin p × f64 | scale p × f64 | R upper triangle (p+1)(p+2)/2 × f64
 //	         [extended: low parts of R, upper triangle, (p+1)(p+2)/2 × f64]
 //	CRC-32C of all the preceding bytes, uint32
 //
 // Bit 0 of flags records whether the origin is set; bit 1, for QR only,
-// that the factor is extended (double-double).
+// that the factor is extended (double-double). A scale is a power of two
+// within 2^±1022 (1 when no rows were used); that of a Moments column is
+// the one its extremes call for (see scaleFor).
+//
+// Version 1 is version 2 without the scales, the sums kept in the columns'
+// own units (every scale 1). It is still decoded: a Moments is brought to
+// the scales its extremes call for, a QR factor to scales estimated from
+// its origins and column norms (both exact multiplications by powers of
+// two), and either is written back as version 2.
 
 const (
-	encVersion = 1
+	encVersion = 2
+	oldVersion = 1 // still decoded
 	kindMoment = 'M'
 	kindQR     = 'Q'
 	// MaxColumns bounds the columns of a decoded accumulator, so that a
@@ -117,6 +129,7 @@ func (m *Moments) MarshalBinary() ([]byte, error) {
 	e.header(kindMoment, flags, m.names)
 	e.counts(&m.counts)
 	e.f64s(m.origin)
+	e.f64s(m.scale)
 	e.f64s(m.mean)
 	e.upper(m.co, m.p)
 	e.f64s(m.min)
@@ -140,6 +153,7 @@ func (q *QR) MarshalBinary() ([]byte, error) {
 	e.header(kindQR, flags, q.names)
 	e.counts(&q.counts)
 	e.f64s(q.origin)
+	e.f64s(q.scale)
 	e.upper(q.r, q.n)
 	if q.rlo != nil {
 		e.upper(q.rlo, q.n)
@@ -221,51 +235,51 @@ func (d *decoder) upper(dst []float64, n int) {
 }
 
 // header checks the frame (length, checksum, magic, kind, version) and reads
-// the column names.
-func (d *decoder) header(kind byte) (flags byte, names []string) {
+// the version and the column names.
+func (d *decoder) header(kind byte) (version, flags byte, names []string) {
 	if len(d.b) < 4+3+4+4 {
 		d.err = corrupt("%d bytes is shorter than any accumulator", len(d.b))
-		return 0, nil
+		return 0, 0, nil
 	}
 	body := d.b[:len(d.b)-4]
 	if got, want := crc32.Checksum(body, castagnoli), binary.LittleEndian.Uint32(d.b[len(d.b)-4:]); got != want {
 		d.err = corrupt("checksum mismatch (stored %08x, computed %08x)", want, got)
-		return 0, nil
+		return 0, 0, nil
 	}
 	d.b = body
 	if [4]byte(d.b[:4]) != magic {
 		d.err = corrupt("not an accumulator (bad magic)")
-		return 0, nil
+		return 0, 0, nil
 	}
 	d.off = 4
 	if k := d.u8(); k != kind {
 		d.err = corrupt("accumulator kind %q, want %q", k, kind)
-		return 0, nil
+		return 0, 0, nil
 	}
-	if v := d.u8(); v != encVersion {
-		d.err = fmt.Errorf("%w: encoding version %d is not supported (this build reads version %d)", ErrCorrupt, v, encVersion)
-		return 0, nil
+	if version = d.u8(); version != encVersion && version != oldVersion {
+		d.err = fmt.Errorf("%w: encoding version %d is not supported (this build reads versions %d and %d)", ErrCorrupt, version, oldVersion, encVersion)
+		return 0, 0, nil
 	}
 	flags = d.u8()
 	p := d.u32()
 	if p == 0 || p > MaxColumns {
 		d.err = corrupt("%d columns (want 1 to %d)", p, MaxColumns)
-		return 0, nil
+		return 0, 0, nil
 	}
 	names = make([]string, p)
 	for i := range names {
 		l := int(d.u16())
 		if l > maxName {
 			d.err = corrupt("column name of %d bytes", l)
-			return 0, nil
+			return 0, 0, nil
 		}
 		if !d.need(l) {
-			return 0, nil
+			return 0, 0, nil
 		}
 		names[i] = string(d.b[d.off : d.off+l])
 		d.off += l
 	}
-	return flags, names
+	return version, flags, names
 }
 
 func (d *decoder) expectRest(n int) {
@@ -302,8 +316,9 @@ func (d *decoder) counts(c *Counts) {
 }
 
 // state checks what the counts imply about the rest: an origin exactly when
-// rows were used, and a finite one.
-func (d *decoder) state(hasOrg bool, c *Counts, origin []float64) {
+// rows were used, and a finite one; scales that are powers of two in range,
+// 1 without rows.
+func (d *decoder) state(hasOrg bool, c *Counts, origin, scale []float64) {
 	if d.err != nil {
 		return
 	}
@@ -317,18 +332,40 @@ func (d *decoder) state(hasOrg bool, c *Counts, origin []float64) {
 			return
 		}
 	}
+	for j, s := range scale {
+		if !isScale(s) || (!hasOrg && s != 1) {
+			d.err = corrupt("column %d: scale %v (origin set %v)", j, s, hasOrg)
+			return
+		}
+	}
+}
+
+// scales reads the scales of a version-2 encoding; a version-1 one has
+// none (every scale stays 1).
+func (d *decoder) scales(version byte, dst []float64) {
+	if version != oldVersion {
+		d.f64s(dst)
+	}
+}
+
+// scaleBytes is the size of the scales in an encoding of p columns.
+func scaleBytes(version byte, p int) int {
+	if version == oldVersion {
+		return 0
+	}
+	return 8 * p
 }
 
 // UnmarshalMoments decodes an accumulator written by Moments.MarshalBinary.
 // A truncated, corrupted or foreign blob gives an error wrapping ErrCorrupt.
 func UnmarshalMoments(b []byte) (*Moments, error) {
 	d := decoder{b: b}
-	flags, names := d.header(kindMoment)
+	version, flags, names := d.header(kindMoment)
 	if d.err != nil {
 		return nil, d.err
 	}
 	p := len(names)
-	d.expectRest(8*(4+3*p) + 8*(2*p+p*(p+1)/2+2*p))
+	d.expectRest(8*(4+3*p) + scaleBytes(version, p) + 8*(2*p+p*(p+1)/2+2*p))
 	if d.err != nil {
 		return nil, d.err
 	}
@@ -339,11 +376,12 @@ func UnmarshalMoments(b []byte) (*Moments, error) {
 	m.hasOrg = flags&1 != 0
 	d.counts(&m.counts)
 	d.f64s(m.origin)
+	d.scales(version, m.scale)
 	d.f64s(m.mean)
 	d.upper(m.co, p)
 	d.f64s(m.min)
 	d.f64s(m.max)
-	d.state(m.hasOrg, &m.counts, m.origin)
+	d.state(m.hasOrg, &m.counts, m.origin, m.scale)
 	if d.err != nil {
 		return nil, d.err
 	}
@@ -357,6 +395,23 @@ func UnmarshalMoments(b []byte) (*Moments, error) {
 			return nil, corrupt("column %q: extremes %v, %v", names[j], lo, hi)
 		}
 	}
+	if version == oldVersion {
+		// Sums in the columns' own units: bring them to the scales the
+		// extremes call for.
+		if m.hasOrg {
+			for j := range m.scale {
+				m.setScale(j, scaleFor(magnitude(m.min[j], m.max[j])))
+			}
+		}
+		return m, nil
+	}
+	if m.hasOrg {
+		for j, s := range m.scale {
+			if want := scaleFor(magnitude(m.min[j], m.max[j])); s != want {
+				return nil, corrupt("column %q: scale %v, its extremes call for %v", names[j], s, want)
+			}
+		}
+	}
 	return m, nil
 }
 
@@ -364,7 +419,7 @@ func UnmarshalMoments(b []byte) (*Moments, error) {
 // A truncated, corrupted or foreign blob gives an error wrapping ErrCorrupt.
 func UnmarshalQR(b []byte) (*QR, error) {
 	d := decoder{b: b}
-	flags, names := d.header(kindQR)
+	version, flags, names := d.header(kindQR)
 	if d.err != nil {
 		return nil, d.err
 	}
@@ -378,7 +433,7 @@ func UnmarshalQR(b []byte) (*QR, error) {
 	if extended {
 		tri *= 2
 	}
-	d.expectRest(8*(4+3*p) + 8*(p+tri))
+	d.expectRest(8*(4+3*p) + scaleBytes(version, p) + 8*(p+tri))
 	if d.err != nil {
 		return nil, d.err
 	}
@@ -389,13 +444,34 @@ func UnmarshalQR(b []byte) (*QR, error) {
 	q.hasOrg = flags&1 != 0
 	d.counts(&q.counts)
 	d.f64s(q.origin)
+	d.scales(version, q.scale)
 	d.upper(q.r, n)
 	if extended {
 		d.upper(q.rlo, n)
 	}
-	d.state(q.hasOrg, &q.counts, q.origin)
+	d.state(q.hasOrg, &q.counts, q.origin, q.scale)
 	if d.err != nil {
 		return nil, d.err
+	}
+	if version == oldVersion && q.hasOrg {
+		// R in the columns' own units. A factor keeps no extremes: scale
+		// each column by its origin or its root mean square deviation,
+		// whichever is larger, the magnitude the column's values are
+		// about.
+		for j, c := range q.origin {
+			col := make([]float64, j+2)
+			for i := range col {
+				col[i] = q.r[i*n+j+1]
+			}
+			mag := math.Abs(c)
+			if r00 := math.Abs(q.r[0]); r00 > 0 {
+				mag = math.Max(mag, floats.Norm(col[1:], 2)/r00)
+			}
+			if !(mag < math.Inf(1)) {
+				mag = 0
+			}
+			q.setScale(j, scaleFor(mag))
+		}
 	}
 	return q, nil
 }

@@ -6,6 +6,8 @@ import (
 	"hash/crc32"
 	"math"
 	"math/rand/v2"
+	"os"
+	"path/filepath"
 	"strings"
 	"testing"
 )
@@ -262,7 +264,7 @@ func TestDecodeCorrupt(t *testing.T) {
 	}{
 		{"moments as factor", m, true, "kind"},
 		{"factor as moments", q, false, "kind"},
-		{"version 2", withByte(m, 5, 2), false, "version 2"},
+		{"version 3", withByte(m, 5, 3), false, "version 3"},
 		{"version 0", withByte(q, 5, 0), true, "version 0"},
 		{"bad magic", withByte(m, 0, 'X'), false, "magic"},
 		{"unknown flags", withByte(m, 6, 3), false, "flags"},
@@ -379,7 +381,16 @@ func fuzzDecode[T any](t *testing.T, b []byte, decode func([]byte) (*T, error), 
 		if err != nil {
 			t.Fatalf("decoded value does not encode: %v", err)
 		}
-		if string(again) != string(blob) {
+		if blob[5] == oldVersion {
+			// Written back in the current version, which then holds.
+			w, err := decode(again)
+			if err != nil {
+				t.Fatalf("re-encoded version-1 value does not decode: %v", err)
+			}
+			if more, _ := marshal(w); string(more) != string(again) {
+				t.Fatal("re-encoded version-1 value re-encodes differently")
+			}
+		} else if string(again) != string(blob) {
 			t.Fatal("decoded value re-encodes differently")
 		}
 		use(v)
@@ -394,6 +405,9 @@ func fuzzSeeds(f *testing.F) {
 		c[len(c)/3] ^= 0x10
 		f.Add(c)
 		f.Add(reseal(append(append([]byte(nil), b[:len(b)-4]...), 0, 0, 0, 0, 0)))
+	}
+	for _, b := range v1Blobs(f) {
+		f.Add(b)
 	}
 	f.Add([]byte{})
 	f.Add([]byte("PLMBM\x01\x00"))
@@ -411,4 +425,135 @@ func FuzzUnmarshalQR(f *testing.F) {
 	f.Fuzz(func(t *testing.T, b []byte) {
 		fuzzDecode(t, b, UnmarshalQR, (*QR).MarshalBinary, exerciseQR)
 	})
+}
+
+// v1Blobs reads the version-1 encodings kept in testdata/v1: the sample
+// accumulators of sampleMoments and sampleQR as the version-1 encoder wrote
+// them (file "moments-one_column.bin" is sample "moments/one column"), and
+// tinyRows' accumulators ("moments-scaled_2p-300.bin",
+// "qr-extended_scaled_2p-300.bin").
+func v1Blobs(t testing.TB) map[string][]byte {
+	files, err := filepath.Glob("testdata/v1/*.bin")
+	if err != nil || len(files) == 0 {
+		t.Fatalf("no version-1 encodings in testdata/v1 (%v)", err)
+	}
+	out := map[string][]byte{}
+	for _, f := range files {
+		b, err := os.ReadFile(f)
+		if err != nil {
+			t.Fatal(err)
+		}
+		name := strings.TrimSuffix(filepath.Base(f), ".bin")
+		name = strings.Replace(name, "-", "/", 1)
+		out[strings.ReplaceAll(name, "_", " ")] = b
+	}
+	return out
+}
+
+// tinyRows are the rows of the version-1 "scaled 2p-300" accumulators: 300
+// rows of waterColumns (seed 104) times 2⁻³⁰⁰ (exact), values about 1e-89,
+// whose co-moments (about 1e-178 and below) a version-1 encoding holds in
+// the columns' own units.
+func tinyRows() [][]float64 {
+	rows := genRows(rand.New(rand.NewPCG(104, 0)), 300, waterColumns)
+	for _, r := range rows {
+		for j := range r {
+			r[j] = math.Ldexp(r[j], -300)
+		}
+	}
+	return rows
+}
+
+// TestDecodeVersion1: accumulators stored in the version-1 encoding (in
+// users' state stores) still decode, to the same numbers in the columns'
+// own units as the current code computes from the same rows (bit for bit
+// for the cross-products; to 1e-14 for the factors, whose Householder
+// norms may round differently at another scale), are written back in the
+// current version, and carry on accumulating as a fresh accumulator does
+// (property).
+func TestDecodeVersion1(t *testing.T) {
+	fresh := map[string]any{}
+	for name, m := range sampleMoments() {
+		fresh["moments/"+name] = m
+	}
+	for name, q := range sampleQR() {
+		fresh["qr/"+name] = q
+	}
+	tm := NewMoments(names(waterColumns))
+	feed(tm, tinyRows(), nil, nil, 64)
+	fresh["moments/scaled 2p-300"] = tm
+	tq := NewQRExtended(names(waterColumns))
+	feed(tq, tinyRows(), nil, nil, 64)
+	fresh["qr/extended scaled 2p-300"] = tq
+
+	blobs := v1Blobs(t)
+	if len(blobs) != len(fresh) {
+		t.Fatalf("%d version-1 encodings, %d samples", len(blobs), len(fresh))
+	}
+	for name, blob := range blobs {
+		t.Run(name, func(t *testing.T) {
+			if blob[5] != 1 {
+				t.Fatalf("version byte %d, want 1", blob[5])
+			}
+			var again []byte
+			switch want := fresh[name].(type) {
+			case *Moments:
+				got, err := UnmarshalMoments(blob)
+				if err != nil {
+					t.Fatal(err)
+				}
+				if !sameCounts(&got.counts, &want.counts) || got.hasOrg != want.hasOrg {
+					t.Fatal("counts differ")
+				}
+				for i := 0; i < want.p; i++ {
+					if got.Scale(i) != want.Scale(i) || !sameBits([]float64{got.Mean(i)}, []float64{want.Mean(i)}) || got.Min(i) != want.Min(i) || got.Max(i) != want.Max(i) {
+						t.Errorf("column %d: scale %v, mean %v, min %v, max %v; fresh %v, %v, %v, %v", i,
+							got.Scale(i), got.Mean(i), got.Min(i), got.Max(i), want.Scale(i), want.Mean(i), want.Min(i), want.Max(i))
+					}
+					for j := 0; j < want.p; j++ {
+						if math.Float64bits(got.At(i, j)) != math.Float64bits(want.At(i, j)) {
+							t.Errorf("At(%d,%d) = %v, fresh %v", i, j, got.At(i, j), want.At(i, j))
+						}
+					}
+				}
+				again, err = got.MarshalBinary()
+				if err != nil {
+					t.Fatal(err)
+				}
+				if want.N() > 0 {
+					more := genRows(rand.New(rand.NewPCG(105, 0)), 50, waterColumns[:want.p])
+					feed(got, more, nil, nil, 16)
+					feed(want, more, nil, nil, 16)
+					checkMomentsSame(t, got, want, 1e-15)
+				}
+			case *QR:
+				got, err := UnmarshalQR(blob)
+				if err != nil {
+					t.Fatal(err)
+				}
+				if !sameCounts(&got.counts, &want.counts) || got.hasOrg != want.hasOrg || got.Extended() != want.Extended() {
+					t.Fatal("counts or kind differ")
+				}
+				checkQRSame(t, got, want, 1e-14)
+				again, err = got.MarshalBinary()
+				if err != nil {
+					t.Fatal(err)
+				}
+				if want.N() > 0 {
+					more := genRows(rand.New(rand.NewPCG(105, 0)), 50, waterColumns[:want.p])
+					feed(got, more, nil, nil, 16)
+					feed(want, more, nil, nil, 16)
+					checkQRSame(t, got, want, 1e-14)
+				}
+			default:
+				t.Fatalf("no sample for %q", name)
+			}
+			if again[5] != encVersion {
+				t.Errorf("re-encoded as version %d, want %d", again[5], encVersion)
+			}
+			if err := decodeAny(again); err != nil {
+				t.Errorf("re-encoding does not decode: %v", err)
+			}
+		})
+	}
 }

@@ -22,6 +22,10 @@ import (
 // values are first shifted by a provisional origin (the first block's mean),
 // which the subtraction does exactly for data near it, so a column with mean
 // 1e9 and spread 1 keeps its digits in the means as well as the co-moments.
+// They are also divided by the column's scale (Scale, a power of two from
+// the largest magnitude seen), so that data at 1e-200 or at 1e200 give the
+// same digits as data at 1: the accumulator keeps the co-moments of x/s
+// (ScaledAt), exactly what it would keep for data already at that scale.
 //
 // The zero value is not usable; call NewMoments.
 type Moments struct {
@@ -31,8 +35,9 @@ type Moments struct {
 	counts Counts
 	origin []float64 // provisional origin c, fixed by the first block
 	hasOrg bool
-	mean   []float64 // mean − c
-	co     []float64 // p×p row-major; the upper triangle is maintained
+	scale  []float64 // s: powers of two, set with the origin, grown with max|x|
+	mean   []float64 // (mean − c)/s
+	co     []float64 // p×p row-major, of x/s; the upper triangle is maintained
 	min    []float64
 	max    []float64
 
@@ -53,6 +58,7 @@ func NewMoments(names []string) *Moments {
 		p:      p,
 		counts: newCounts(p),
 		origin: make([]float64, p),
+		scale:  make([]float64, p),
 		mean:   make([]float64, p),
 		co:     make([]float64, p*p),
 		min:    make([]float64, p),
@@ -62,6 +68,7 @@ func NewMoments(names []string) *Moments {
 	for j := range m.min {
 		m.min[j] = math.Inf(1)
 		m.max[j] = math.Inf(-1)
+		m.scale[j] = 1
 	}
 	return m
 }
@@ -86,7 +93,7 @@ func (m *Moments) Mean(j int) float64 {
 	if m.counts.SumWeights == 0 {
 		return math.NaN()
 	}
-	return m.origin[j] + m.mean[j]
+	return m.origin[j] + m.mean[j]*m.scale[j]
 }
 
 // Means copies the column means into dst, sizing it when nil.
@@ -98,10 +105,15 @@ func (m *Moments) Means(dst []float64) []float64 {
 		panic(fmt.Sprintf("stream: Means: dst has %d slots, want %d", len(dst), m.p))
 	}
 	for j := range dst {
-		dst[j] = m.origin[j] + m.mean[j]
+		dst[j] = m.origin[j] + m.mean[j]*m.scale[j]
 	}
 	return dst
 }
+
+// Scale returns the power of two s_j that column j is divided by before
+// any product is formed (1 until rows arrive): the smallest power of two
+// above the column's largest magnitude, within 2^±1022.
+func (m *Moments) Scale(j int) float64 { return m.scale[j] }
 
 // Min and Max return the extremes of column j over the used rows (+Inf and
 // −Inf when no rows were used).
@@ -109,7 +121,9 @@ func (m *Moments) Min(j int) float64 { return m.min[j] }
 func (m *Moments) Max(j int) float64 { return m.max[j] }
 
 // CoMoment returns the centered co-moment matrix in dst, sizing it when dst
-// is nil or empty.
+// is nil or empty. Entries beyond the range of float64 (columns of
+// magnitude about 1e154 and above) are ±Inf: use ScaledAt and Scale for
+// such data.
 func (m *Moments) CoMoment(dst *mat.SymDense) *mat.SymDense {
 	if dst == nil {
 		dst = mat.NewSymDense(m.p, nil)
@@ -120,14 +134,22 @@ func (m *Moments) CoMoment(dst *mat.SymDense) *mat.SymDense {
 	}
 	for i := 0; i < m.p; i++ {
 		for j := i; j < m.p; j++ {
-			dst.SetSym(i, j, m.co[i*m.p+j])
+			dst.SetSym(i, j, m.co[i*m.p+j]*m.scale[i]*m.scale[j])
 		}
 	}
 	return dst
 }
 
-// At returns entry (i, j) of the centered co-moment matrix.
+// At returns entry (i, j) of the centered co-moment matrix, ScaledAt(i, j)
+// times Scale(i)·Scale(j) (±Inf, or 0, where that leaves the range of
+// float64).
 func (m *Moments) At(i, j int) float64 {
+	return m.ScaledAt(i, j) * m.scale[i] * m.scale[j]
+}
+
+// ScaledAt returns entry (i, j) of the centered co-moment matrix of the
+// scaled columns x_i/Scale(i) and x_j/Scale(j), as the accumulator keeps it.
+func (m *Moments) ScaledAt(i, j int) float64 {
 	if i > j {
 		i, j = j, i
 	}
@@ -142,6 +164,9 @@ func (m *Moments) Reset() {
 	clear(m.counts.Inf)
 	clear(m.origin)
 	m.hasOrg = false
+	for j := range m.scale {
+		m.scale[j] = 1
+	}
 	clear(m.mean)
 	clear(m.co)
 	for j := range m.min {
@@ -166,16 +191,21 @@ func (m *Moments) Add(b *Block) {
 		}
 		w = m.w[:ld]
 	}
-	if !m.hasOrg {
-		clear(m.origin)
-	}
-	k := gather(b, &m.counts, m.origin, buf, ld, 0, w, m.min, m.max)
+	k := gather(b, &m.counts, buf, ld, 0, w, m.min, m.max)
 	if k == 0 {
 		return
 	}
 	if !m.hasOrg {
-		setOrigin(m.origin, buf, ld, 0, k)
+		for j := range m.scale {
+			m.scale[j] = scaleFor(magnitude(m.min[j], m.max[j]))
+		}
+		originOf(m.origin, m.scale, buf, ld, 0, k)
 		m.hasOrg = true
+	} else {
+		m.growScales()
+	}
+	for j := 0; j < p; j++ {
+		shiftScale(buf[j*ld:j*ld+k], m.origin[j], m.scale[j])
 	}
 	m.counts.Used += int64(k)
 
@@ -211,6 +241,36 @@ func (m *Moments) Add(b *Block) {
 	cs := blas64.Symmetric{Uplo: blas.Upper, N: p, Stride: p, Data: m.co}
 	blas64.Syrk(blas.NoTrans, 1, blas64.General{Rows: p, Cols: k, Stride: ld, Data: buf}, 1, cs)
 	m.mergeMean(bw, bmean)
+}
+
+// growScales raises the scale of each column whose largest magnitude (from
+// min and max) has reached it.
+func (m *Moments) growScales() {
+	for j, s := range m.scale {
+		if mag := magnitude(m.min[j], m.max[j]); mag >= s {
+			if ns := scaleFor(mag); ns > s {
+				m.setScale(j, ns)
+			}
+		}
+	}
+}
+
+// setScale changes the scale of column j to ns, multiplying its mean and
+// its row and column of the co-moments (the diagonal entry twice) by the
+// ratio of the scales, a power of two: exact unless a result is subnormal,
+// and then negligible beside the column's magnitude.
+func (m *Moments) setScale(j int, ns float64) {
+	p := m.p
+	r := m.scale[j] / ns
+	m.mean[j] *= r
+	for i := 0; i < j; i++ {
+		m.co[i*p+j] *= r
+	}
+	for l := j; l < p; l++ {
+		m.co[j*p+l] *= r
+	}
+	m.co[j*p+j] *= r
+	m.scale[j] = ns
 }
 
 // mergeMean combines the current mean (weight counts.SumWeights, not yet
@@ -251,25 +311,42 @@ func (m *Moments) Merge(o *Moments) {
 		m.min[j] = math.Min(m.min[j], o.min[j])
 		m.max[j] = math.Max(m.max[j], o.max[j])
 	}
-	for i := 0; i < m.p; i++ {
-		for j := i; j < m.p; j++ {
-			m.co[i*m.p+j] += o.co[i*m.p+j]
-		}
-	}
 	sw := m.counts.SumWeights
 	used := m.counts.Used
 	m.counts.add(&o.counts)
 	m.counts.SumWeights = sw
 	m.counts.Used = used + o.counts.Used
-	if o.hasOrg && !m.hasOrg {
+	if !o.hasOrg {
+		return // o has no rows: nothing more to fold in
+	}
+	if !m.hasOrg {
 		copy(m.origin, o.origin)
+		copy(m.scale, o.scale)
 		m.hasOrg = true
+	} else {
+		// The merged extremes decide the scales; o's never exceed them
+		// (its scales come from its own extremes), unless o was built
+		// with larger ones, which m then takes.
+		m.growScales()
+		for j, s := range o.scale {
+			if s > m.scale[j] {
+				m.setScale(j, s)
+			}
+		}
+	}
+	// o's co-moments in m's scales: multiplied by powers of two ≤ 1.
+	for i := 0; i < m.p; i++ {
+		ri := o.scale[i] / m.scale[i]
+		for j := i; j < m.p; j++ {
+			m.co[i*m.p+j] += o.co[i*m.p+j] * ri * (o.scale[j] / m.scale[j])
+		}
 	}
 	if o.counts.SumWeights > 0 {
-		// o's mean in m's frame; the origins are close, so their
-		// difference is exact.
-		for j := range m.bmean {
-			m.bmean[j] = (o.origin[j] - m.origin[j]) + o.mean[j]
+		// o's mean in m's frame; the origins are close, so the difference
+		// of their scaled values is exact.
+		for j, s := range m.scale {
+			inv := 1 / s
+			m.bmean[j] = (o.origin[j]*inv - m.origin[j]*inv) + o.mean[j]*(o.scale[j]*inv)
 		}
 		m.mergeMean(o.counts.SumWeights, m.bmean)
 	}
@@ -283,6 +360,7 @@ func (m *Moments) Clone() *Moments {
 		counts: m.counts.clone(),
 		origin: append([]float64(nil), m.origin...),
 		hasOrg: m.hasOrg,
+		scale:  append([]float64(nil), m.scale...),
 		mean:   append([]float64(nil), m.mean...),
 		co:     append([]float64(nil), m.co...),
 		min:    append([]float64(nil), m.min...),
@@ -312,10 +390,11 @@ func (m *Moments) Select(idx []int) *Moments {
 		s.counts.NaN[a] = m.counts.NaN[i]
 		s.counts.Inf[a] = m.counts.Inf[i]
 		s.origin[a] = m.origin[i]
+		s.scale[a] = m.scale[i]
 		s.mean[a] = m.mean[i]
 		s.min[a], s.max[a] = m.min[i], m.max[i]
 		for b := a; b < q; b++ {
-			s.co[a*q+b] = m.At(i, idx[b])
+			s.co[a*q+b] = m.ScaledAt(i, idx[b])
 		}
 	}
 	return s

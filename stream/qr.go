@@ -13,11 +13,13 @@ import (
 
 // QR accumulates the R factor of the design [1 X] for the named columns
 // (a target, when there is one, is simply the last column): the upper
-// triangular R with RᵀR = AᵀA, where row i of A is √w_i·(1, x_i − c) and c is
-// a provisional origin fixed by the first block. It is updated by
-// re-factoring R stacked on each block (TSQR), so the condition number of
-// the data is never squared. The trailing p×p block of R is the R factor of
-// the centered data; R(1,1) is √(Σw).
+// triangular R with RᵀR = AᵀA, where row i of A is √w_i·(1, (x_i − c)/s), c is
+// a provisional origin fixed by the first block and s the columns' scales
+// (Scale: powers of two from the largest magnitudes seen, grown, with R's
+// columns rescaled exactly, when later rows are larger; see Moments). It
+// is updated by re-factoring R stacked on each block (TSQR), so the
+// condition number of the data is never squared. The trailing p×p block of
+// R is the R factor of the centered scaled data; R(1,1) is √(Σw).
 //
 // An extended factor (NewQRExtended) keeps R and applies the reflections in
 // double-double arithmetic (about 32 significant digits), so that R, rounded
@@ -36,13 +38,16 @@ type QR struct {
 	counts Counts
 	origin []float64 // c, per data column
 	hasOrg bool
+	scale  []float64 // s, per data column
 	r      []float64 // n×n row-major upper triangular
 	rlo    []float64 // extended: the low parts of r; nil otherwise
 
-	// scratch: the block's columns (and their low parts), its weights
-	buf []float64
-	blo []float64
-	w   []float64
+	// scratch: the block's columns (and their low parts), its weights,
+	// its extremes
+	buf    []float64
+	blo    []float64
+	w      []float64
+	lo, hi []float64
 }
 
 // NewQR returns an empty QR accumulator for the named columns.
@@ -52,14 +57,21 @@ func NewQR(names []string) *QR {
 		panic("stream: NewQR with no columns")
 	}
 	n := p + 1
-	return &QR{
+	q := &QR{
 		names:  append([]string(nil), names...),
 		p:      p,
 		n:      n,
 		counts: newCounts(p),
 		origin: make([]float64, p),
+		scale:  make([]float64, p),
 		r:      make([]float64, n*n),
+		lo:     make([]float64, p),
+		hi:     make([]float64, p),
 	}
+	for j := range q.scale {
+		q.scale[j] = 1
+	}
+	return q
 }
 
 // NewQRExtended returns an empty QR accumulator for the named columns that
@@ -88,9 +100,13 @@ func (q *QR) N() int64 { return q.counts.Used }
 // Origin returns the provisional origin c of column j.
 func (q *QR) Origin(j int) float64 { return q.origin[j] }
 
+// Scale returns the power of two s_j that column j is divided by (1 until
+// rows arrive).
+func (q *QR) Scale(j int) float64 { return q.scale[j] }
+
 // R returns the (p+1)×(p+1) upper triangular factor in dst, sizing it when
 // dst is nil or empty. Column 0 is the intercept; column j+1 is data column j
-// shifted by Origin(j).
+// shifted by Origin(j) and divided by Scale(j).
 func (q *QR) R(dst *mat.TriDense) *mat.TriDense {
 	if dst == nil {
 		dst = mat.NewTriDense(q.n, mat.Upper, nil)
@@ -122,20 +138,16 @@ func (q *QR) Add(b *Block) {
 		}
 		w = q.w[:ld]
 	}
-	if q.rlo != nil {
-		q.addExtended(b, buf, w, ld)
-		return
-	}
-	if !q.hasOrg {
-		clear(q.origin)
-	}
-	k := gather(b, &q.counts, q.origin, buf, ld, 1, w, nil, nil)
+	k := q.gather(b, buf, w, ld)
 	if k == 0 {
 		return
 	}
-	if !q.hasOrg {
-		setOrigin(q.origin, buf, ld, 1, k)
-		q.hasOrg = true
+	if q.rlo != nil {
+		q.addExtended(buf, w, ld, k)
+		return
+	}
+	for j := 0; j < q.p; j++ {
+		shiftScale(buf[(j+1)*ld:(j+1)*ld+k], q.origin[j], q.scale[j])
 	}
 	q.counts.Used += int64(k)
 	// Column 0 is the intercept; rows are scaled by √w.
@@ -163,27 +175,71 @@ func (q *QR) Add(b *Block) {
 
 var lapackImpl lapackgonum.Implementation
 
-// addExtended is Add in double-double: the shift x − c is formed exactly
-// (as a double-double) and so are the weights' square roots.
-func (q *QR) addExtended(b *Block, buf, w []float64, ld int) {
+// gather copies the block's valid rows, raw, into columns 1..p of buf and
+// fixes the origin and the scales from the first rows, or grows the scales
+// (rescaling R) to the block's extremes; it returns the number of valid
+// rows.
+func (q *QR) gather(b *Block, buf, w []float64, ld int) int {
+	for j := range q.lo {
+		q.lo[j], q.hi[j] = math.Inf(1), math.Inf(-1)
+	}
+	k := gather(b, &q.counts, buf, ld, 1, w, q.lo, q.hi)
+	if k == 0 {
+		return 0
+	}
+	if !q.hasOrg {
+		for j := range q.scale {
+			q.scale[j] = scaleFor(magnitude(q.lo[j], q.hi[j]))
+		}
+		originOf(q.origin, q.scale, buf, ld, 1, k)
+		q.hasOrg = true
+		return k
+	}
+	for j, s := range q.scale {
+		if mag := magnitude(q.lo[j], q.hi[j]); mag >= s {
+			q.growScale(j, scaleFor(mag))
+		}
+	}
+	return k
+}
+
+// growScale raises the scale of column j to ns when ns is larger.
+func (q *QR) growScale(j int, ns float64) {
+	if ns > q.scale[j] {
+		q.setScale(j, ns)
+	}
+}
+
+// setScale changes the scale of column j to ns, multiplying R's column j+1
+// (and its low parts) by the ratio of the scales, a power of two: exact
+// unless an entry becomes subnormal.
+func (q *QR) setScale(j int, ns float64) {
+	r := q.scale[j] / ns
+	n := q.n
+	for i := 0; i <= j+1; i++ {
+		q.r[i*n+j+1] *= r
+		if q.rlo != nil {
+			q.rlo[i*n+j+1] *= r
+		}
+	}
+	q.scale[j] = ns
+}
+
+// addExtended is Add in double-double: the shift (x − c)/s is formed
+// exactly (as a double-double) and so are the weights' square roots.
+func (q *QR) addExtended(buf, w []float64, ld, k int) {
 	n := q.n
 	if cap(q.blo) < n*ld {
 		q.blo = make([]float64, n*ld)
 	}
 	blo := q.blo[:n*ld]
-	k := gather(b, &q.counts, nil, buf, ld, 1, w, nil, nil)
-	if k == 0 {
-		return
-	}
-	if !q.hasOrg {
-		originOf(q.origin, buf, ld, 1, k)
-		q.hasOrg = true
-	}
 	q.counts.Used += int64(k)
 	for j, c := range q.origin {
 		hi, lo := buf[(j+1)*ld:(j+1)*ld+k], blo[(j+1)*ld:(j+1)*ld+k]
+		inv := 1 / q.scale[j]
+		cs := c * inv
 		for i, x := range hi {
-			hi[i], lo[i] = eft.TwoSum(x, -c)
+			hi[i], lo[i] = eft.TwoSum(x*inv, -cs)
 		}
 	}
 	oh, ol := buf[:k], blo[:k]
@@ -268,6 +324,7 @@ func (q *QR) Merge(o *QR) {
 	}
 	if !q.hasOrg {
 		copy(q.origin, o.origin)
+		copy(q.scale, o.scale)
 		copy(q.r, o.r)
 		if q.rlo != nil {
 			clear(q.rlo)
@@ -278,6 +335,11 @@ func (q *QR) Merge(o *QR) {
 		q.hasOrg = true
 		return
 	}
+	// Common scales: the larger of each pair; o's columns are multiplied
+	// by powers of two ≤ 1 below.
+	for j, s := range o.scale {
+		q.growScale(j, s)
+	}
 	if q.rlo != nil {
 		q.mergeExtended(o)
 		return
@@ -287,17 +349,19 @@ func (q *QR) Merge(o *QR) {
 		q.buf = make([]float64, n*n)
 	}
 	st := q.buf[:n*n]
-	// o's R, column-major. Its columns are x − c_o = (x − c_q) − (c_o −
-	// c_q)·1: re-express them in q's origin. Only row 0 of o's R has an
-	// intercept entry.
+	// o's R, column-major, in q's scales. Its columns are (x − c_o)/s =
+	// (x − c_q)/s − ((c_o − c_q)/s)·1: re-express them in q's origin. Only
+	// row 0 of o's R has an intercept entry.
 	for i := 0; i < n; i++ {
-		for l := 0; l < n; l++ {
-			st[l*n+i] = o.r[i*n+l]
+		st[i] = o.r[i*n]
+		for l := 1; l < n; l++ {
+			st[l*n+i] = o.r[i*n+l] * (o.scale[l-1] / q.scale[l-1])
 		}
 	}
 	r00 := o.r[0]
 	for j := 0; j < q.p; j++ {
-		st[(j+1)*n] += (o.origin[j] - q.origin[j]) * r00
+		inv := 1 / q.scale[j]
+		st[(j+1)*n] += (o.origin[j]*inv - q.origin[j]*inv) * r00
 	}
 	tsqr(q.r, n, st, n, n, true)
 	positiveDiagonal(q.r, nil, n)
@@ -316,16 +380,21 @@ func (q *QR) mergeExtended(o *QR) {
 	sh, sl := q.buf[:n*n], q.blo[:n*n]
 	for i := 0; i < n; i++ {
 		for l := 0; l < n; l++ {
-			sh[l*n+i] = o.r[i*n+l]
+			r := 1.0
+			if l > 0 {
+				r = o.scale[l-1] / q.scale[l-1]
+			}
+			sh[l*n+i] = o.r[i*n+l] * r
 			sl[l*n+i] = 0
 			if o.rlo != nil {
-				sl[l*n+i] = o.rlo[i*n+l]
+				sl[l*n+i] = o.rlo[i*n+l] * r
 			}
 		}
 	}
 	r0h, r0l := sh[0], sl[0]
 	for j := 0; j < q.p; j++ {
-		dh, dl := eft.TwoSum(o.origin[j], -q.origin[j])
+		inv := 1 / q.scale[j]
+		dh, dl := eft.TwoSum(o.origin[j]*inv, -q.origin[j]*inv)
 		ph, pl := ddMul(dh, dl, r0h, r0l)
 		sh[(j+1)*n], sl[(j+1)*n] = ddAdd(sh[(j+1)*n], sl[(j+1)*n], ph, pl)
 	}
@@ -341,6 +410,9 @@ func (q *QR) Reset() {
 	clear(q.counts.Inf)
 	clear(q.origin)
 	q.hasOrg = false
+	for j := range q.scale {
+		q.scale[j] = 1
+	}
 	clear(q.r)
 	clear(q.rlo)
 }
@@ -353,6 +425,7 @@ func (q *QR) Clone() *QR {
 	}
 	c.counts = q.counts.clone()
 	copy(c.origin, q.origin)
+	copy(c.scale, q.scale)
 	copy(c.r, q.r)
 	c.hasOrg = q.hasOrg
 	return c

@@ -56,7 +56,7 @@ func TestQRGram(t *testing.T) {
 				t.Errorf("SumWeights %v, Moments says %v", q.Counts().SumWeights, m.SumWeights())
 			}
 
-			r := q.R(nil)
+			r := ownR(q)
 			for i := 0; i <= p; i++ {
 				if r.At(i, i) < 0 {
 					t.Errorf("R(%d,%d) = %v < 0", i, i, r.At(i, i))
@@ -100,7 +100,7 @@ func TestQRGram(t *testing.T) {
 				}
 			}
 			// The means the factor implies.
-			s := summarizeQR(q)
+			s := summarizeQR(q, 0)
 			for j := 0; j < p; j++ {
 				sd := math.Sqrt(ref.co[j][j] / ref.sw)
 				if e := relErr(s.mean[j], ref.mean[j], math.Max(math.Abs(ref.mean[j]), sd)); e > tol {
@@ -217,7 +217,7 @@ func TestQRNearCollinear(t *testing.T) {
 	rss.Sub(p[1][1], rss)
 	want := ratFloat(rss)
 
-	r := q.R(nil)
+	r := ownR(q)
 	got := r.At(2, 2) * r.At(2, 2)
 	if e := relErr(got, want, want); e > 1e-10 {
 		t.Errorf("R(2,2)² = %v, exact RSS %v (rel err %.2g)", got, want, e)
@@ -269,6 +269,9 @@ func exactRtR(q *QR) [][]*big.Rat {
 			v := rat(q.r[i*n+j])
 			if q.rlo != nil {
 				v.Add(v, rat(q.rlo[i*n+j]))
+			}
+			if j > 0 {
+				v.Mul(v, rat(q.scale[j-1]))
 			}
 			r[i][j] = v
 		}
@@ -465,12 +468,13 @@ func TestQRExtendedNearCollinear(t *testing.T) {
 	rss.Sub(p[1][1], rss)
 	r := rat(q.r[8])
 	r.Add(r, rat(q.rlo[8]))
+	r.Mul(r, rat(q.scale[1]))
 	got := new(big.Rat).Mul(r, r)
 	if e := ratRelErr(got, rss, ratFloat(rss)); e > 1e-24 {
 		t.Errorf("(R(2,2))² rel err %.2g against the exact RSS", e)
 	}
 	exact := math.Sqrt(ratFloat(rss))
-	if d := math.Abs(q.R(nil).At(2, 2)-exact) / exact; d > 2.3e-16 {
-		t.Errorf("rounded R(2,2) = %v, √RSS = %v (rel %.2g)", q.R(nil).At(2, 2), exact, d)
+	if d := math.Abs(ownR(q).At(2, 2)-exact) / exact; d > 2.3e-16 {
+		t.Errorf("rounded R(2,2) = %v, √RSS = %v (rel %.2g)", ownR(q).At(2, 2), exact, d)
 	}
 }

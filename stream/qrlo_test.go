@@ -51,13 +51,14 @@ func TestQRLowParts(t *testing.T) {
 		c[j] = q.Origin(j)
 	}
 	want := exactGramRat(rows, w, c)
+	hiOwn, loOwn := ownR(q), ownRLo(q)
 	r := make([][]*big.Rat, n)
 	for i := range r {
 		r[i] = make([]*big.Rat, n)
 		for j := range r[i] {
 			r[i][j] = new(big.Rat)
 			if j >= i {
-				r[i][j].Add(rat(hi.At(i, j)), rat(lo.At(i, j)))
+				r[i][j].Add(rat(hiOwn.At(i, j)), rat(loOwn.At(i, j)))
 			}
 		}
 	}

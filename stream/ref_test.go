@@ -37,8 +37,27 @@ func ratFloat(r *big.Rat) float64 {
 
 // exactMoments is the two-pass reference, in exact rational arithmetic
 // computed in the test. w nil means unit weights.
-func exactMoments(rows [][]float64, w []float64) exactRef {
+func exactMoments(rows [][]float64, w []float64) exactRef { return exactMomentsIn(rows, w, nil) }
+
+// exactMomentsIn is exactMoments with column j measured in units of
+// 2^unit[j] (unit nil: all 0), so that references beyond the range of
+// float64 in the columns' own units can be compared: mean_j/2^unit[j] and
+// co_ab/2^(unit[a]+unit[b]), rounded once.
+func exactMomentsIn(rows [][]float64, w []float64, unit []int) exactRef {
 	p := len(rows[0])
+	pow2 := func(k int) *big.Rat {
+		one := big.NewInt(1)
+		if k >= 0 {
+			return new(big.Rat).SetInt(new(big.Int).Lsh(one, uint(k)))
+		}
+		return new(big.Rat).SetFrac(one, new(big.Int).Lsh(one, uint(-k)))
+	}
+	u := func(j int) int {
+		if unit == nil {
+			return 0
+		}
+		return unit[j]
+	}
 	sw := new(big.Rat)
 	sum := make([]*big.Rat, p)
 	for j := range sum {
@@ -88,12 +107,12 @@ func exactMoments(rows [][]float64, w []float64) exactRef {
 	}
 	ref := exactRef{sw: ratFloat(sw), mean: make([]float64, p), co: make([][]float64, p)}
 	for a := 0; a < p; a++ {
-		ref.mean[a] = ratFloat(mean[a])
+		ref.mean[a] = ratFloat(t.Mul(mean[a], pow2(-u(a))))
 		ref.co[a] = make([]float64, p)
 	}
 	for a := 0; a < p; a++ {
 		for b := a; b < p; b++ {
-			ref.co[a][b] = ratFloat(co[a][b])
+			ref.co[a][b] = ratFloat(t.Mul(co[a][b], pow2(-u(a)-u(b))))
 			ref.co[b][a] = ref.co[a][b]
 		}
 	}
@@ -283,21 +302,42 @@ func checkMomentsSame(t *testing.T, got, want *Moments, tol float64) {
 	}
 }
 
-// qrSummary is what a QR accumulator says independently of its origin:
-// √Σw, the means (c + R₀ⱼ/R₀₀) and the trailing block R₂₂, the R factor of
-// the centered data.
+// ownR returns q's R factor in the columns' own units: column j+1 times
+// Scale(j), which is exact (a power of two).
+func ownR(q *QR) *mat.TriDense { return unscaleR(q, q.R(nil)) }
+
+// ownRLo is ownR for the low parts of an extended factor.
+func ownRLo(q *QR) *mat.TriDense { return unscaleR(q, q.RLo(nil)) }
+
+func unscaleR(q *QR, r *mat.TriDense) *mat.TriDense {
+	for i := 0; i <= q.P(); i++ {
+		for j := max(i, 1); j <= q.P(); j++ {
+			r.SetTri(i, j, r.At(i, j)*q.Scale(j-1))
+		}
+	}
+	return r
+}
+
+// qrSummary is what a QR accumulator says independently of its origin and
+// scales: √Σw, the means (c + R₀ⱼ/R₀₀) and the trailing block R₂₂, the R
+// factor of the centered data, in units of 2^k.
 type qrSummary struct {
 	r00  float64
 	mean []float64
 	r22  *mat.TriDense
 }
 
-func summarizeQR(q *QR) qrSummary {
+func summarizeQR(q *QR, k int) qrSummary {
 	r := q.R(nil)
+	for i := 0; i <= q.P(); i++ {
+		for j := max(i, 1); j <= q.P(); j++ {
+			r.SetTri(i, j, r.At(i, j)*math.Ldexp(q.Scale(j-1), -k))
+		}
+	}
 	p := q.P()
 	s := qrSummary{r00: r.At(0, 0), mean: make([]float64, p), r22: mat.NewTriDense(p, mat.Upper, nil)}
 	for j := 0; j < p; j++ {
-		s.mean[j] = q.Origin(j) + r.At(0, j+1)/r.At(0, 0)
+		s.mean[j] = math.Ldexp(q.Origin(j), -k) + r.At(0, j+1)/r.At(0, 0)
 		for k := j; k < p; k++ {
 			s.r22.SetTri(j, k, r.At(j+1, k+1))
 		}
@@ -313,7 +353,7 @@ func checkQRSame(t *testing.T, got, want *QR, tol float64) {
 	if got.N() != want.N() {
 		t.Errorf("N = %d, want %d", got.N(), want.N())
 	}
-	g, w := summarizeQR(got), summarizeQR(want)
+	g, w := summarizeQR(got, 0), summarizeQR(want, 0)
 	if e := relErr(g.r00, w.r00, w.r00); e > tol {
 		t.Errorf("R00 = %v, want %v", g.r00, w.r00)
 	}

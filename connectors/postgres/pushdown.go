@@ -2,14 +2,17 @@ package postgres
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
 	"strings"
 	"time"
 
 	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgconn"
 
 	"plumb/connectors"
+	"plumb/stream"
 )
 
 // pushStrategy is how the pushdown aggregate stays numerically safe.
@@ -130,40 +133,22 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 		return nil, err
 	}
 
-	// 2. The aggregate over complete rows: first over the rows without
-	// NULLs, again over the finite ones if a NaN or an infinity showed.
+	// 2. The aggregate over complete rows, on values shifted and scaled
+	// by figures from the first rows. Should the first rows be far
+	// smaller than the rest (a product then overflows, which PostgreSQL
+	// reports as an error), the scales are taken from the whole table and
+	// the aggregate runs again.
 	if err := pd.shift(ctx, tx, s, strategy == pushShifted); err != nil {
 		return nil, err
 	}
-	var groups map[gkey]*connectors.Stats
-	for _, cond := range []string{pd.notNull(), pd.ok()} {
-		groups = make(map[gkey]*connectors.Stats, len(order))
-		for _, k := range order {
-			st := pd.newStats()
-			st.Dropped = rowsIn[k] // until the aggregate says how many were used
-			groups[k] = st
+	groups, err := pd.aggregateOnce(ctx, tx, strategy, order, rowsIn)
+	if outOfRange(err) {
+		if err = pd.tableScales(ctx, tx); err == nil {
+			groups, err = pd.aggregateOnce(ctx, tx, strategy, order, rowsIn)
 		}
-		rows, err = tx.Query(ctx, pd.aggSQL(strategy, cond), pgx.QueryResultFormats{pgx.BinaryFormatCode})
-		if err != nil {
-			return nil, s.wrap(err, t.source)
-		}
-		err = forRows(rows, func(v []any) error {
-			k, _ := pd.key(v)
-			if v[2].(int64) == 0 {
-				return nil // an ungrouped aggregate over no rows
-			}
-			st := groups[k]
-			if st == nil {
-				return fmt.Errorf("aggregate returned a group the count did not: %v", k)
-			}
-			return pd.fill(st, v[2:], strategy)
-		})
-		if err != nil {
-			return nil, s.wrap(err, t.source)
-		}
-		if allFinite(groups) {
-			break
-		}
+	}
+	if err != nil {
+		return nil, s.wrap(err, t.source)
 	}
 
 	// 3. Missing counts, only when rows were dropped.
@@ -204,6 +189,64 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 	return res, nil
 }
 
+// aggregateOnce runs the aggregate inside a savepoint, so that an error
+// (a value out of range) leaves the transaction usable for a retry.
+func (pd *push) aggregateOnce(ctx context.Context, tx pgx.Tx, strategy pushStrategy, order []gkey, rowsIn map[gkey]int64) (map[gkey]*connectors.Stats, error) {
+	sp, err := tx.Begin(ctx)
+	if err != nil {
+		return nil, err
+	}
+	groups, err := pd.aggregate(ctx, sp, strategy, order, rowsIn)
+	if err != nil {
+		sp.Rollback(context.Background())
+		return nil, err
+	}
+	return groups, sp.Commit(ctx)
+}
+
+// aggregate runs the aggregate over complete rows: first over the rows
+// without NULLs, again over the finite ones if a NaN or an infinity showed.
+func (pd *push) aggregate(ctx context.Context, tx pgx.Tx, strategy pushStrategy, order []gkey, rowsIn map[gkey]int64) (map[gkey]*connectors.Stats, error) {
+	var groups map[gkey]*connectors.Stats
+	for _, cond := range []string{pd.notNull(), pd.ok()} {
+		groups = make(map[gkey]*connectors.Stats, len(order))
+		for _, k := range order {
+			st := pd.newStats()
+			st.Dropped = rowsIn[k] // until the aggregate says how many were used
+			groups[k] = st
+		}
+		rows, err := tx.Query(ctx, pd.aggSQL(strategy, cond), pgx.QueryResultFormats{pgx.BinaryFormatCode})
+		if err != nil {
+			return nil, err
+		}
+		err = forRows(rows, func(v []any) error {
+			k, _ := pd.key(v)
+			if v[2].(int64) == 0 {
+				return nil // an ungrouped aggregate over no rows
+			}
+			st := groups[k]
+			if st == nil {
+				return fmt.Errorf("aggregate returned a group the count did not: %v", k)
+			}
+			return pd.fill(st, v[2:], strategy)
+		})
+		if err != nil {
+			return nil, err
+		}
+		if allFinite(groups) {
+			break
+		}
+	}
+	return groups, nil
+}
+
+// outOfRange reports whether err is PostgreSQL's "value out of range"
+// (float8 overflow or underflow, SQLSTATE 22003).
+func outOfRange(err error) bool {
+	var pe *pgconn.PgError
+	return errors.As(err, &pe) && pe.Code == "22003"
+}
+
 type gkey struct {
 	bucket int64
 	seg    string
@@ -231,7 +274,8 @@ type push struct {
 	lay     layout
 	inner   string
 	p       int
-	shiftBy []float64
+	shiftBy []float64 // c, per column (0: not shifted)
+	scaleBy []float64 // s, per column: powers of two (stream.ScaleFor)
 }
 
 func newPush(t *target, plan *connectors.Plan, st stmt) (*push, error) {
@@ -336,33 +380,93 @@ func (pd *push) countSQL() string {
 	return "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from() + " GROUP BY bk, sk"
 }
 
-// shift takes provisional means and spreads from the first complete rows
-// (a cheap query: it stops after pushdownShiftRows rows). With all set,
-// every column is shifted; otherwise only those whose mean is large
-// against their spread.
+// shift takes provisional scales, means and spreads from the first
+// complete rows (cheap queries: they stop after pushdownShiftRows rows).
+// The scales come first, from the largest magnitudes, with nothing summed
+// (PostgreSQL's avg and stddev of values near 1e200 overflow); the means
+// and spreads are then taken of the scaled values. With all set, every
+// column is shifted; otherwise only those whose mean is large against
+// their spread.
 func (pd *push) shift(ctx context.Context, tx pgx.Tx, s *Source, all bool) error {
+	sample := " FROM (SELECT * FROM " + pd.from() + " WHERE " + pd.ok() + fmt.Sprintf(" LIMIT %d) AS s", pushdownShiftRows)
 	list := make([]string, 0, 2*pd.p)
 	for j := 0; j < pd.p; j++ {
-		list = append(list, fmt.Sprintf("coalesce(avg(x%d), 0)", j), fmt.Sprintf("coalesce(stddev_pop(x%d), 0)", j))
+		list = append(list, fmt.Sprintf("coalesce(max(abs(x%d)), 0)", j))
 	}
-	q := "SELECT " + strings.Join(list, ", ") + " FROM (SELECT * FROM " + pd.from() + " WHERE " + pd.ok() +
-		fmt.Sprintf(" LIMIT %d) AS s", pushdownShiftRows)
-	mean := make([]float64, pd.p)
+	mag := make([]float64, pd.p)
+	dst := make([]any, pd.p)
+	for j := range mag {
+		dst[j] = &mag[j]
+	}
+	if err := tx.QueryRow(ctx, "SELECT "+strings.Join(list, ", ")+sample).Scan(dst...); err != nil {
+		return s.wrap(err, pd.t.source)
+	}
+	pd.scaleBy = make([]float64, pd.p)
+	pd.shiftBy = make([]float64, pd.p)
+	for j, v := range mag {
+		pd.scaleBy[j] = stream.ScaleFor(0, v)
+	}
+	list = list[:0]
+	for j := 0; j < pd.p; j++ {
+		e := pd.valueExpr(j)
+		list = append(list, fmt.Sprintf("coalesce(avg(%s), 0)", e), fmt.Sprintf("coalesce(stddev_pop(%s), 0)", e))
+	}
+	mean := make([]float64, pd.p) // of the scaled values
 	sd := make([]float64, pd.p)
-	dst := make([]any, 0, 2*pd.p)
+	dst = dst[:0]
 	for j := 0; j < pd.p; j++ {
 		dst = append(dst, &mean[j], &sd[j])
 	}
-	if err := tx.QueryRow(ctx, q).Scan(dst...); err != nil {
+	if err := tx.QueryRow(ctx, "SELECT "+strings.Join(list, ", ")+sample).Scan(dst...); err != nil {
 		return s.wrap(err, pd.t.source)
 	}
-	pd.shiftBy = make([]float64, pd.p)
 	for j := range mean {
 		if all || math.Abs(mean[j]) > shiftRatio*sd[j] {
-			pd.shiftBy[j] = mean[j]
+			pd.shiftBy[j] = mean[j] * pd.scaleBy[j]
 		}
 	}
 	return nil
+}
+
+// tableScales takes the scales from the whole table's complete rows (a
+// full pass of min and max, nothing summed): for when the first rows were
+// not representative of the magnitudes.
+func (pd *push) tableScales(ctx context.Context, tx pgx.Tx) error {
+	list := make([]string, 0, 2*pd.p)
+	for j := 0; j < pd.p; j++ {
+		list = append(list, fmt.Sprintf("coalesce(min(x%d), 0)", j), fmt.Sprintf("coalesce(max(x%d), 0)", j))
+	}
+	lo := make([]float64, pd.p)
+	hi := make([]float64, pd.p)
+	dst := make([]any, 0, 2*pd.p)
+	for j := range lo {
+		dst = append(dst, &lo[j], &hi[j])
+	}
+	if err := tx.QueryRow(ctx, "SELECT "+strings.Join(list, ", ")+" FROM "+pd.from()+" WHERE "+pd.ok()).Scan(dst...); err != nil {
+		return err
+	}
+	for j := range lo {
+		pd.scaleBy[j] = stream.ScaleFor(lo[j], hi[j])
+	}
+	return nil
+}
+
+// valueExpr is column j as aggregated, in the inner SELECT's terms: the
+// value shifted by c and divided by s, computed as x·(1/s) − c/s (two
+// exact products, one rounding, as the stream package's accumulators do,
+// and nothing that can overflow); x itself when c = 0 and s = 1.
+func (pd *push) valueExpr(j int) string {
+	inv := 1 / pd.scaleBy[j]
+	cs := pd.shiftBy[j] * inv
+	switch {
+	case inv == 1 && cs == 0:
+		return fmt.Sprintf("x%d", j)
+	case cs == 0:
+		return fmt.Sprintf("(x%d * %s)", j, float8Literal(inv))
+	case inv == 1:
+		return fmt.Sprintf("(x%d - %s)", j, float8Literal(cs))
+	}
+	return fmt.Sprintf("(x%d * %s - %s)", j, float8Literal(inv), float8Literal(cs))
 }
 
 // grouped reports whether the aggregate has groups: without a time or a
@@ -370,8 +474,8 @@ func (pd *push) shift(ctx context.Context, tx pgx.Tx, s *Source, all bool) error
 func (pd *push) grouped() bool { return pd.plan.Time != nil || pd.plan.Segment != nil }
 
 // aggSQL is the aggregate over the rows meeting cond: per group the rows
-// used, the sums (Σ(x−c), or avg for pushRegr), the cross-products
-// (Σ(x−c)(y−c′), or regr_sxy) and each column's min and max.
+// used, the sums (Σ(x−c)/s, or avg for pushRegr), the cross-products
+// (Σ(x−c)(y−c′)/(s·s′), or regr_sxy) and each column's min and max.
 //
 // The shifted values are computed once per row, in a subquery that
 // PostgreSQL cannot flatten into the aggregate because its select list
@@ -391,9 +495,8 @@ func (pd *push) aggSQL(strategy pushStrategy, cond string) string {
 	for j := 0; j < pd.p; j++ {
 		sub = append(sub, fmt.Sprintf("x%d", j))
 		d[j] = fmt.Sprintf("x%d", j)
-		e := d[j] // d_j in the subquery's own terms
-		if pd.shiftBy[j] != 0 {
-			e = fmt.Sprintf("(x%d - %s)", j, float8Literal(pd.shiftBy[j]))
+		e := pd.valueExpr(j) // d_j in the subquery's own terms
+		if e != d[j] {
 			sub = append(sub, e+fmt.Sprintf(" AS d%d", j))
 			d[j] = fmt.Sprintf("d%d", j)
 			fence = true
@@ -503,7 +606,7 @@ func (pd *push) newStats() *connectors.Stats {
 	return &connectors.Stats{
 		Names: pd.plan.Names(),
 		Null:  make([]int64, p), NaN: make([]int64, p), Inf: make([]int64, p),
-		Origin: make([]float64, p), Sum: make([]float64, p), Cross: make([]float64, p*(p+1)/2),
+		Origin: make([]float64, p), Scale: make([]float64, p), Sum: make([]float64, p), Cross: make([]float64, p*(p+1)/2),
 		Min: make([]float64, p), Max: make([]float64, p),
 	}
 }
@@ -526,6 +629,7 @@ func (pd *push) fill(st *connectors.Stats, v []any, strategy pushStrategy) error
 		st.SumWeights = float64(st.Used)
 		st.Centered = true
 		copy(st.Origin, pd.shiftBy)
+		copy(st.Scale, pd.scaleBy)
 		for j := 0; j < p; j++ {
 			st.Sum[j] = num(v[i]) * st.SumWeights
 			i++
@@ -534,6 +638,7 @@ func (pd *push) fill(st *connectors.Stats, v []any, strategy pushStrategy) error
 		st.SumWeights = num(v[i])
 		i++
 		copy(st.Origin, pd.shiftBy)
+		copy(st.Scale, pd.scaleBy)
 		for j := 0; j < p; j++ {
 			st.Sum[j] = num(v[i])
 			i++

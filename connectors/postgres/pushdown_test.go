@@ -2,6 +2,7 @@ package postgres
 
 import (
 	"context"
+	"math"
 	"testing"
 
 	"plumb/connectors"
@@ -69,6 +70,71 @@ func TestPushdownNonFinite(t *testing.T) {
 				demand.SameResult(t, s.name+" "+r.name, want, got, tol)
 				if want.Merged().Moments.Counts().Dropped == 0 {
 					t.Error("no rows dropped: the table lost its missing values")
+				}
+			})
+		}
+	}
+}
+
+// TestPushdownMagnitudes: columns near 1e-200 and 1e200, whose products
+// underflow or overflow float8 (PostgreSQL reports either as an error), and
+// a column that is zero in the first rows and near 1e250 afterwards (the
+// provisional scales from the first rows are then too small and the
+// aggregate is run again with the whole table's), give through every
+// pushdown strategy the rows and accumulators of streaming, in the
+// columns' scaled units to 1e-12 (1e-9 for shifted sums in groups, as in
+// TestPushdownNonFinite).
+func TestPushdownMagnitudes(t *testing.T) {
+	u := pgtestStart(t)
+	exec(t, u, `CREATE TABLE gauge_log AS
+		SELECT date '2024-05-01' + (i % 30) AS day, 'zone ' || (i % 3) AS zone, i,
+			(3 + sin(i * 0.37)) * 1e-200::float8 AS flow_tiny,
+			(1.5 + 0.5 * sin(i * 0.37) + 0.1 * cos(i * 0.13)) * 1e-200::float8 AS leak_tiny,
+			(50 + 8 * cos(i * 0.11)) * 1e200::float8 AS volume_huge,
+			CASE WHEN i <= 3000 THEN 0 ELSE (2 + sin(i * 0.7)) * 1e250::float8 END AS late_huge
+		FROM generate_series(1, 6000) AS i`,
+		`ANALYZE gauge_log`)
+	ctx := context.Background()
+	stream := openPG(t, u, connectors.Options{})
+	cols := []string{"flow_tiny", "leak_tiny", "volume_huge", "late_huge"}
+	reqs := []struct {
+		name    string
+		req     connectors.Request
+		grouped bool
+	}{
+		{"whole table", connectors.Request{Table: "gauge_log", Columns: cols}, false},
+		{"daily by zone", connectors.Request{Table: "gauge_log", Columns: cols, TimeColumn: "day", Bucket: "day", Segment: "zone"}, true},
+		{"weighted", connectors.Request{Table: "gauge_log", Columns: cols[:3], Weight: "i"}, false},
+	}
+	for _, s := range []struct {
+		name     string
+		strategy pushStrategy
+	}{{"auto", pushAuto}, {"regr", pushRegr}, {"shifted", pushShifted}} {
+		push := openPG(t, u, connectors.Options{Pushdown: true})
+		push.push = s.strategy
+		for _, r := range reqs {
+			if s.strategy == pushRegr && r.req.Weight != "" {
+				continue // the updating aggregates are unweighted
+			}
+			t.Run(s.name+"/"+r.name, func(t *testing.T) {
+				want, err := stream.Scan(ctx, r.req)
+				if err != nil {
+					t.Fatal(err)
+				}
+				got, err := push.Scan(ctx, r.req)
+				if err != nil {
+					t.Fatal(err)
+				}
+				tol := 1e-12
+				if s.strategy == pushShifted && r.grouped {
+					tol = 1e-9
+				}
+				demand.SameResult(t, s.name+" "+r.name, want, got, tol)
+				m := got.Merged().Moments
+				for j := range r.req.Columns {
+					if c := m.ScaledAt(j, j); !(c > 0) || math.IsInf(c, 0) {
+						t.Errorf("column %s: scaled co-moment %v: want a positive finite spread", m.Names()[j], c)
+					}
 				}
 			})
 		}

@@ -66,6 +66,7 @@ func ReadLongley(path string) ([][]float64, error) {
 func Coefficients(q interface {
 	P() int
 	Origin(int) float64
+	Scale(int) float64
 	R(dst *mat.TriDense) *mat.TriDense
 }) []float64 {
 	r := q.R(nil)
@@ -78,9 +79,13 @@ func Coefficients(q interface {
 		}
 		beta[i] = s / r.At(i, i)
 	}
-	// y − c_y = β0 + Σ b_j (x_j − c_j)  ⇒  B0 = c_y + β0 − Σ b_j c_j.
-	b0 := q.Origin(n-1) + beta[0]
+	// R is the factor of the columns (x − c)/s: (y − c_y)/s_y = β0 +
+	// Σ β_j (x_j − c_j)/s_j, so b_j = β_j·s_y/s_j and
+	// B0 = c_y + s_y·β0 − Σ b_j c_j.
+	sy := q.Scale(n - 1)
+	b0 := q.Origin(n-1) + sy*beta[0]
 	for j := 1; j < n; j++ {
+		beta[j] *= sy / q.Scale(j-1)
 		b0 -= beta[j] * q.Origin(j-1)
 	}
 	beta[0] = b0
