@@ -415,6 +415,12 @@ func (s *Store) checkAdvisory(ctx context.Context, l *lease) error {
 	if err != nil {
 		return err
 	}
+	if got && key != l.key {
+		// Not the lock we held (the connection sees another schema).
+		conn.Exec(ctx, `SELECT pg_advisory_unlock($1)`, key)
+		conn.Close(context.Background())
+		return s.loseForGood(l, errors.New("the lock taken again is not the one held: the store's schema differs on the new connection"))
+	}
 	if !got {
 		return s.loseForGood(l, fmt.Errorf("another plumb holds the store now: %s", describeHolder(s.lockInfo(ctx))))
 	}
@@ -434,7 +440,7 @@ func (s *Store) checkAdvisory(ctx context.Context, l *lease) error {
 		}
 		return s.loseForGood(l, fmt.Errorf("another plumb held the store meanwhile: %s", describeHolder(s.lockInfo(ctx))))
 	}
-	l.conn, l.key = conn, key
+	l.conn = conn // the key is the schema's, as before
 	l.mu.Lock()
 	l.backend = conn.PgConn().PID()
 	l.mu.Unlock()
