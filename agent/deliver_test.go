@@ -93,7 +93,7 @@ func TestDeliveryConcurrencyBounded(t *testing.T) {
 	recv := newHangingReceiver(t)
 	seedOutbox(t, h.store, 12, start)
 	h.del.Concurrency = 3
-	h.del.Notifiers["oncall"] = agent.NotifierConfig{Notifier: &notify.Webhook{URL: recv.srv.URL, Secret: []byte("k")}, Timeout: time.Hour}
+	h.del.Notifiers["oncall"] = agent.NotifierConfig{Notifier: &notify.Webhook{URL: recv.srv.URL, Secrets: []string{"k"}}, Timeout: time.Hour}
 	done := make(chan agent.DeliverResult, 1)
 	go func() {
 		res, err := h.del.Once(context.Background())
@@ -131,7 +131,7 @@ func TestDeadReceiverCostsOneTimeout(t *testing.T) {
 	seedOutbox(t, h.store, 12, start)
 	h.clock.Set(start)
 	h.del.Concurrency = 3
-	h.del.Notifiers["oncall"] = agent.NotifierConfig{Notifier: &notify.Webhook{URL: recv.srv.URL, Secret: []byte("k")},
+	h.del.Notifiers["oncall"] = agent.NotifierConfig{Notifier: &notify.Webhook{URL: recv.srv.URL, Secrets: []string{"k"}},
 		Timeout: 200 * time.Millisecond, MaxAge: 24 * time.Hour}
 	res, err := h.del.Once(context.Background())
 	if err != nil {
@@ -163,7 +163,7 @@ func TestDaemonRunsWhileReceiverHangs(t *testing.T) {
 		r.h.src.addDay(t, d)
 	}
 	recv := newHangingReceiver(t)
-	r.h.del.Notifiers["oncall"] = agent.NotifierConfig{Notifier: &notify.Webhook{URL: recv.srv.URL, Secret: []byte("k")}, Timeout: time.Hour}
+	r.h.del.Notifiers["oncall"] = agent.NotifierConfig{Notifier: &notify.Webhook{URL: recv.srv.URL, Secrets: []string{"k"}}, Timeout: time.Hour}
 	ctx, cancel := context.WithCancel(context.Background())
 	stopped := make(chan error, 1)
 	go func() { stopped <- r.d.Run(ctx) }()
