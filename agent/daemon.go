@@ -2,6 +2,7 @@ package agent
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"log/slog"
 	"math/rand/v2"
@@ -25,7 +26,8 @@ func (realTimer) After(d time.Duration) <-chan time.Time { return time.After(d) 
 // Daemon runs every watch on its cron schedule and delivers the outbox.
 //
 //   - No overlap: a tick that finds the watch's previous run still going is
-//     skipped (and logged).
+//     skipped (and logged). The next tick is set when a run starts, so only
+//     a run that is still going when its next tick comes counts.
 //   - Jitter: each run starts up to Jitter after its tick, so watches on
 //     the same schedule do not hit one database at the same instant.
 //   - Missed runs: at start a watch whose last run is older than its
@@ -34,9 +36,18 @@ func (realTimer) After(d time.Duration) <-chan time.Time { return time.After(d) 
 //     backfills the history).
 //   - Failures: a watch whose runs keep failing backs off (1 minute,
 //     doubling to an hour) and then runs at the next tick.
-//   - Shutdown: when ctx ends no new run starts; runs in flight get Grace
-//     to finish, then their context is cancelled and they are abandoned
-//     without writing anything (the next start redoes them).
+//   - No next tick: a schedule with no time ahead (configuration check
+//     refuses the ones that never fire; the cron library looks only five
+//     years ahead) parks the watch, logged, and is looked at again daily;
+//     it never makes the watch run at once.
+//   - Delivery: the outbox is worked through beside the schedule, never on
+//     its path: a slow or dead receiver delays no run. It is kicked after
+//     every run and every DeliverEvery.
+//   - Shutdown: when ctx ends no new run starts and delivery stops (an
+//     attempt cut short does not count; the outbox keeps the entry); runs
+//     in flight get Grace to finish, then their context is cancelled and
+//     they are abandoned without writing anything (the next start redoes
+//     them).
 type Daemon struct {
 	Runner    *Runner
 	Deliverer *Deliverer
@@ -56,10 +67,16 @@ type Daemon struct {
 type watchSched struct {
 	w        *config.Watch
 	sched    cron.Schedule
-	next     time.Time
+	next     time.Time // the next tick; for a parked watch, when to look again
+	parked   bool      // the schedule had no next tick
 	running  bool
-	failures int // consecutive failed runs
+	started  time.Time // the tick of the run in flight
+	failures int       // consecutive failed runs
 }
+
+// parkedRecheck is how often a watch whose schedule has no next tick is
+// looked at again.
+const parkedRecheck = 24 * time.Hour
 
 // failureBackoff is how long a watch whose runs keep failing waits at
 // least before its next run: 1 minute after the first failure, doubling to
@@ -73,6 +90,13 @@ func failureBackoff(failures int) time.Duration {
 		d *= 2
 	}
 	return min(d, time.Hour)
+}
+
+// nextTick is the schedule's first tick after t; ok is false when it has
+// none (the library gives the zero time) or gives one that is not later.
+func nextTick(s cron.Schedule, t time.Time) (time.Time, bool) {
+	n := s.Next(t)
+	return n, !n.IsZero() && n.After(t)
 }
 
 type runDone struct {
@@ -108,26 +132,42 @@ func (d *Daemon) Run(ctx context.Context) error {
 		grace = 30 * time.Second
 	}
 
+	// advance sets the watch's next tick after t, or parks it.
+	advance := func(x *watchSched, t time.Time) {
+		if n, ok := nextTick(x.sched, t); ok {
+			if x.parked {
+				log.Info("schedule has a next run again", "watch", x.w.Name, "schedule", x.w.Schedule, "next", n.UTC().Format(time.RFC3339))
+			}
+			x.next, x.parked = n, false
+			return
+		}
+		if !x.parked {
+			log.Error("schedule has no next run: the watch is not scheduled until it has one; fix its schedule",
+				"watch", x.w.Name, "schedule", x.w.Schedule, "after", t.UTC().Format(time.RFC3339))
+		}
+		x.next, x.parked = t.Add(parkedRecheck), true
+	}
+
 	now := clock.Now()
 	var ws []*watchSched
 	for _, w := range d.Watches {
 		s, err := config.ParseSchedule(w.Schedule, w.Location)
 		if err != nil {
-			return err
+			return fmt.Errorf("watch %q: %w", w.Name, err)
 		}
 		x := &watchSched{w: w, sched: s}
-		x.next = s.Next(now)
 		runs, err := d.Runner.Store.Runs(ctx, w.Name, 1)
 		if err != nil {
 			return err
 		}
-		switch {
-		case len(runs) == 0:
+		if len(runs) == 0 {
 			x.next = now
 			log.Info("first run now", "watch", w.Name)
-		case !s.Next(runs[0].StartedAt).After(now):
+		} else if prev, ok := nextTick(s, runs[0].StartedAt); ok && !prev.After(now) {
 			x.next = now
 			log.Info("missed run: running once now", "watch", w.Name, "last_run", runs[0].StartedAt.UTC().Format(time.RFC3339))
+		} else {
+			advance(x, now)
 		}
 		ws = append(ws, x)
 	}
@@ -137,8 +177,10 @@ func (d *Daemon) Run(ctx context.Context) error {
 	done := make(chan runDone)
 	var wg sync.WaitGroup
 	inFlight := 0
-	start := func(x *watchSched) {
+	start := func(x *watchSched, now time.Time) {
 		x.running = true
+		x.started = x.next
+		advance(x, now)
 		inFlight++
 		wg.Add(1)
 		var delay time.Duration
@@ -159,74 +201,87 @@ func (d *Daemon) Run(ctx context.Context) error {
 			done <- runDone{ws: x, out: out, err: err}
 		}()
 	}
-	deliver := func() {
-		if d.Deliverer == nil {
-			return
-		}
-		if _, err := d.Deliverer.Once(ctx); err != nil && ctx.Err() == nil {
-			log.Warn("delivering notifications", "err", err)
-		}
+
+	// Delivery runs beside the schedule; kick asks it for a pass now.
+	kick := make(chan struct{}, 1)
+	deliverCtx, stopDelivery := context.WithCancel(ctx)
+	defer stopDelivery()
+	var dwg sync.WaitGroup
+	if d.Deliverer != nil {
+		dwg.Add(1)
+		go func() {
+			defer dwg.Done()
+			d.deliverLoop(deliverCtx, kick, timer, deliverEvery, log)
+		}()
 	}
+
 	finish := func(r runDone) {
-		r.ws.running = false
+		x := r.ws
+		x.running = false
 		inFlight--
-		if r.err != nil || r.out != nil && r.out.Err != nil {
-			r.ws.failures++
-		} else {
-			r.ws.failures = 0
+		lost := errors.Is(r.err, ErrLockLost)
+		switch {
+		case lost:
+			// Not the watch's fault: its run could not be recorded.
+		case r.err != nil || r.out != nil && r.out.Err != nil:
+			x.failures++
+		default:
+			x.failures = 0
 		}
-		now := clock.Now()
-		r.ws.next = r.ws.sched.Next(now)
-		if r.ws.failures > 0 {
+		if x.failures > 0 && !x.parked {
 			// The first tick at or after the backoff.
-			if after := r.ws.sched.Next(now.Add(failureBackoff(r.ws.failures) - time.Second)); after.After(r.ws.next) {
-				r.ws.next = after
+			now := clock.Now()
+			if after, ok := nextTick(x.sched, now.Add(failureBackoff(x.failures)-time.Second)); ok && after.After(x.next) {
+				x.next = after
 			}
 		}
 		if d.OnRun != nil {
-			d.OnRun(r.ws.w, r.out, r.err)
+			d.OnRun(x.w, r.out, r.err)
 		}
-		if r.err != nil && ctx.Err() == nil {
-			log.Error("run could not be recorded", "watch", r.ws.w.Name, "err", r.err)
+		switch {
+		case r.err == nil || ctx.Err() != nil:
+		case lost:
+			log.Error("run not recorded: this agent does not hold the state store's lock", "watch", x.w.Name, "err", r.err)
+		default:
+			log.Error("run could not be recorded", "watch", x.w.Name, "err", r.err)
+		}
+		select {
+		case kick <- struct{}{}:
+		default:
 		}
 	}
 
-	nextDeliver := now
 	for ctx.Err() == nil {
 		now = clock.Now()
 		for _, x := range ws {
 			if x.next.After(now) {
 				continue
 			}
-			if x.running {
-				log.Warn("tick skipped: the previous run is still going", "watch", x.w.Name)
-				x.next = x.sched.Next(now)
-				continue
+			switch {
+			case x.parked:
+				advance(x, now)
+			case x.running:
+				log.Warn("tick skipped: the previous run is still going", "watch", x.w.Name,
+					"tick", x.next.UTC().Format(time.RFC3339), "run_tick", x.started.UTC().Format(time.RFC3339))
+				advance(x, now)
+			default:
+				start(x, now)
 			}
-			start(x)
 		}
-		if !nextDeliver.After(now) {
-			deliver()
-			nextDeliver = now.Add(deliverEvery)
-		}
-		wake := nextDeliver
+		wake := now.Add(parkedRecheck)
 		for _, x := range ws {
-			if !x.running && x.next.Before(wake) {
+			if x.next.Before(wake) {
 				wake = x.next
 			}
-		}
-		wait := wake.Sub(now)
-		if wait < 0 {
-			wait = 0
 		}
 		select {
 		case <-ctx.Done():
 		case r := <-done:
 			finish(r)
-			deliver()
-		case <-timer.After(wait):
+		case <-timer.After(max(wake.Sub(now), 0)):
 		}
 	}
+	stopDelivery()
 
 	// Shutdown: let the runs in flight finish within the grace period.
 	if inFlight > 0 {
@@ -248,23 +303,44 @@ func (d *Daemon) Run(ctx context.Context) error {
 		}
 	}
 	wg.Wait()
+	dwg.Wait()
 	return nil
 }
 
+// deliverLoop works through the outbox until ctx ends: a pass at once,
+// then one after every kick and every interval.
+func (d *Daemon) deliverLoop(ctx context.Context, kick <-chan struct{}, timer Timer, every time.Duration, log *slog.Logger) {
+	for {
+		if _, err := d.deliverOnce(ctx); err != nil && ctx.Err() == nil {
+			log.Warn("delivering notifications", "err", err)
+		}
+		select {
+		case <-ctx.Done():
+			return
+		case <-kick:
+		case <-timer.After(every):
+		}
+	}
+}
+
+// deliverOnce is one pass; a panic in it is an error, not the end of
+// the agent.
+func (d *Daemon) deliverOnce(ctx context.Context) (res DeliverResult, err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			err = fmt.Errorf("delivery panicked: %v (a bug in plumb; please report it)", p)
+		}
+	}()
+	return d.Deliverer.Once(ctx)
+}
+
+// runOne runs a live run; Runner.Run turns panics into failed runs, and
+// this recover is the last resort that keeps the agent up.
 func (d *Daemon) runOne(ctx context.Context, w *config.Watch) (out *Outcome, err error) {
 	defer func() {
-		if r := recover(); r != nil {
-			out, err = nil, &panicError{watch: w.Name, v: r}
+		if p := recover(); p != nil {
+			out, err = nil, &PanicError{Watch: w.Name, Value: p}
 		}
 	}()
 	return d.Runner.Run(ctx, w, RunOptions{Kind: RunLive})
-}
-
-type panicError struct {
-	watch string
-	v     any
-}
-
-func (e *panicError) Error() string {
-	return fmt.Sprintf("watch %q: run panicked: %v", e.watch, e.v)
 }

@@ -1,10 +1,12 @@
 package agent
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"fmt"
 	"log/slog"
+	"sync"
 	"time"
 )
 
@@ -25,6 +27,12 @@ type NotifierConfig struct {
 // its notifier's timeout; failures are retried with exponential backoff
 // (30 s doubling to at most 1 h) until delivered or too old. Delivery state
 // lives in the store, so a restart resumes where it was.
+//
+// Attempts run at most Concurrency at once. The entries of one alert for
+// one notifier go in order, one at a time. A notifier whose attempt fails
+// for a reason worth retrying (a timeout, a 5xx) gets no more attempts in
+// the same pass: its other entries wait for the next one, so a receiver
+// that hangs costs a pass about one timeout, not one per entry.
 type Deliverer struct {
 	Store     Store
 	Notifiers map[string]NotifierConfig
@@ -32,6 +40,8 @@ type Deliverer struct {
 	Logger    *slog.Logger
 	// BaseDelay and MaxDelay bound the backoff; zero means 30 s and 1 h.
 	BaseDelay, MaxDelay time.Duration
+	// Concurrency is the most attempts in flight at once; 0 means 4.
+	Concurrency int
 }
 
 // Backoff returns the wait after the given number of failed attempts.
@@ -55,83 +65,171 @@ type DeliverResult struct {
 	Delivered, Failed, GaveUp int
 }
 
+// pass is the shared state of one Once.
+type pass struct {
+	d     *Deliverer
+	clock Clock
+	log   *slog.Logger
+
+	mu       sync.Mutex
+	res      DeliverResult
+	err      error           // the first store error
+	failing  map[string]bool // notifiers that failed in this pass
+	progress bool
+}
+
 // Once attempts every entry due now, oldest first.
 func (d *Deliverer) Once(ctx context.Context) (DeliverResult, error) {
-	var res DeliverResult
-	clock := d.Clock
-	if clock == nil {
-		clock = SystemClock{}
+	p := &pass{d: d, clock: d.Clock, log: d.Logger, failing: map[string]bool{}}
+	if p.clock == nil {
+		p.clock = SystemClock{}
 	}
-	log := d.Logger
-	if log == nil {
-		log = slog.Default()
+	if p.log == nil {
+		p.log = slog.Default()
+	}
+	conc := d.Concurrency
+	if conc <= 0 {
+		conc = 4
 	}
 	for {
-		due, err := d.Store.Due(ctx, clock.Now(), 100)
+		due, err := d.Store.Due(ctx, p.clock.Now(), 100)
 		if err != nil {
-			return res, err
+			return p.res, err
 		}
-		if len(due) == 0 {
-			return res, nil
-		}
-		progressed := false
+		// Lanes: the entries of one alert and notifier, in order.
+		var lanes [][]Delivery
+		index := map[[2]string]int{}
 		for _, e := range due {
-			if ctx.Err() != nil {
-				return res, ctx.Err()
-			}
-			nc, ok := d.Notifiers[e.Notifier]
-			attempts := e.Attempts + 1
-			var (
-				retry bool
-				aerr  error
-			)
-			if !ok || nc.Notifier == nil {
-				aerr = fmt.Errorf("notifier %q is not configured any more", e.Notifier)
-			} else {
-				timeout := nc.Timeout
-				if timeout <= 0 {
-					timeout = 10 * time.Second
-				}
-				actx, cancel := context.WithTimeout(ctx, timeout)
-				retry, aerr = nc.Notifier.Notify(actx, e)
-				cancel()
-				if aerr != nil && errors.Is(actx.Err(), context.DeadlineExceeded) && ctx.Err() == nil {
-					retry = true
-				}
-			}
-			now := clock.Now()
-			if aerr == nil {
-				if err := d.Store.Delivered(ctx, e.ID, now); err != nil {
-					return res, err
-				}
-				res.Delivered++
-				progressed = true
+			if p.failing[e.Notifier] {
 				continue
 			}
-			if ctx.Err() != nil {
-				return res, ctx.Err() // shutting down: the attempt does not count
+			k := [2]string{e.Notifier, e.AlertID}
+			i, ok := index[k]
+			if !ok {
+				i = len(lanes)
+				index[k] = i
+				lanes = append(lanes, nil)
 			}
-			maxAge := nc.MaxAge
-			if maxAge <= 0 {
-				maxAge = 24 * time.Hour
-			}
-			next := now.Add(d.Backoff(attempts))
-			giveUp := !retry || next.Sub(e.CreatedAt) > maxAge
-			if err := d.Store.Failed(ctx, e.ID, attempts, next, aerr.Error(), giveUp); err != nil {
-				return res, err
-			}
-			if giveUp {
-				res.GaveUp++
-				log.Error("notification given up", "notifier", e.Notifier, "event", e.EventID, "attempts", attempts, "err", aerr)
-			} else {
-				res.Failed++
-				log.Warn("notification failed; will retry", "notifier", e.Notifier, "event", e.EventID,
-					"attempts", attempts, "next", next.UTC().Format(time.RFC3339), "err", aerr)
-			}
+			lanes[i] = append(lanes[i], e)
 		}
-		if !progressed {
-			// Everything due failed; the next attempts are in the future.
-			return res, nil
+		if len(lanes) == 0 {
+			return p.res, nil
+		}
+		p.progress = false
+		sem := make(chan struct{}, conc)
+		var wg sync.WaitGroup
+		for _, lane := range lanes {
+			sem <- struct{}{}
+			wg.Add(1)
+			go func() {
+				defer wg.Done()
+				defer func() { <-sem }()
+				p.lane(ctx, lane)
+			}()
+		}
+		wg.Wait()
+		if p.err != nil {
+			return p.res, p.err
+		}
+		if ctx.Err() != nil {
+			return p.res, ctx.Err()
+		}
+		if !p.progress {
+			// Everything due failed or waits; the next attempts are later.
+			return p.res, nil
 		}
 	}
+}
+
+// lane attempts one lane's entries in order until one fails.
+func (p *pass) lane(ctx context.Context, lane []Delivery) {
+	for _, e := range lane {
+		p.mu.Lock()
+		stop := p.err != nil || p.failing[e.Notifier]
+		p.mu.Unlock()
+		if stop || ctx.Err() != nil {
+			return
+		}
+		if !p.attempt(ctx, e) {
+			return
+		}
+	}
+}
+
+// attempt tries one entry and records the outcome; it reports whether
+// the entry was delivered.
+func (p *pass) attempt(ctx context.Context, e Delivery) bool {
+	d := p.d
+	nc, ok := d.Notifiers[e.Notifier]
+	attempts := e.Attempts + 1
+	var (
+		retry bool
+		aerr  error
+	)
+	if !ok || nc.Notifier == nil {
+		aerr = fmt.Errorf("notifier %q is not configured any more", e.Notifier)
+	} else {
+		timeout := nc.Timeout
+		if timeout <= 0 {
+			timeout = 10 * time.Second
+		}
+		actx, cancel := context.WithTimeout(ctx, timeout)
+		retry, aerr = notifySafely(actx, nc.Notifier, e)
+		cancel()
+		if aerr != nil && errors.Is(actx.Err(), context.DeadlineExceeded) && ctx.Err() == nil {
+			retry = true
+		}
+	}
+	now := p.clock.Now()
+	if aerr == nil {
+		err := d.Store.Delivered(ctx, e.ID, now)
+		p.mu.Lock()
+		defer p.mu.Unlock()
+		if err != nil {
+			p.err = cmp.Or(p.err, err)
+			return false
+		}
+		p.res.Delivered++
+		p.progress = true
+		return true
+	}
+	if ctx.Err() != nil {
+		return false // shutting down: the attempt does not count
+	}
+	maxAge := nc.MaxAge
+	if maxAge <= 0 {
+		maxAge = 24 * time.Hour
+	}
+	next := now.Add(d.Backoff(attempts))
+	giveUp := !retry || next.Sub(e.CreatedAt) > maxAge
+	err := d.Store.Failed(ctx, e.ID, attempts, next, aerr.Error(), giveUp)
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	if err != nil {
+		p.err = cmp.Or(p.err, err)
+		return false
+	}
+	if retry {
+		p.failing[e.Notifier] = true
+	}
+	if giveUp {
+		p.res.GaveUp++
+		p.log.Error("notification given up", "notifier", e.Notifier, "event", e.EventID, "attempts", attempts, "err", aerr)
+	} else {
+		p.res.Failed++
+		p.log.Warn("notification failed; will retry", "notifier", e.Notifier, "event", e.EventID,
+			"attempts", attempts, "next", next.UTC().Format(time.RFC3339), "err", aerr)
+	}
+	return false
+}
+
+// notifySafely calls the notifier; a panic in it is a failed attempt not
+// worth retrying.
+func notifySafely(ctx context.Context, n Notifier, e Delivery) (retry bool, err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			retry, err = false, fmt.Errorf("notifier panicked: %v (a bug in plumb; please report it)", p)
+		}
+	}()
+	return n.Notify(ctx, e)
 }

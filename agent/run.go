@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"log/slog"
+	"runtime/debug"
 	"slices"
 	"strings"
 	"time"
@@ -92,7 +93,18 @@ type collected struct {
 // Run runs one watch once. A failed run is recorded (and counted towards
 // the blind rule) and returned as Outcome.Err, with a nil error; the error
 // is for a run that could not even be recorded.
-func (r *Runner) Run(ctx context.Context, w *config.Watch, opt RunOptions) (*Outcome, error) {
+//
+// Run is the one place where agent, check and backfill meet a run's
+// panics: a panic while scanning, analyzing or judging is a failed run,
+// recorded like any other with a *PanicError as its error, and the
+// caller goes on with its other watches. A panic elsewhere (reading or
+// writing the store) comes back as a *PanicError with nothing recorded.
+func (r *Runner) Run(ctx context.Context, w *config.Watch, opt RunOptions) (out *Outcome, err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			out, err = nil, r.panicked(w, p)
+		}
+	}()
 	if opt.Kind == "" {
 		opt.Kind = RunLive
 	}
@@ -107,16 +119,42 @@ func (r *Runner) Run(ctx context.Context, w *config.Watch, opt RunOptions) (*Out
 		return nil, err
 	}
 	res := &RunResult{Run: Run{Watch: w.Name, Kind: opt.Kind, StartedAt: started}}
-	col, scanErr := r.collect(ctx, w, opt)
+	var col *collected
+	scanErr := r.guard(w, func() (err error) {
+		col, err = r.collect(ctx, w, opt)
+		return err
+	})
 	if ctx.Err() != nil {
 		// Abandoned (shutdown): record nothing, so the next run redoes it.
 		return nil, fmt.Errorf("watch %q: run abandoned: %w", w.Name, context.Cause(ctx))
 	}
 	ev := newEvaluation(r, w, opt, stored, states)
 	now := r.now()
+	if scanErr == nil {
+		var evalErr error
+		scanErr = r.guard(w, func() error {
+			evalErr = ev.success(ctx, col, now)
+			return nil
+		})
+		if evalErr != nil {
+			return nil, evalErr
+		}
+		if scanErr == nil {
+			scanErr = r.guard(w, func() error { ev.finish(res, now); return nil })
+		}
+		if scanErr != nil {
+			// The rules panicked half way: judge the run afresh, as a
+			// failure, from the stored state.
+			if ev, err = r.freshEvaluation(ctx, w, opt); err != nil {
+				return nil, err
+			}
+			*res = RunResult{Run: Run{Watch: w.Name, Kind: opt.Kind, StartedAt: started}}
+		}
+	}
 	if scanErr != nil {
 		res.Run.Status, res.Run.Error = StatusFailed, scanErr.Error()
 		ev.failure(scanErr, now)
+		ev.finish(res, now)
 		log.Warn("run failed", "err", scanErr, "consecutive_failures", ev.failures)
 	} else {
 		res.Run.Status = StatusOK
@@ -137,19 +175,15 @@ func (r *Runner) Run(ctx context.Context, w *config.Watch, opt RunOptions) (*Out
 		}
 		res.Run.Points = len(res.Points)
 		res.Run.AsOf = col.latest
-		if err := ev.success(ctx, col, now); err != nil {
-			return nil, err
-		}
 		for _, s := range col.skipped {
 			log.Debug("point skipped", "why", s)
 		}
 	}
 	res.Run.FinishedAt = r.now()
-	ev.finish(res, now)
 	if _, err := r.Store.CommitRun(ctx, res); err != nil {
 		return nil, err
 	}
-	out := &Outcome{Run: res.Run, Err: scanErr}
+	out = &Outcome{Run: res.Run, Err: scanErr}
 	for _, a := range ev.openAlerts() {
 		out.Open = append(out.Open, a)
 		if out.Verdict == "" || sevRank(a.Severity) > sevRank(out.Verdict) {
@@ -159,6 +193,47 @@ func (r *Runner) Run(ctx context.Context, w *config.Watch, opt RunOptions) (*Out
 	log.Info("run", "kind", opt.Kind, "status", res.Run.Status, "rows_read", res.Run.RowsRead,
 		"points", res.Run.Points, "open_alerts", len(out.Open), "took", res.Run.FinishedAt.Sub(started).Round(time.Millisecond))
 	return out, nil
+}
+
+// freshEvaluation reads the watch's alerts and rule states again, for a
+// run whose evaluation was left half done.
+func (r *Runner) freshEvaluation(ctx context.Context, w *config.Watch, opt RunOptions) (*evaluation, error) {
+	states, err := r.Store.States(ctx, w.Name)
+	if err != nil {
+		return nil, err
+	}
+	stored, err := r.Store.Alerts(ctx, AlertQuery{Watch: w.Name})
+	if err != nil {
+		return nil, err
+	}
+	return newEvaluation(r, w, opt, stored, states), nil
+}
+
+// PanicError is a run that panicked: a bug in plumb (or in a library it
+// uses) met by some data. The stack goes to the log at debug level.
+type PanicError struct {
+	Watch string
+	Value any
+}
+
+func (e *PanicError) Error() string {
+	return fmt.Sprintf("watch %q: run panicked: %v (a bug in plumb; please report it with the log of a run with debug logging)", e.Watch, e.Value)
+}
+
+// guard runs f and turns a panic in it into a *PanicError.
+func (r *Runner) guard(w *config.Watch, f func() error) (err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			err = r.panicked(w, p)
+		}
+	}()
+	return f()
+}
+
+func (r *Runner) panicked(w *config.Watch, p any) error {
+	r.logger().Error("run panicked", "watch", w.Name, "panic", fmt.Sprint(p))
+	r.logger().Debug("run panicked: stack", "watch", w.Name, "stack", string(debug.Stack()))
+	return &PanicError{Watch: w.Name, Value: p}
 }
 
 func (r *Runner) openSource(ctx context.Context, w *config.Watch) (connectors.Source, string, error) {

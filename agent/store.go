@@ -319,6 +319,12 @@ var (
 // ErrLocked is wrapped by Store.Lock when another process holds the store.
 var ErrLocked = errors.New("the state store is in use by another plumb")
 
+// ErrLockLost is wrapped by the store's writes once this process no longer
+// holds the lock it took (the connection that held it dropped, or another
+// process took the store over): nothing more is written until the lock is
+// re-acquired.
+var ErrLockLost = errors.New("this plumb no longer holds the state store's lock")
+
 // LockedError says who holds the store.
 type LockedError struct {
 	Info *LockInfo // nil when unknown

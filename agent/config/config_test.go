@@ -124,6 +124,9 @@ func TestParseErrors(t *testing.T) {
 		{"six field cron", base + "    schedule: \"0 0 6 * * *\"\n", []string{"line 7", "schedule"}},
 		{"empty cron", base + "    schedule: \"@\"\n", []string{"line 7", "schedule"}},
 		{"tz in cron", base + "    schedule: \"TZ=UTC 0 6 * * *\"\n", []string{"time_zone"}},
+		{"cron on the 31st of February", base + "    schedule: \"0 0 31 2 *\"\n", []string{"line 7", `watch "w"`, `schedule "0 0 31 2 *" never fires`}},
+		{"cron on the 30th of February", base + "    schedule: \"0 0 30 2 *\"\n", []string{"line 7", `watch "w"`, `schedule "0 0 30 2 *" never fires`}},
+		{"cron on the 31st of April", base + "    schedule: \"0 0 31 4 *\"\n", []string{"line 7", `watch "w"`, `schedule "0 0 31 4 *" never fires`}},
 		{"bad duration", base + "    time_column: day\n    window: 3 fortnights\n", []string{"line 8", "duration"}},
 		{"negative duration", base + "    time_column: day\n    lookback: -2d\n", []string{"line 8"}},
 		{"zero span", base + "    time_column: day\n    window: 0\n", []string{"line 8", "0"}},
@@ -321,6 +324,16 @@ func TestDescribe(t *testing.T) {
 	} {
 		if !strings.Contains(out, want) {
 			t.Errorf("description lacks %q:\n%s", want, out)
+		}
+	}
+}
+
+func TestRareSchedulesAccepted(t *testing.T) {
+	// Rare but real dates are schedules; so is the 31st of February when
+	// a day of the week is also named (cron fires on either).
+	for _, spec := range []string{"0 0 29 2 *", "0 0 31 * *", "0 0 31 12 *", "0 0 31 2 1", "0 6 * * *"} {
+		if _, err := ParseSchedule(spec, time.UTC); err != nil {
+			t.Errorf("%q: %v", spec, err)
 		}
 	}
 }

@@ -227,6 +227,14 @@ func ParseSchedule(spec string, loc *time.Location) (s cron.Schedule, err error)
 			ss.Location = loc
 		}
 	}
+	// A spec can name a date that never comes (the 31st of February, the
+	// 31st of April): the library then has no next time, and a scheduler
+	// that asks it would run at once, again and again. Five years from a
+	// fixed day hold every day of the calendar, the 29th of February
+	// included, so a spec with no tick in them has none at all.
+	if from := time.Date(2001, 1, 1, 0, 0, 0, 0, time.UTC); s.Next(from).IsZero() {
+		return nil, fmt.Errorf("schedule %q never fires: no date matches its day of month, month and day of week; pick a day that every such month has", spec)
+	}
 	return s, nil
 }
 

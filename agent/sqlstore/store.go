@@ -444,6 +444,9 @@ func (s *Store) CommitRun(ctx context.Context, r *agent.RunResult) (int64, error
 		return 0, s.wrap("starting the run's transaction", err)
 	}
 	defer tx.Rollback()
+	if err := s.fence(ctx, tx); err != nil {
+		return 0, s.wrap(fmt.Sprintf("the run of %s is not recorded", r.Run.Watch), err)
+	}
 	id, err := s.commit(ctx, tx, r)
 	if err != nil {
 		return 0, s.wrap(fmt.Sprintf("writing the run of %s", r.Run.Watch), err)
@@ -638,6 +641,9 @@ func (s *Store) Due(ctx context.Context, now time.Time, limit int) ([]agent.Deli
 	if limit <= 0 {
 		limit = 100
 	}
+	if err := s.lockGone(); err != nil {
+		return nil, s.wrap("the outbox waits", err)
+	}
 	rows, err := s.db.QueryContext(ctx, s.q(`SELECT `+outboxColumns+` FROM plumb_outbox
 		WHERE delivered_at IS NULL AND given_up_at IS NULL AND next_attempt_at <= ?
 		ORDER BY id LIMIT ?`), now.UnixMicro(), limit)
@@ -688,8 +694,7 @@ func (s *Store) readDeliveries(rows *sql.Rows) ([]agent.Delivery, error) {
 
 // Delivered marks an outbox entry done.
 func (s *Store) Delivered(ctx context.Context, id int64, at time.Time) error {
-	_, err := s.exec(ctx, `UPDATE plumb_outbox SET delivered_at = ?, attempts = attempts + 1, last_error = NULL WHERE id = ?`, at.UnixMicro(), id)
-	return s.wrap("updating the outbox", err)
+	return s.write(ctx, "updating the outbox", `UPDATE plumb_outbox SET delivered_at = ?, attempts = attempts + 1, last_error = NULL WHERE id = ?`, at.UnixMicro(), id)
 }
 
 // Failed records a failed delivery attempt.
@@ -698,7 +703,22 @@ func (s *Store) Failed(ctx context.Context, id int64, attempts int, next time.Ti
 	if giveUp {
 		given = time.Now().UnixMicro()
 	}
-	_, err := s.exec(ctx, `UPDATE plumb_outbox SET attempts = ?, next_attempt_at = ?, last_error = ?, given_up_at = ? WHERE id = ?`,
+	return s.write(ctx, "updating the outbox", `UPDATE plumb_outbox SET attempts = ?, next_attempt_at = ?, last_error = ?, given_up_at = ? WHERE id = ?`,
 		attempts, next.UnixMicro(), lastErr, given, id)
-	return s.wrap("updating the outbox", err)
+}
+
+// write runs one statement in a transaction behind the lock's fence.
+func (s *Store) write(ctx context.Context, what, query string, args ...any) error {
+	tx, err := s.db.BeginTx(ctx, nil)
+	if err != nil {
+		return s.wrap(what, err)
+	}
+	defer tx.Rollback()
+	if err := s.fence(ctx, tx); err != nil {
+		return s.wrap(what, err)
+	}
+	if _, err := tx.ExecContext(ctx, s.q(query), args...); err != nil {
+		return s.wrap(what, err)
+	}
+	return s.wrap(what, tx.Commit())
 }

@@ -16,6 +16,7 @@ import (
 	"plumb/agent/notify"
 	"plumb/agent/sqlstore"
 	"plumb/agent/web"
+	"plumb/connectors"
 )
 
 // Shared by the agent's commands: opening the store, building notifiers,
@@ -24,8 +25,25 @@ import (
 // openStore opens the configured state store, migrating it when migrate
 // is set.
 func openStore(ctx context.Context, c *config.Config, migrate bool, log *slog.Logger) (*sqlstore.Store, error) {
-	return sqlstore.Open(ctx, c.StoreURL(), sqlstore.Options{Migrate: migrate, Logger: log})
+	opt := sqlstore.Options{Migrate: migrate}
+	if log != nil {
+		opt.Logger = log.With("component", "migrations")
+		opt.LockLogger = log.With("component", "store lock")
+	}
+	return sqlstore.Open(ctx, c.StoreURL(), opt)
 }
+
+// newRunner builds the runner of check, backfill and the agent.
+func newRunner(st agent.Store, c *config.Config, log *slog.Logger) *agent.Runner {
+	r := &agent.Runner{Store: st, Config: c, Logger: log}
+	if testOpenSource != nil {
+		r.OpenSource = testOpenSource
+	}
+	return r
+}
+
+// testOpenSource, set by tests only, opens the runners' sources.
+var testOpenSource func(ctx context.Context, url string) (connectors.Source, error)
 
 // lockStore makes this process the store's writer or explains who is.
 func lockStore(ctx context.Context, s agent.Store, holder string) (func() error, error) {
@@ -119,7 +137,7 @@ func runAgent(ctx context.Context, path string, log *slog.Logger, grace, jitter 
 	}
 	// Open and lock with a context of their own: a signal during start-up
 	// should still leave the store consistent.
-	st, err := openStore(context.WithoutCancel(ctx), c, true, log.With("component", "migrations"))
+	st, err := openStore(context.WithoutCancel(ctx), c, true, log)
 	if err != nil {
 		return err
 	}
@@ -130,11 +148,22 @@ func runAgent(ctx context.Context, path string, log *slog.Logger, grace, jitter 
 		return err
 	}
 	defer release()
+	// A lock lost for good (another plumb holds the store now) stops the
+	// agent: it may not write, and the other one runs the watches.
+	ctx, stop := context.WithCancelCause(ctx)
+	defer stop(nil)
+	go func() {
+		select {
+		case <-st.LockLost():
+			stop(st.LockErr())
+		case <-ctx.Done():
+		}
+	}()
 	if jitter == 0 {
 		jitter = -1
 	}
 	d := &agent.Daemon{
-		Runner:    &agent.Runner{Store: st, Config: c, Logger: log.With("component", "runner")},
+		Runner:    newRunner(st, c, log.With("component", "runner")),
 		Deliverer: &agent.Deliverer{Store: st, Notifiers: buildNotifiers(c, log), Logger: log.With("component", "delivery")},
 		Watches:   c.Watches,
 		Logger:    log.With("component", "scheduler"),
@@ -152,6 +181,10 @@ func runAgent(ctx context.Context, path string, log *slog.Logger, grace, jitter 
 	}
 	log.Info("agent started", "watches", len(c.Watches), "pid", os.Getpid())
 	err = d.Run(ctx)
+	if cause := context.Cause(ctx); err == nil && errors.Is(cause, agent.ErrLockLost) {
+		log.Error("agent stopped: the state store's lock was lost", "err", cause)
+		return cause
+	}
 	log.Info("agent stopped")
 	return err
 }

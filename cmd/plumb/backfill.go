@@ -78,7 +78,7 @@ func runBackfill(cmd *cobra.Command, path, name string, from time.Time, notifyAl
 		return err
 	}
 	defer release()
-	r := &agent.Runner{Store: st, Config: c, Logger: log}
+	r := newRunner(st, c, log)
 	out, err := r.Run(ctx, w, agent.RunOptions{Kind: agent.RunBackfill, From: from, Notify: notifyAll})
 	if err != nil {
 		return err

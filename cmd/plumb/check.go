@@ -123,7 +123,7 @@ func runCheck(ctx context.Context, stdout io.Writer, path, name, format string, 
 		return err
 	}
 	defer release()
-	runner := &agent.Runner{Store: st, Config: c, Logger: log}
+	runner := newRunner(st, c, log)
 	var (
 		results []checkResult
 		worst   verdict

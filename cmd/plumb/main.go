@@ -46,7 +46,14 @@ func main() {
 
 // run executes the command line args and returns the exit status; errors
 // are printed to stderr as one line.
-func run(ctx context.Context, args []string, stdout, stderr io.Writer) (code int) {
+func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
+	return execute(ctx, newRoot(), args, stdout, stderr)
+}
+
+// execute runs root with args. A panic that reaches it (a run's panics are
+// failed runs before this) is a bug in plumb: the operator gets one line
+// and exit 70, never a stack trace.
+func execute(ctx context.Context, root *cobra.Command, args []string, stdout, stderr io.Writer) (code int) {
 	defer func() {
 		// A panic is a bug in plumb; the operator gets one line, the
 		// developer the stack with PLUMB_DEBUG=1.
@@ -58,7 +65,6 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) (code int
 			code = exitInternal
 		}
 	}()
-	root := newRoot()
 	root.SetArgs(args)
 	root.SetOut(stdout)
 	root.SetErr(stderr)

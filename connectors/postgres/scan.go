@@ -179,6 +179,14 @@ func (s *Source) partitions(ctx context.Context, tx pgx.Tx, snap string, t *targ
 		go func(i int) {
 			defer wg.Done()
 			var err error
+			defer func() {
+				// Off the caller's goroutine a panic would end the
+				// process: it fails this scan instead.
+				if p := recover(); p != nil {
+					errs[i] = fmt.Errorf("%s: scanning range %d panicked: %v (a bug in plumb; please report it)", t.source, i+1, p)
+					cancel()
+				}
+			}()
 			if i == 0 {
 				err = s.stream(ctx, tx, q, d)
 			} else {
