@@ -40,6 +40,9 @@ func (realTimer) After(d time.Duration) <-chan time.Time { return time.After(d) 
 //     refuses the ones that never fire; the cron library looks only five
 //     years ahead) parks the watch, logged, and is looked at again daily;
 //     it never makes the watch run at once.
+//   - Bounded: at most MaxRuns runs scan at once; the others wait for a
+//     slot (they count as running, so their next tick is skipped if they
+//     are still waiting then).
 //   - Delivery: the outbox is worked through beside the schedule, never on
 //     its path: a slow or dead receiver delays no run. It is kicked after
 //     every run and every DeliverEvery.
@@ -59,6 +62,10 @@ type Daemon struct {
 	Jitter       time.Duration // 0 means 10 s; negative means none
 	DeliverEvery time.Duration // 0 means 15 s
 	Grace        time.Duration // 0 means 30 s
+	// MaxRuns bounds the runs that scan at once (0 means 4): a tick that
+	// finds every slot taken waits for one, so the first runs of many
+	// watches (each backfilling its history) do not all start together.
+	MaxRuns int
 
 	// OnRun, when set, is called after every run (tests).
 	OnRun func(w *config.Watch, out *Outcome, err error)
@@ -174,6 +181,11 @@ func (d *Daemon) Run(ctx context.Context) error {
 
 	runCtx, cancelRuns := context.WithCancel(context.WithoutCancel(ctx))
 	defer cancelRuns()
+	maxRuns := d.MaxRuns
+	if maxRuns <= 0 {
+		maxRuns = 4
+	}
+	slots := make(chan struct{}, maxRuns)
 	done := make(chan runDone)
 	var wg sync.WaitGroup
 	inFlight := 0
@@ -197,7 +209,14 @@ func (d *Daemon) Run(ctx context.Context) error {
 					return
 				}
 			}
+			select {
+			case slots <- struct{}{}:
+			case <-runCtx.Done():
+				done <- runDone{ws: x, err: runCtx.Err()}
+				return
+			}
 			out, err := d.runOne(runCtx, x.w)
+			<-slots
 			done <- runDone{ws: x, out: out, err: err}
 		}()
 	}

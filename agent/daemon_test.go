@@ -284,3 +284,4 @@ func TestDaemonBacksOffFailingSource(t *testing.T) {
 }
 
 var errDown = errors.New("source is down")
+
