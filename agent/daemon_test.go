@@ -284,4 +284,3 @@ func TestDaemonBacksOffFailingSource(t *testing.T) {
 }
 
 var errDown = errors.New("source is down")
-
