@@ -64,9 +64,9 @@ var funcs = template.FuncMap{
 	"legendY":  func(i int) float64 { return float64(i/3) * 20 },
 }
 
-func newPages() (*pages, error) {
+func newPages(logout bool) (*pages, error) {
 	parse := func(name string) (*template.Template, error) {
-		t, err := template.New(name).Funcs(funcs).ParseFS(templateFS, "templates/layout.tmpl", "templates/charts.tmpl", "templates/"+name)
+		t, err := template.New(name).Funcs(funcs).Funcs(template.FuncMap{"logout": func() bool { return logout }}).ParseFS(templateFS, "templates/layout.tmpl", "templates/charts.tmpl", "templates/"+name)
 		if err != nil {
 			return nil, fmt.Errorf("dashboard templates: %w", err)
 		}

@@ -9,6 +9,8 @@ import (
 	"net/http"
 	"strings"
 	"time"
+	"unicode"
+	"unicode/utf8"
 
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/promhttp"
@@ -25,6 +27,17 @@ const TokenEnv = "PLUMB_HTTP_TOKEN"
 // ErrTokenRequired is returned by New for a listen address that is not a
 // loopback address when no token is given.
 var ErrTokenRequired = errors.New("a bearer token is required")
+
+// ErrWeakToken is returned by New for a token too short to resist
+// guessing.
+var ErrWeakToken = errors.New("the bearer token is too weak")
+
+// MinTokenLength is the fewest characters a token may have: 22 random
+// characters of the 64 of base64 carry 132 bits.
+const MinTokenLength = 22
+
+// MakeTokenHint tells how to make a good token.
+const MakeTokenHint = "make one with: head -c 18 /dev/urandom | base64"
 
 // Options configure a Server.
 type Options struct {
@@ -73,7 +86,7 @@ func New(opt Options) (*Server, error) {
 	if err := CheckListen(opt.Listen, opt.Token); err != nil {
 		return nil, err
 	}
-	p, err := newPages()
+	p, err := newPages(opt.Token != "")
 	if err != nil {
 		return nil, err
 	}
@@ -88,17 +101,40 @@ func New(opt Options) (*Server, error) {
 }
 
 // CheckListen reports whether addr may be served with token: any
-// address but a loopback one needs a token.
+// address but a loopback one needs a token, and a token, wherever given,
+// must pass CheckToken.
 func CheckListen(addr, token string) error {
 	host, _, err := net.SplitHostPort(addr)
 	if err != nil {
 		return fmt.Errorf("listen address %q: %w (want host:port, e.g. %s)", addr, err, DefaultListen)
 	}
-	if token != "" || isLoopback(host) {
+	if token != "" {
+		return CheckToken(token)
+	}
+	if isLoopback(host) {
 		return nil
 	}
-	return fmt.Errorf("listen address %q is reachable from other machines, so %w: set %s, or listen on %s",
-		addr, ErrTokenRequired, TokenEnv, DefaultListen)
+	return fmt.Errorf("listen address %q is reachable from other machines, so %w: set %s (%s), or listen on %s",
+		addr, ErrTokenRequired, TokenEnv, MakeTokenHint, DefaultListen)
+}
+
+// CheckToken refuses a token that is easy to guess: shorter than
+// MinTokenLength, with fewer than 8 distinct characters, or holding
+// spaces or control characters (which a header cannot carry intact).
+// Length is what can be checked; the characters must also be random.
+func CheckToken(token string) error {
+	if strings.IndexFunc(token, func(c rune) bool { return unicode.IsSpace(c) || unicode.IsControl(c) }) >= 0 {
+		return fmt.Errorf("%s: %w: it holds spaces or control characters; %s", TokenEnv, ErrWeakToken, MakeTokenHint)
+	}
+	distinct := map[rune]bool{}
+	for _, c := range token {
+		distinct[c] = true
+	}
+	if n := utf8.RuneCountInString(token); n < MinTokenLength || len(distinct) < 8 {
+		return fmt.Errorf("%s: %w: %d characters (%d distinct), want at least %d random ones (128 bits); %s",
+			TokenEnv, ErrWeakToken, n, len(distinct), MinTokenLength, MakeTokenHint)
+	}
+	return nil
 }
 
 func isLoopback(host string) bool {
@@ -169,9 +205,46 @@ func (s *Server) routes(metrics http.Handler) http.Handler {
 	s.ackRoutes(mux)
 	var h http.Handler = mux
 	if s.opt.Token != "" {
-		h = newAuth(s.opt.Token).wrap(h)
+		h = newAuth(s.opt.Token, s.opt.Now).wrap(h)
+	} else {
+		h = loopbackHosts(s.opt.Listen, h)
 	}
 	return securityHeaders(h)
+}
+
+// loopbackHosts guards a listener without a token against DNS rebinding:
+// a web page the operator visits could point its own name at 127.0.0.1
+// and read the reports. Only requests naming this machine's loopback (or
+// the listen address itself) in Host get through; browsers always send
+// the name they resolved.
+func loopbackHosts(listen string, next http.Handler) http.Handler {
+	listenHost, _, _ := net.SplitHostPort(listen)
+	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		if !hostAllowed(r.Host, listenHost) {
+			w.Header().Set("Cache-Control", "no-store")
+			http.Error(w, "421 misdirected request: this dashboard answers only to a loopback host name such as localhost or 127.0.0.1",
+				http.StatusMisdirectedRequest)
+			return
+		}
+		next.ServeHTTP(w, r)
+	})
+}
+
+func hostAllowed(hostport, listenHost string) bool {
+	if hostport == "" {
+		return true // HTTP/1.0 without Host: not a browser
+	}
+	host := hostport
+	if h, _, err := net.SplitHostPort(hostport); err == nil {
+		host = h
+	} else if strings.HasPrefix(host, "[") && strings.HasSuffix(host, "]") {
+		host = host[1 : len(host)-1]
+	}
+	host = strings.TrimSuffix(host, ".")
+	if listenHost != "" && strings.EqualFold(host, strings.Trim(listenHost, "[]")) {
+		return true
+	}
+	return isLoopback(host) || strings.HasSuffix(strings.ToLower(host), ".localhost")
 }
 
 func bearer(h string) (string, bool) {

@@ -76,6 +76,9 @@ func TestPagesRender(t *testing.T) {
 	}
 }
 
+// testToken is a token of the strength New asks for (random base64).
+const testToken = "q7Vt0mX2bLr9sPe4KcWz8uNa"
+
 // f0 is a fixed clock for tests that do not look at times.
 var f0 = time.Date(2026, 9, 30, 12, 0, 0, 0, time.UTC)
 
@@ -93,8 +96,8 @@ func TestListenNeedsToken(t *testing.T) {
 		{"[::]:9464", "", false},
 		{"192.168.1.20:9464", "", false},
 		{"dashboard.internal:9464", "", false},
-		{"0.0.0.0:9464", "s3cret", true},
-		{"192.168.1.20:9464", "s3cret", true},
+		{"0.0.0.0:9464", testToken, true},
+		{"192.168.1.20:9464", testToken, true},
 	}
 	for _, c := range cases {
 		_, err := New(Options{View: &Memory{}, Listen: c.addr, Token: c.token})
@@ -116,7 +119,7 @@ func TestListenNeedsToken(t *testing.T) {
 
 func TestTokenRequired(t *testing.T) {
 	f := buildDemoFixture(t)
-	const token = "c0rrect-horse"
+	const token = testToken
 	s, err := New(Options{View: f.view, Listen: "0.0.0.0:0", Token: token})
 	if err != nil {
 		t.Fatal(err)
@@ -153,7 +156,7 @@ func TestTokenRequired(t *testing.T) {
 }
 
 func TestBrowserLogin(t *testing.T) {
-	const token = "c0rrect-horse"
+	const token = testToken
 	s, err := New(Options{View: &Memory{}, Listen: "0.0.0.0:0", Token: token})
 	if err != nil {
 		t.Fatal(err)

@@ -79,7 +79,7 @@ func startDashboard(ctx context.Context, st agent.Store, c *config.Config, liste
 		Token:  os.Getenv(web.TokenEnv),
 		Logger: log.With("component", "http"),
 	})
-	if errors.Is(err, web.ErrTokenRequired) {
+	if errors.Is(err, web.ErrTokenRequired) || errors.Is(err, web.ErrWeakToken) {
 		return nil, "", usageError{err}
 	}
 	if err != nil {
