@@ -69,6 +69,10 @@ func CleanQuery(query string, d Dialect) (string, error) {
 		tok, pos := sc.next()
 		switch tok {
 		case tokEOF:
+			if kw := leadingWord(q, d); !readKeywords[strings.ToUpper(kw)] {
+				return "", fmt.Errorf("--query: only a SELECT (or WITH … SELECT, VALUES) runs; this statement starts with %q: %w",
+					oneLine(kw, 20), ErrFragment)
+			}
 			return q, nil
 		case tokUnterminated:
 			return "", fmt.Errorf("--query: unterminated quote or comment at byte %d: %w", pos, ErrFragment)
@@ -76,6 +80,40 @@ func CleanQuery(query string, d Dialect) (string, error) {
 			return "", fmt.Errorf("--query: one statement only; a semicolon at byte %d separates statements: %w", pos, ErrFragment)
 		}
 	}
+}
+
+// readKeywords are the words a --query may start with. The database still
+// has the last word: a WITH can hold a writing statement, which the
+// read-only transaction (PostgreSQL) or the statement check (SQLite)
+// refuses.
+var readKeywords = map[string]bool{"SELECT": true, "WITH": true, "VALUES": true}
+
+// leadingWord returns the first word of q after blanks, comments and
+// opening parentheses; "" when q starts with anything else.
+func leadingWord(q string, d Dialect) string {
+	for {
+		q = strings.TrimLeft(q, " \t\r\n\f\v(")
+		if !strings.HasPrefix(q, "--") && !strings.HasPrefix(q, "/*") {
+			break
+		}
+		l := lexer{src: q, d: d}
+		if tok, _ := l.next(); tok != tokComment {
+			return ""
+		}
+		q = q[l.i:]
+	}
+	n := 0
+	for n < len(q) && isIdentByte(q[n]) && q[n] != '$' {
+		n++
+	}
+	return q[:n]
+}
+
+func oneLine(s string, n int) string {
+	if len(s) > n {
+		s = s[:n] + "…"
+	}
+	return s
 }
 
 type token int

@@ -229,12 +229,16 @@ func rowidName(cols []connectors.Column) string {
 	return ""
 }
 
-// describeQuery runs the query as given (the connection is read-only, so a
-// writing statement is refused by SQLite itself), takes its column names
-// and declared types, and classifies untyped columns from the first rows.
+// describeQuery checks that the query only reads (one SELECT, WITH or
+// VALUES statement that compiles to reads alone; the connection is
+// read-only besides), runs it as given, takes its column names and
+// declared types, and classifies untyped columns from the first rows.
 func (s *Source) describeQuery(ctx context.Context, query string) (*target, error) {
 	q, err := connectors.CleanQuery(query, connectors.SQLite)
 	if err != nil {
+		return nil, err
+	}
+	if err := s.checkReadOnly(ctx, q); err != nil {
 		return nil, err
 	}
 	rows, err := s.db.QueryContext(ctx, q)
