@@ -143,13 +143,13 @@ func runAlerts(cmd *cobra.Command, stdout io.Writer, path string, q agent.AlertQ
 		if a.Segment != "" {
 			seg = "/" + a.Segment
 		}
-		fmt.Fprintf(stdout, "%s  %-8s %-8s %s%s  since %s  %s\n    %s\n", a.ID, a.Severity, a.Rule, a.Watch, seg,
-			a.Onset.Format("2006-01-02 15:04"), state, a.Message)
+		fmt.Fprintf(stdout, "%s  %-8s %-8s %s%s  since %s  %s\n    %s\n", a.ID, a.Severity, a.Rule, termSafe(a.Watch), termSafe(seg),
+			a.Onset.Format("2006-01-02 15:04"), state, termSafe(a.Message))
 		if len(a.Columns) > 0 {
-			fmt.Fprintf(stdout, "    columns: %s\n", strings.Join(a.Columns, ", "))
+			fmt.Fprintf(stdout, "    columns: %s\n", termSafe(strings.Join(a.Columns, ", ")))
 		}
 		if a.Remedy != "" {
-			fmt.Fprintf(stdout, "    what to do: %s\n", a.Remedy)
+			fmt.Fprintf(stdout, "    what to do: %s\n", termSafe(a.Remedy))
 		}
 		if a.Acknowledged != nil {
 			fmt.Fprintf(stdout, "    %s\n", ackLine(a.Acknowledged, time.Now()))

@@ -165,23 +165,23 @@ func runCheck(ctx context.Context, stdout io.Writer, path, name, format string, 
 		}
 	} else {
 		for _, r := range results {
-			line := fmt.Sprintf("%-24s %-8s", r.Watch, strings.ToUpper(r.Status))
+			line := fmt.Sprintf("%-24s %-8s", termSafe(r.Watch), strings.ToUpper(r.Status))
 			if r.Cond != nil {
 				line += fmt.Sprintf(" condition %s", fmtNum(*r.Cond))
 			}
 			if r.MaxVIF != nil {
 				line += fmt.Sprintf(", max VIF %s", fmtNum(*r.MaxVIF))
 				if r.MaxVIFOn != "" {
-					line += " (" + r.MaxVIFOn + ")"
+					line += " (" + termSafe(r.MaxVIFOn) + ")"
 				}
 			}
 			line += fmt.Sprintf("; read %d rows", r.Run.RowsRead)
 			fmt.Fprintln(stdout, line)
 			if r.Error != "" {
-				fmt.Fprintf(stdout, "    error: %s\n", r.Error)
+				fmt.Fprintf(stdout, "    error: %s\n", termSafe(r.Error))
 			}
 			for _, a := range r.Open {
-				fmt.Fprintf(stdout, "    %-8s %-8s %s\n", a.Severity, a.Rule, a.Message)
+				fmt.Fprintf(stdout, "    %-8s %-8s %s\n", a.Severity, a.Rule, termSafe(a.Message))
 			}
 		}
 	}

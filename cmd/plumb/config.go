@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"strings"
 	"time"
 
 	"github.com/spf13/cobra"
@@ -74,7 +75,9 @@ func runConfigCheck(stdout io.Writer, path string, now time.Time) error {
 	if err != nil {
 		return err
 	}
-	c.Describe(stdout, now, os.LookupEnv)
+	var desc strings.Builder
+	c.Describe(&desc, now, os.LookupEnv)
+	io.WriteString(stdout, termSafeLines(desc.String()))
 	if err := c.Resolve(config.Resolver{}); err != nil {
 		return fmt.Errorf("config %s: %w", path, err)
 	}

@@ -75,11 +75,11 @@ func execute(ctx context.Context, root *cobra.Command, args []string, stdout, st
 	var ec exitCoder
 	if errors.As(err, &ec) {
 		if msg := err.Error(); msg != "" {
-			fmt.Fprintln(stderr, "plumb:", msg)
+			fmt.Fprintln(stderr, "plumb:", termSafeLines(msg))
 		}
 		return ec.ExitCode()
 	}
-	fmt.Fprintln(stderr, "plumb:", err)
+	fmt.Fprintln(stderr, "plumb:", termSafeLines(err.Error()))
 	var ue usageError
 	if errors.As(err, &ue) {
 		fmt.Fprintln(stderr, "Run 'plumb --help' for usage.")

@@ -153,7 +153,7 @@ func writeText(w io.Writer, out *scanOutput) error {
 		tw.Flush()
 	}
 	fmt.Fprintf(&b, "\n%s\n", out.Caution)
-	_, err := io.WriteString(w, b.String())
+	_, err := io.WriteString(w, termSafeLines(b.String()))
 	return err
 }
 
