@@ -7,9 +7,6 @@ import (
 	"plumb/stream"
 )
 
-// NullSegment is the segment key of rows whose segment column is NULL.
-const NullSegment = "(null)"
-
 // Grouper turns rows into stream blocks, one accumulator per key (bucket and
 // segment), for every connector. A connector asks for a row's slots with
 // Row, fills them, and at the end takes Groups.
@@ -129,8 +126,9 @@ func (g *Grouper) newAcc(bucket int64, seg string) *groupAcc {
 }
 
 // Row starts a row in the group of bucket (the bucket start in Unix
-// microseconds; ignored without bucketing) and seg (ignored without
-// segmenting; NullSegment for NULL) and returns its value and NULL slots,
+// microseconds; ignored without bucketing) and seg (the segment key,
+// ignored without segmenting: AppendSegmentKey of the value, NullSegment
+// for NULL) and returns its value and NULL slots,
 // zeroed, to be filled by the caller. A new segment beyond the bound is an
 // error wrapping ErrTooManySegments.
 func (g *Grouper) Row(bucket int64, seg []byte) (vals []float64, nulls []bool, err error) {

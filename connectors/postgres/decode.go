@@ -28,6 +28,7 @@ type decoder struct {
 	inexact []int64
 	err     error // a decoding error, kept so that it is not mistaken for the server's
 	tick    func(n int64)
+	segBuf  []byte // the current row's segment key
 }
 
 func newDecoder(source string, plan *connectors.Plan, lay layout, qr bool) *decoder {
@@ -82,9 +83,11 @@ func (d *decoder) row(f [][]byte) error {
 	}
 	var seg []byte
 	if lay.iSeg >= 0 {
-		seg = f[lay.iSeg]
-		if seg == nil {
+		if v := f[lay.iSeg]; v == nil {
 			seg = nullSegment
+		} else {
+			d.segBuf = connectors.AppendSegmentKey(d.segBuf[:0], v)
+			seg = d.segBuf
 		}
 	}
 	vals, nulls, err := d.g.Row(bucket, seg)

@@ -289,7 +289,9 @@ func newPush(t *target, plan *connectors.Plan, st stmt) (*push, error) {
 		list[0] = bucketExpr(plan.Time.Name, t.base[plan.Time.Name], plan.Bucket, zone) + " AS bk"
 	}
 	if plan.Segment != nil {
-		list[1] = "coalesce(" + connectors.QuoteIdent(plan.Segment.Name) + "::text, " + quoteLiteral(connectors.NullSegment) + ") AS sk"
+		// The segment key (connectors.SegmentKey), NULL as NullSegment.
+		list[1] = "coalesce(" + quoteLiteral(connectors.SegmentPrefix) + " || " + connectors.QuoteIdent(plan.Segment.Name) + "::text, " +
+			quoteLiteral(connectors.NullSegment) + ") AS sk"
 	}
 	if plan.Weight != nil {
 		list = append(list, valueExpr(plan.Weight.Name, t.base[plan.Weight.Name])+" AS w")

@@ -8,7 +8,6 @@ import (
 	"math"
 	"strconv"
 	"strings"
-	"unsafe"
 
 	"plumb/connectors"
 )
@@ -206,8 +205,6 @@ func (sc *scanner) where(row []driver.Value, n int64) string {
 	return "row " + strconv.FormatInt(n, 10) + " of the result"
 }
 
-func bytesOf(s string) []byte { return unsafe.Slice(unsafe.StringData(s), len(s)) }
-
 func (sc *scanner) row(row []driver.Value) error {
 	if sc.sample {
 		id, _ := row[sc.iRowid].(int64)
@@ -230,23 +227,22 @@ func (sc *scanner) row(row []driver.Value) error {
 	}
 	var seg []byte
 	if sc.iSeg >= 0 {
+		buf := append(sc.segBuf[:0], connectors.SegmentPrefix...)
 		switch v := row[sc.iSeg].(type) {
 		case nil:
-			seg = bytesOf(connectors.NullSegment)
+			buf = append(buf[:0], connectors.NullSegment...)
 		case int64:
-			sc.segBuf = strconv.AppendInt(sc.segBuf[:0], v, 10)
-			seg = sc.segBuf
+			buf = strconv.AppendInt(buf, v, 10)
 		case float64:
-			sc.segBuf = strconv.AppendFloat(sc.segBuf[:0], v, 'g', -1, 64)
-			seg = sc.segBuf
+			buf = strconv.AppendFloat(buf, v, 'g', -1, 64)
 		case string:
-			seg = bytesOf(v)
+			buf = append(buf, v...)
 		case []byte:
-			seg = v
+			buf = append(buf, v...)
 		default:
-			sc.segBuf = fmt.Appendf(sc.segBuf[:0], "%v", v)
-			seg = sc.segBuf
+			buf = fmt.Appendf(buf, "%v", v)
 		}
+		sc.segBuf, seg = buf, buf
 	}
 	vals, nulls, err := sc.g.Row(bucket, seg)
 	if err != nil {

@@ -196,7 +196,7 @@ func InMemory(rows []Row, cols []string, bucket string, segment, qr bool) *conne
 		if b != nil {
 			key = b.Start(r.Day.UnixMicro())
 		}
-		vals, nulls, err := g.Row(key, []byte(r.District))
+		vals, nulls, err := g.Row(key, []byte(connectors.SegmentKey(r.District)))
 		if err != nil {
 			panic(err)
 		}
