@@ -58,8 +58,12 @@ func testUp(t *testing.T, ctx context.Context, d Dialect, db *sql.DB) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if len(applied) != int(Latest(d)) {
-		t.Fatalf("applied %v, want %d versions", applied, Latest(d))
+	files, err := filesOf(d)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(applied) != len(files) || applied[len(applied)-1] != Latest(d) {
+		t.Fatalf("applied %v, want %d versions up to %d", applied, len(files), Latest(d))
 	}
 	for _, table := range []string{"plumb_runs", "plumb_points", "plumb_point_columns", "plumb_buckets",
 		"plumb_alerts", "plumb_outbox", "plumb_watch_state", "plumb_lock"} {

@@ -32,3 +32,13 @@ func TestAcknowledgementsPostgres(t *testing.T) {
 	defer db.Close()
 	testAcknowledgements(t, context.Background(), Postgres, db)
 }
+
+func TestSegmentKeysPostgres(t *testing.T) {
+	url := pgtest.Start(t)
+	db, err := sql.Open("pgx", url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	testSegmentKeys(t, context.Background(), Postgres, db)
+}
