@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"plumb/agent/config"
+	"plumb/connectors"
 )
 
 // evaluation carries the alert side of one run: the alerts and rule
@@ -83,7 +84,7 @@ func (e *evaluation) ruleState(seg string) (*RuleState, error) {
 	}
 	st, err := DecodeRuleState(raw)
 	if err != nil {
-		return nil, fmt.Errorf("watch %q segment %q: %w", e.w.Name, seg, err)
+		return nil, fmt.Errorf("watch %q segment %s: %w", e.w.Name, connectors.ParseSegmentKey(seg), err)
 	}
 	e.rule[seg] = st
 	return st, nil
@@ -242,8 +243,12 @@ func (e *evaluation) finish(res *RunResult, now time.Time) {
 		body := e.notification(a, event, now)
 		if segs := together[a.ID]; event == EventOpened && len(segs) > 1 {
 			body.Segments = segs
-			body.Message = fmt.Sprintf("in %d segments (%s): %s", len(segs), strings.Join(segs, ", "),
-				strings.TrimPrefix(body.Message, "segment "+a.Segment+": "))
+			labels := make([]string, len(segs))
+			for i, s := range segs {
+				labels[i] = connectors.SegmentLabel(s)
+			}
+			body.Message = fmt.Sprintf("in %d segments (%s): %s", len(segs), strings.Join(labels, ", "),
+				strings.TrimPrefix(body.Message, "segment "+connectors.SegmentLabel(a.Segment)+": "))
 		}
 		for _, n := range e.w.Notify {
 			eid := a.ID + ":" + event

@@ -7,6 +7,7 @@ import (
 	"strings"
 	"time"
 
+	"plumb/connectors"
 	"plumb/diagnostics"
 )
 
@@ -33,11 +34,15 @@ type Notification struct {
 	Watch   string `json:"watch"`
 	Source  string `json:"source"`
 	Table   string `json:"table,omitempty"`
-	Segment string `json:"segment"` // "" is the whole table
+	// Segment is the series key ("" is the whole table), shown decoded:
+	// "whole_table": true, or "segment" with the value or null for NULL
+	// (segmentjson.go).
+	Segment string `json:"-"`
 	// Segments, on the opening of an exact dependency that appeared in
-	// several segments in the same run, lists them all: one notification
-	// for one equation (the alerts stay one per segment).
-	Segments []string `json:"segments,omitempty"`
+	// several segments in the same run, lists them all (keys; JSON shows
+	// the values, null for NULL): one notification for one equation (the
+	// alerts stay one per segment).
+	Segments []string `json:"-"`
 	Rule     Rule     `json:"rule"`
 	Subject  string   `json:"subject,omitempty"`
 	Severity Severity `json:"severity"`
@@ -115,8 +120,8 @@ func WatchLink(publicURL, watch, segment string) string {
 		return ""
 	}
 	u := strings.TrimRight(publicURL, "/") + "/watches/" + url.PathEscape(watch)
-	if segment != "" {
-		u += "?segment=" + url.QueryEscape(segment)
+	if segment != connectors.WholeTable {
+		u += "?segment=" + url.QueryEscape(connectors.SegmentLabel(segment))
 	}
 	return u
 }
@@ -126,8 +131,8 @@ func WatchLink(publicURL, watch, segment string) string {
 // sum of two columns since 2026-08-10".
 func Headline(a *Alert, event string) string {
 	where := a.Watch
-	if a.Segment != "" {
-		where += " (" + a.Segment + ")"
+	if a.Segment != connectors.WholeTable {
+		where += " (" + connectors.SegmentLabel(a.Segment) + ")"
 	}
 	since := a.Onset
 	if since.IsZero() {

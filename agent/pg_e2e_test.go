@@ -13,6 +13,7 @@ import (
 	"plumb/agent"
 	"plumb/agent/config"
 	"plumb/agent/sqlstore"
+	"plumb/connectors"
 	_ "plumb/connectors/postgres"
 	"plumb/connectors/postgres/pgtest"
 )
@@ -108,7 +109,7 @@ watches:
 	if err != nil || len(ps) != days {
 		t.Fatalf("%d points, %v", len(ps), err)
 	}
-	segs, err := st.Points(ctx, "billing", agent.PointQuery{Segment: "d01"})
+	segs, err := st.Points(ctx, "billing", agent.PointQuery{Segment: connectors.SegmentKey("d01")})
 	if err != nil || len(segs) == 0 {
 		t.Fatalf("segment points %d, %v", len(segs), err)
 	}

@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"plumb/agent/config"
+	"plumb/connectors"
 	"plumb/diagnostics"
 )
 
@@ -1002,7 +1003,7 @@ func (r *Rules) prefix() string {
 	if r.Segment == "" {
 		return ""
 	}
-	return "segment " + r.Segment + ": "
+	return "segment " + connectors.SegmentLabel(r.Segment) + ": "
 }
 
 // day names a data time the way the watch's buckets do: a date, or a date

@@ -478,7 +478,7 @@ func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time
 			wholeSDs = rep.ColumnSDs()
 		}
 		if err != nil {
-			col.skipped = append(col.skipped, fmt.Sprintf("%s segment %q: %v", at.Format(time.RFC3339), seg, err))
+			col.skipped = append(col.skipped, fmt.Sprintf("%s segment %s: %v", at.Format(time.RFC3339), connectors.ParseSegmentKey(seg), err))
 			continue
 		}
 		x := newExtra()

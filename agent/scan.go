@@ -97,12 +97,12 @@ type acc struct {
 func decodeBucket(b Bucket) (acc, error) {
 	m, err := stream.UnmarshalMoments(b.Moments)
 	if err != nil {
-		return acc{}, fmt.Errorf("bucket %s segment %q: %w", b.Start.Format(time.RFC3339), b.Segment, err)
+		return acc{}, fmt.Errorf("bucket %s segment %s: %w", b.Start.Format(time.RFC3339), connectors.ParseSegmentKey(b.Segment), err)
 	}
 	a := acc{m: m}
 	if len(b.QR) > 0 {
 		if a.q, err = stream.UnmarshalQR(b.QR); err != nil {
-			return acc{}, fmt.Errorf("bucket %s segment %q: %w", b.Start.Format(time.RFC3339), b.Segment, err)
+			return acc{}, fmt.Errorf("bucket %s segment %s: %w", b.Start.Format(time.RFC3339), connectors.ParseSegmentKey(b.Segment), err)
 		}
 	}
 	return a, nil

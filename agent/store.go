@@ -53,7 +53,7 @@ const (
 // some VIFs infinite) are +Inf in memory and NULL in the store.
 type Point struct {
 	Watch             string          `json:"watch"`
-	Segment           string          `json:"segment"`
+	Segment           string          `json:"-"` // series key, shown decoded (segmentjson.go)
 	At                time.Time       `json:"at"`
 	RunID             int64           `json:"run_id"`
 	RowsUsed          int64           `json:"rows"`
@@ -125,7 +125,7 @@ const (
 type Alert struct {
 	ID           string      `json:"id"`
 	Watch        string      `json:"watch"`
-	Segment      string      `json:"segment"`
+	Segment      string      `json:"-"` // series key, shown decoded (segmentjson.go)
 	Rule         Rule        `json:"rule"`
 	Subject      string      `json:"subject"`
 	Severity     Severity    `json:"severity"`

@@ -14,6 +14,7 @@ import (
 	"time"
 
 	"plumb/agent"
+	"plumb/connectors"
 )
 
 // SMTP sends each notification as a plain-text email.
@@ -148,10 +149,7 @@ func Message(from string, to []string, n agent.Notification, now time.Time) []by
 	line("%s", n.Message)
 	line("")
 	line("watch:       %s (source %s%s)", n.Watch, n.Source, tableSuffix(n.Table))
-	seg := n.Segment
-	if seg == "" {
-		seg = "whole table"
-	}
+	seg := connectors.ParseSegmentKey(n.Segment).String()
 	line("segment:     %s", seg)
 	line("rule:        %s, %s", n.Rule, n.Severity)
 	line("event:       %s", eventWords(n.Event))

@@ -6,6 +6,8 @@ import (
 	"errors"
 	"net/http"
 	"time"
+
+	"plumb/connectors"
 )
 
 // The JSON API. Every answer is a JSON document; errors are
@@ -14,6 +16,8 @@ import (
 //	GET /api/watches                         []WatchSummary
 //	GET /api/watches/{name}                  WatchDetail without reports
 //	GET /api/watches/{name}/history?segment= []Point, oldest first
+//	    (segment: a value, "NULL" for NULL, a quoted value such as ""
+//	    for the empty string; none for the whole table)
 //	GET /api/watches/{name}/runs             []Run, newest first
 //	GET /api/watches/{name}/report?segment=  diagnostics.Report of the last run
 //	GET /api/alerts?state=open|all           []Alert of every watch, newest first
@@ -47,7 +51,10 @@ func (s *Server) watch(w http.ResponseWriter, r *http.Request) (*WatchDetail, bo
 
 func (s *Server) segment(w http.ResponseWriter, r *http.Request, d *WatchDetail) (*SegmentDetail, bool) {
 	name := r.URL.Query().Get("segment")
-	seg := d.Segment(name)
+	var seg *SegmentDetail
+	if key, err := connectors.KeyOfLabel(name); err == nil {
+		seg = d.Segment(key)
+	}
 	if seg == nil {
 		writeJSON(w, http.StatusNotFound, map[string]string{"error": "watch " + d.Summary.Name + " has no segment " + quote(name)})
 		return nil, false

@@ -7,6 +7,7 @@ import (
 	"testing"
 	"time"
 
+	"plumb/connectors"
 	"plumb/diagnostics"
 )
 
@@ -76,7 +77,7 @@ func TestAPI(t *testing.T) {
 	}
 	var seg []map[string]any
 	getJSON(t, ts.URL+"/api/watches/district_daily/history?segment=hillside", 200, &seg)
-	if len(seg) != len(d.Segment("hillside").Timeline) {
+	if len(seg) != len(d.Segment(connectors.SegmentKey("hillside")).Timeline) {
 		t.Errorf("hillside history: %d points", len(seg))
 	}
 
@@ -91,7 +92,7 @@ func TestAPI(t *testing.T) {
 
 	var rep diagnostics.Report
 	getJSON(t, ts.URL+"/api/watches/district_daily/report?segment=hillside", 200, &rep)
-	if len(rep.Columns) != len(demoRegressors) || rep.RowsUsed != d.Segment("hillside").Report.RowsUsed {
+	if len(rep.Columns) != len(demoRegressors) || rep.RowsUsed != d.Segment(connectors.SegmentKey("hillside")).Report.RowsUsed {
 		t.Errorf("report: %d columns, %d rows", len(rep.Columns), rep.RowsUsed)
 	}
 

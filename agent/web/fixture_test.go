@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"plumb/agent/demo"
+	"plumb/connectors"
 	"plumb/diagnostics"
 	"plumb/stream"
 )
@@ -122,9 +123,11 @@ func buildWatch(t testing.TB, sc demo.Scenario, rows []demo.Row, w fixtureWatch)
 	if w.target == "" {
 		names = slices.Clone(w.columns)
 	}
-	segs := []string{""}
+	segs := []string{connectors.WholeTable}
 	if w.segmented {
-		segs = append(segs, sc.Districts...)
+		for _, d := range sc.Districts {
+			segs = append(segs, connectors.SegmentKey(d))
+		}
 	}
 	// One accumulator per segment and day.
 	buckets := map[string][]bucketAcc{}
@@ -138,7 +141,7 @@ func buildWatch(t testing.TB, sc demo.Scenario, rows []demo.Row, w fixtureWatch)
 	for _, r := range rows {
 		day := int(r.Day.Sub(sc.Start).Hours() / 24)
 		vals := demoValues(r)
-		for _, s := range []string{"", r.District} {
+		for _, s := range []string{connectors.WholeTable, connectors.SegmentKey(r.District)} {
 			bs, ok := buckets[s]
 			if !ok {
 				continue

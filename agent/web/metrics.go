@@ -6,6 +6,8 @@ import (
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
+
+	"plumb/connectors"
 )
 
 // Collector exposes what a View knows as Prometheus metrics. It reads the
@@ -93,22 +95,23 @@ func (c *Collector) Collect(ch chan<- prometheus.Metric) {
 		s := &d.Summary
 		name := s.Name
 		for _, seg := range d.Segments {
+			label := connectors.SegmentLabel(seg.Segment)
 			state := seg.State
 			if s.State == StateBlind {
 				state = StateBlind
 			}
 			for _, st := range []State{StateOK, StateWarning, StateCritical, StateBlind} {
-				gauge(c.watchState, b2f(st == state), name, seg.Segment, string(st))
+				gauge(c.watchState, b2f(st == state), name, label, string(st))
 			}
 			if p := seg.Latest; p != nil {
-				gauge(c.condition, p.ConditionNumber, name, seg.Segment)
-				gauge(c.centered, p.CenteredCondition, name, seg.Segment)
-				gauge(c.judged, p.Judged, name, seg.Segment)
-				gauge(c.maxVIF, p.MaxVIF, name, seg.Segment)
-				gauge(c.rankDef, float64(p.RankDeficiency()), name, seg.Segment)
-				gauge(c.rowsUsed, float64(p.Rows), name, seg.Segment)
-				gauge(c.rowsDropped, float64(p.RowsDropped), name, seg.Segment)
-				gauge(c.dataTime, unix(p.At), name, seg.Segment)
+				gauge(c.condition, p.ConditionNumber, name, label)
+				gauge(c.centered, p.CenteredCondition, name, label)
+				gauge(c.judged, p.Judged, name, label)
+				gauge(c.maxVIF, p.MaxVIF, name, label)
+				gauge(c.rankDef, float64(p.RankDeficiency()), name, label)
+				gauge(c.rowsUsed, float64(p.Rows), name, label)
+				gauge(c.rowsDropped, float64(p.RowsDropped), name, label)
+				gauge(c.dataTime, unix(p.At), name, label)
 			}
 			if rep := seg.Report; rep != nil {
 				for _, col := range rep.Columns {
@@ -116,13 +119,13 @@ func (c *Collector) Collect(ch chan<- prometheus.Metric) {
 					if col.VIF != nil {
 						v = *col.VIF
 					}
-					gauge(c.columnVIF, v, name, seg.Segment, col.Name)
+					gauge(c.columnVIF, v, name, label, col.Name)
 					if col.VIF == nil {
 						reason := col.Undefined
 						if reason == "" {
 							reason = "undefined"
 						}
-						gauge(c.columnUndefined, 1, name, seg.Segment, col.Name, reason)
+						gauge(c.columnUndefined, 1, name, label, col.Name, reason)
 					}
 				}
 			}

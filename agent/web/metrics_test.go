@@ -12,6 +12,8 @@ import (
 	dto "github.com/prometheus/client_model/go"
 	"github.com/prometheus/common/expfmt"
 	"github.com/prometheus/common/model"
+
+	"plumb/connectors"
 )
 
 // documentedFamilies reads the family names from METRICS.md, the section
@@ -103,7 +105,7 @@ func TestMetrics(t *testing.T) {
 		t.Fatal(err)
 	}
 	for _, seg := range d.Segments {
-		l := map[string]string{"watch": "district_daily", "segment": seg.Segment}
+		l := map[string]string{"watch": "district_daily", "segment": connectors.SegmentLabel(seg.Segment)}
 		p := seg.Latest
 		for name, want := range map[string]float64{
 			"plumb_condition_number": p.ConditionNumber,
@@ -123,7 +125,7 @@ func TestMetrics(t *testing.T) {
 			}
 		}
 		for _, c := range seg.Report.Columns {
-			cl := map[string]string{"watch": "district_daily", "segment": seg.Segment, "column": c.Name}
+			cl := map[string]string{"watch": "district_daily", "segment": connectors.SegmentLabel(seg.Segment), "column": c.Name}
 			got, ok := sample(t, fams, "plumb_column_vif", cl)
 			if !ok {
 				t.Errorf("plumb_column_vif%v missing", cl)
@@ -142,7 +144,7 @@ func TestMetrics(t *testing.T) {
 			}
 		}
 		for _, st := range []State{StateOK, StateWarning, StateCritical, StateBlind} {
-			sl := map[string]string{"watch": "district_daily", "segment": seg.Segment, "state": string(st)}
+			sl := map[string]string{"watch": "district_daily", "segment": connectors.SegmentLabel(seg.Segment), "state": string(st)}
 			want := 0.0
 			if st == seg.State {
 				want = 1

@@ -15,6 +15,7 @@ import (
 	"strings"
 	"time"
 
+	"plumb/connectors"
 	"plumb/diagnostics"
 )
 
@@ -54,6 +55,7 @@ var funcs = template.FuncMap{
 	"icon":     stateIcon,
 	"colour":   stateColour,
 	"segname":  segmentName,
+	"seglabel": connectors.SegmentLabel,
 	"watchURL": watchURL,
 	"add":      func(a, b float64) float64 { return a + b },
 	"contains": strings.Contains,
@@ -247,7 +249,9 @@ func (s *Server) watchPage(w http.ResponseWriter, r *http.Request) {
 	segName, explicit := r.URL.Query()["segment"]
 	var seg *SegmentDetail
 	if explicit {
-		seg = d.Segment(segName[0])
+		if key, err := connectors.KeyOfLabel(segName[0]); err == nil {
+			seg = d.Segment(key)
+		}
 		if seg == nil {
 			s.render(w, http.StatusNotFound, s.pages.notFound, page{Title: "Not found", Generated: now,
 				Error: fmt.Sprintf("Watch %q has no segment %q.", name, segName[0])})
@@ -338,21 +342,19 @@ func (s *Server) watchPage(w http.ResponseWriter, r *http.Request) {
 	s.render(w, http.StatusOK, s.pages.watch, data)
 }
 
-// watchURL is the watch page's address, with the segment when not "".
+// watchURL is the watch page's address, with the segment's label when
+// the key is not the whole table's.
 func watchURL(name, segment string) string {
 	u := "/watches/" + url.PathEscape(name)
-	if segment != "" {
-		u += "?segment=" + url.QueryEscape(segment)
+	if segment != connectors.WholeTable {
+		u += "?segment=" + url.QueryEscape(connectors.SegmentLabel(segment))
 	}
 	return u
 }
 
-func segmentName(s string) string {
-	if s == "" {
-		return "whole table"
-	}
-	return s
-}
+// segmentName names a series key for a person: "whole table", NULL, or the
+// value (quoted when it could be mistaken).
+func segmentName(key string) string { return connectors.ParseSegmentKey(key).String() }
 
 // stateIcon is a state's symbol, distinct in shape as well as colour.
 func stateIcon(s State) string {

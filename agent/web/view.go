@@ -98,7 +98,7 @@ type WatchSummary struct {
 	// State is the worst of the segments' states, or blind.
 	State State `json:"state"`
 	// Segments has one entry per segment; the whole table has Segment ""
-	// and, when present, comes first.
+	// (connectors.WholeTable) and, when present, comes first.
 	Segments []SegmentSummary `json:"segments"`
 	// OpenAlerts are the alerts not yet resolved, most severe first.
 	OpenAlerts []Alert `json:"open_alerts"`
@@ -126,7 +126,9 @@ func (w *WatchSummary) Headline() *SegmentSummary {
 
 // SegmentSummary is a segment's state and its latest point.
 type SegmentSummary struct {
-	Segment string `json:"segment"` // "" = the whole table
+	// Segment is the series key (connectors.SegmentKey; "" = the whole
+	// table). JSON shows it decoded: see segmentjson.go.
+	Segment string `json:"-"`
 	State   State  `json:"state"`
 	Latest  *Point `json:"latest"` // nil before the first successful run
 	// Trend holds recent points, oldest first, for a sparkline.
@@ -143,7 +145,7 @@ type WatchDetail struct {
 	Alerts []Alert `json:"alerts"`
 }
 
-// Segment returns the named segment, or nil.
+// Segment returns the segment of a key, or nil.
 func (d *WatchDetail) Segment(name string) *SegmentDetail {
 	for i := range d.Segments {
 		if d.Segments[i].Segment == name {
@@ -274,7 +276,7 @@ type Alert struct {
 	ResolvedAt *time.Time `json:"resolved_at"`
 	Message    string     `json:"message"`
 
-	Segment  string               `json:"segment"`
+	Segment  string               `json:"-"` // series key, shown decoded (segmentjson.go)
 	Columns  []string             `json:"columns"`
 	Drivers  []diagnostics.Driver `json:"drivers,omitempty"`
 	Equation string               `json:"equation,omitempty"`

@@ -11,6 +11,7 @@ import (
 
 	"plumb/agent"
 	"plumb/agent/config"
+	"plumb/connectors"
 	"plumb/diagnostics"
 )
 
@@ -22,9 +23,11 @@ import (
 // null while open). Wall-clock times: opened_at and resolved_at, when
 // plumb recorded them.
 type alertOutput struct {
-	ID           string               `json:"id"`
-	Watch        string               `json:"watch"`
-	Segment      string               `json:"segment"`
+	ID    string `json:"id"`
+	Watch string `json:"watch"`
+	// The series: "whole_table": true, or "segment" with the value (the
+	// empty string included) or null for NULL.
+	connectors.SegmentJSON
 	Rule         string               `json:"rule"`
 	Subject      string               `json:"subject,omitempty"`
 	Severity     string               `json:"severity"`
@@ -41,10 +44,13 @@ type alertOutput struct {
 	// Acknowledged is the owner's acknowledgement: by, at, until (the
 	// snooze's end), note, severity, snooze_ended_at.
 	Acknowledged *agent.Ack `json:"acknowledged,omitempty"`
+
+	segment string // the key
 }
 
 func toAlertOutput(a agent.Alert) alertOutput {
-	o := alertOutput{ID: a.ID, Watch: a.Watch, Segment: a.Segment, Rule: string(a.Rule), Subject: a.Subject,
+	o := alertOutput{ID: a.ID, Watch: a.Watch, SegmentJSON: connectors.SegmentJSONOf(a.Segment), segment: a.Segment,
+		Rule: string(a.Rule), Subject: a.Subject,
 		Severity: string(a.Severity), Onset: a.Onset.UTC(), AsOf: a.AsOf.UTC(), OpenedAt: a.OpenedAt.UTC(),
 		Columns: a.Columns, Equation: a.Detail.Equation, Message: a.Message, Remedy: a.Detail.Remedy,
 		Acknowledged: a.Ack}
@@ -140,8 +146,8 @@ func runAlerts(cmd *cobra.Command, stdout io.Writer, path string, q agent.AlertQ
 			state = "resolved as of " + a.ResolvedAsOf.Format("2006-01-02 15:04")
 		}
 		seg := ""
-		if a.Segment != "" {
-			seg = "/" + a.Segment
+		if a.segment != connectors.WholeTable {
+			seg = "/" + connectors.SegmentLabel(a.segment)
 		}
 		fmt.Fprintf(stdout, "%s  %-8s %-8s %s%s  since %s  %s\n    %s\n", a.ID, a.Severity, a.Rule, termSafe(a.Watch), termSafe(seg),
 			a.Onset.Format("2006-01-02 15:04"), state, termSafe(a.Message))

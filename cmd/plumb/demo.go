@@ -20,6 +20,7 @@ import (
 	"plumb/agent/config"
 	"plumb/agent/demo"
 	"plumb/agent/web"
+	"plumb/connectors"
 )
 
 // demoConfigYAML is the configuration `plumb demo` writes: one watch per
@@ -248,8 +249,9 @@ func demoReport(ctx context.Context, w io.Writer, st agent.Store, c *config.Conf
 	tw = tabwriter.NewWriter(w, 2, 4, 2, ' ', 0)
 	for _, g := range groups {
 		where := g.watch
-		if g.segment != "" {
-			where += "/" + g.segment
+		label := connectors.SegmentLabel(g.segment)
+		if g.segment != connectors.WholeTable {
+			where += "/" + label
 		}
 		state := "still open"
 		if !g.open {
@@ -260,7 +262,7 @@ func demoReport(ctx context.Context, w io.Writer, st agent.Store, c *config.Conf
 			times = fmt.Sprintf(" (opened %d times)", g.count)
 		}
 		fmt.Fprintf(tw, "  %s\t%s\tday %d\t%s\t%s%s\t%s\n", where, g.rule, day(g.first.AsOf), g.severity, state, times,
-			strings.TrimPrefix(strings.TrimSpace(g.first.Message), "segment "+g.segment+": "))
+			strings.TrimPrefix(strings.TrimSpace(g.first.Message), "segment "+label+": "))
 	}
 	tw.Flush()
 
@@ -400,13 +402,13 @@ func demoStories(c *config.Config, sc demo.Scenario, points map[string][]agent.P
 
 	// The stuck sensor.
 	s = fmt.Sprintf("stuck sensor: %s's pressure reads 3.415 from day %d; district_daily/%s", sc.StuckDistrict, sc.StuckDay, sc.StuckDistrict)
-	if a, ok := firstAlert("district_daily", sc.StuckDistrict, agent.RuleConstant, "pressure_bar"); ok {
+	if a, ok := firstAlert("district_daily", connectors.SegmentKey(sc.StuckDistrict), agent.RuleConstant, "pressure_bar"); ok {
 		s += fmt.Sprintf(" reports pressure_bar constant on day %d", day(a.AsOf))
 		if n := window("district_daily"); n > 0 {
 			s += fmt.Sprintf(", the first %d-day window wholly after it (day %d+%d)", n, sc.StuckDay, n-1)
 		}
 		s += fmt.Sprintf(", dated to day %d (its onset)", day(a.Onset)+1)
-		if l, ok := firstAlert("district_daily", sc.StuckDistrict, agent.RuleLevel, ""); ok && l.AsOf.Before(a.AsOf) && day(l.AsOf) >= sc.StuckDay {
+		if l, ok := firstAlert("district_daily", connectors.SegmentKey(sc.StuckDistrict), agent.RuleLevel, ""); ok && l.AsOf.Before(a.AsOf) && day(l.AsOf) >= sc.StuckDay {
 			s += fmt.Sprintf("; its condition number passed the levels from day %d, as the last varying readings left the window", day(l.AsOf))
 		}
 		s += "."

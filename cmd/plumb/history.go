@@ -7,6 +7,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"time"
 
@@ -18,6 +19,7 @@ import (
 	"plumb/agent/sqlstore"
 	"plumb/agent/web"
 	"plumb/agent/web/storeview"
+	"plumb/connectors"
 )
 
 // historyPoint is one entry of `plumb history --format json` (an outside
@@ -78,7 +80,7 @@ extension.`,
 	}
 	addConfigFlag(cmd, &path)
 	cmd.Flags().StringVar(&format, "format", "text", "output format: text or json")
-	cmd.Flags().StringVar(&segment, "segment", "", "a segment's history instead of the whole table's")
+	cmd.Flags().StringVar(&segment, "segment", "", `a segment's history instead of the whole table's: its value, NULL for NULL, or a quoted value ("" for the empty string)`)
 	cmd.Flags().IntVar(&limit, "limit", 0, "only the latest N points")
 	cmd.Flags().StringVar(&plot, "plot", "", "write the timeline chart to this .svg or .png file instead")
 	return cmd
@@ -90,7 +92,11 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 		return err
 	}
 	defer st.Close()
-	ps, err := st.Points(cmd.Context(), watch, agent.PointQuery{Segment: segment, Limit: limit})
+	key, err := connectors.KeyOfLabel(segment)
+	if err != nil {
+		return usageError{err}
+	}
+	ps, err := st.Points(cmd.Context(), watch, agent.PointQuery{Segment: key, Limit: limit})
 	if err != nil {
 		return err
 	}
@@ -174,14 +180,15 @@ func runHistoryPlot(cmd *cobra.Command, stdout io.Writer, path, watch, segment, 
 	if err != nil {
 		return err
 	}
-	seg := d.Segment(segment)
+	key, err := connectors.KeyOfLabel(segment)
+	if err != nil {
+		return usageError{err}
+	}
+	seg := d.Segment(key)
 	if seg == nil {
-		return usagef("watch %q has no segment %q", watch, segment)
+		return usagef("watch %q has no segment %s", watch, strconv.Quote(segment))
 	}
-	title := watch + " · whole table"
-	if segment != "" {
-		title = watch + " · " + segment
-	}
+	title := watch + " · " + connectors.ParseSegmentKey(key).String()
 	f, err := os.Create(plot)
 	if err != nil {
 		return fmt.Errorf("--plot: %w", err)

@@ -124,10 +124,12 @@ type skippedColumn struct {
 }
 
 type groupOutput struct {
-	Bucket  string              `json:"bucket,omitempty"`
-	Segment string              `json:"segment,omitempty"`
-	Error   string              `json:"error,omitempty"`
-	Report  *diagnostics.Report `json:"report,omitempty"`
+	Bucket string `json:"bucket,omitempty"`
+	connectors.SegmentJSON
+	Error  string              `json:"error,omitempty"`
+	Report *diagnostics.Report `json:"report,omitempty"`
+
+	segment string // the key, for the text table
 }
 
 // caution is printed with every report.
@@ -281,7 +283,7 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 		gopt := opt
 		gopt.ReferenceSD = rep.ColumnSDs()
 		for _, g := range res.Groups {
-			gout := groupOutput{Segment: g.Key.Segment}
+			gout := groupOutput{SegmentJSON: connectors.SegmentJSONOf(g.Key.Segment), segment: g.Key.Segment}
 			if !g.Key.Bucket.IsZero() {
 				gout.Bucket = g.Key.Bucket.Format("2006-01-02T15:04:05Z07:00")
 			}

@@ -7,6 +7,7 @@ import (
 	"strings"
 	"text/tabwriter"
 
+	"plumb/connectors"
 	"plumb/diagnostics"
 )
 
@@ -144,11 +145,11 @@ func writeText(w io.Writer, out *scanOutput) error {
 		fmt.Fprintln(tw, "bucket\tsegment\trows\tcondition\tmax VIF\trank\tnote")
 		for _, g := range out.Groups {
 			if g.Report == nil {
-				fmt.Fprintf(tw, "%s\t%s\t\t\t\t\t%s\n", g.Bucket, g.Segment, g.Error)
+				fmt.Fprintf(tw, "%s\t%s\t\t\t\t\t%s\n", g.Bucket, connectors.SegmentLabel(g.segment), g.Error)
 				continue
 			}
 			gr := g.Report
-			fmt.Fprintf(tw, "%s\t%s\t%d\t%.4g\t%s\t%d\t%s\n", g.Bucket, g.Segment, gr.RowsUsed, gr.ConditionNumber, maxVIF(gr), gr.Rank, groupNote(gr))
+			fmt.Fprintf(tw, "%s\t%s\t%d\t%.4g\t%s\t%d\t%s\n", g.Bucket, connectors.SegmentLabel(g.segment), gr.RowsUsed, gr.ConditionNumber, maxVIF(gr), gr.Rank, groupNote(gr))
 		}
 		tw.Flush()
 	}

@@ -16,6 +16,7 @@ import (
 	"plumb/agent"
 	"plumb/agent/config"
 	"plumb/agent/web"
+	"plumb/connectors"
 	"plumb/diagnostics"
 )
 
@@ -206,8 +207,8 @@ func (v *View) detail(ctx context.Context, w *config.Watch, full bool) (*web.Wat
 			if raw := ps[len(ps)-1].Report; len(raw) > 0 {
 				var rep diagnostics.Report
 				if err := json.Unmarshal(raw, &rep); err != nil {
-					return nil, fmt.Errorf("watch %q segment %q: the stored report of %s does not decode: %w",
-						w.Name, s, ps[len(ps)-1].At.Format(time.RFC3339), err)
+					return nil, fmt.Errorf("watch %q segment %s: the stored report of %s does not decode: %w",
+						w.Name, connectors.ParseSegmentKey(s), ps[len(ps)-1].At.Format(time.RFC3339), err)
 				}
 				seg.Report = &rep
 			}
