@@ -8,9 +8,10 @@ import (
 	"testing"
 )
 
-// TestSegmentKeysSQLite: a store written with the old segment keys (” for
-// the whole table and for the empty string, '(null)' for NULL, values as
-// they are) is rewritten to the new keys by migration 00004.
+// TestSegmentKeysSQLite: a store written with the old segment keys (the
+// empty text for the whole table and for the empty string, "(null)" for
+// NULL, values as they are) is rewritten to the new keys by migration
+// 00004.
 func TestSegmentKeysSQLite(t *testing.T) {
 	testSegmentKeys(t, context.Background(), SQLite, openSQLite(t))
 }
