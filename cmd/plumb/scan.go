@@ -72,7 +72,7 @@ serious; a condition index above 30 marks a strong near dependency.`,
 	fl := cmd.Flags()
 	fl.StringVar(&f.db, "db", "", "database URL: sqlite:PATH or postgres://user@host/db (default: the built-in sample)")
 	fl.StringVar(&f.table, "table", "", "table to read, NAME or SCHEMA.NAME")
-	fl.StringVar(&f.query, "query", "", "SELECT to read instead of a table (runs in a read-only transaction)")
+	fl.StringVar(&f.query, "query", "", "one SELECT (or WITH … SELECT, VALUES) to read instead of a table; runs read-only")
 	fl.StringVar(&f.where, "where", "", "filter rows with this SQL condition")
 	fl.StringSliceVar(&f.columns, "columns", nil, "regressor columns, comma-separated (default: every numeric column but the target)")
 	fl.StringVar(&f.target, "target", "", "response column: fit OLS and attribute each coefficient's variance")
