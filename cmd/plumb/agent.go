@@ -88,15 +88,15 @@ func newLogger(w io.Writer, format string, level slog.Level) (*slog.Logger, erro
 
 func newAgentCmd() *cobra.Command {
 	var (
-		path, logFormat string
-		listen          string
-		grace           time.Duration
-		jitter          time.Duration
-		verbose         bool
+		path    string
+		listen  string
+		grace   time.Duration
+		jitter  time.Duration
+		verbose bool
 	)
 	cmd := &cobra.Command{
 		Use:   "agent [--config FILE]",
-		Short: "Run every watch on its schedule and deliver the alerts (daemon)",
+		Short: "run every watch on its schedule and deliver the alerts (daemon)",
 		Long: `agent migrates the state store, takes its lock (one agent per store), and runs
 each watch on its cron schedule: incremental runs that rescan the lookback and
 newer buckets, trend, jump and level rules with hysteresis, and notifications
@@ -108,13 +108,13 @@ runs at once. Runs of one watch never overlap; each starts up to --jitter after
 its tick. On SIGTERM or SIGINT no new run starts; runs in flight get --grace to
 finish and are then abandoned without writing anything.`,
 		Example: `  PLUMB_WEBHOOK_SECRET=... plumb agent --config /etc/plumb/plumb.yaml`,
-		Args:    cobra.NoArgs,
+		Args:    noArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			level := slog.LevelInfo
 			if verbose {
 				level = slog.LevelDebug
 			}
-			log, err := newLogger(cmd.ErrOrStderr(), logFormat, level)
+			log, err := commandLogger(cmd, level)
 			if err != nil {
 				return err
 			}
@@ -122,7 +122,6 @@ finish and are then abandoned without writing anything.`,
 		},
 	}
 	addConfigFlag(cmd, &path)
-	cmd.Flags().StringVar(&logFormat, "log-format", "json", "log format: json or text")
 	cmd.Flags().DurationVar(&grace, "grace", 30*time.Second, "time runs in flight get to finish at shutdown")
 	cmd.Flags().DurationVar(&jitter, "jitter", 10*time.Second, "most a run starts after its tick (0 for none)")
 	cmd.Flags().BoolVarP(&verbose, "verbose", "v", false, "debug logging")

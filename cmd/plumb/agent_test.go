@@ -86,7 +86,7 @@ func TestCheckHistoryAlertsBackfill(t *testing.T) {
 	cfg, _ := demoConfig(t, "")
 	// The demo's connections total becomes an exact sum: critical.
 	code, out, errs := plumbCLI(t, ctx, "check", "--config", cfg, "-q")
-	if code != 2 || !strings.Contains(out, "CRITICAL") ||
+	if code != checkFail || !strings.Contains(out, "tilted   district_daily · ") ||
 		!strings.Contains(out, "total_connections = 1·residential_connections + 1·commercial_connections + 0") {
 		t.Fatalf("check: exit %d\n%s\n%s", code, out, errs)
 	}
@@ -176,7 +176,7 @@ func TestCheckHistoryAlertsBackfill(t *testing.T) {
 	if ids(as) != ids(again) {
 		t.Fatalf("alerts before the backfill\n%s\nafter\n%s", ids(as), ids(again))
 	}
-	if code, _, _ := plumbCLI(t, ctx, "check", "district_daily", "--config", cfg, "-q"); code != 2 {
+	if code, _, _ := plumbCLI(t, ctx, "check", "district_daily", "--config", cfg, "-q"); code != checkFail {
 		t.Fatalf("second check: exit %d", code)
 	}
 	if code, _, errs := plumbCLI(t, ctx, "check", "nope", "--config", cfg); code != exitUsage || !strings.Contains(errs, `no watch "nope"`) {
@@ -214,39 +214,72 @@ func collinearTable(t *testing.T, n int, k float64) string {
 	return path
 }
 
+// TestCheckExitCodes pins plumb check's contract: 0 when no watch is at or
+// above the gate, 1 when one is, 2 when a watch could not be run, 64 for a
+// wrong command line; the gate is --fail-on (default critical).
 func TestCheckExitCodes(t *testing.T) {
 	ctx := context.Background()
 	for _, c := range []struct {
-		name string
-		k    float64 // VIF about k+1
-		want int
+		name   string
+		k      float64 // VIF about k+1
+		failOn string  // "" for the default
+		want   int
+		state  string
 	}{
-		{"independent", 0.01, 0},
-		{"warning", 6, 1},   // VIF ≈ 7: over warn 5, under critical 10
-		{"critical", 30, 2}, // VIF ≈ 31
+		{"independent", 0.01, "", 0, "steady"},
+		{"independent, gate warning", 0.01, "warning", 0, "steady"},
+		{"warning under the default gate", 6, "", 0, "leaning"}, // VIF ≈ 7: over warn 5, under critical 10
+		{"warning at the warning gate", 6, "warning", 1, "leaning"},
+		{"critical", 30, "", 1, "tilted"}, // VIF ≈ 31
+		{"critical, gate critical", 30, "critical", 1, "tilted"},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			src := collinearTable(t, 3000, c.k)
 			dir := t.TempDir()
 			cfg := filepath.Join(dir, "plumb.yaml")
 			os.WriteFile(cfg, []byte(fmt.Sprintf("store: sqlite:%s/state.db\nsources: {g: \"sqlite:%s\"}\nwatches:\n  - {name: gauges, source: g, table: gauges}\n", dir, src)), 0o600)
-			code, out, errs := plumbCLI(t, ctx, "check", "--config", cfg, "--format", "json", "-q")
+			args := []string{"check", "--config", cfg, "-q"}
+			if c.failOn != "" {
+				args = append(args, "--fail-on", c.failOn)
+			}
+			code, out, errs := plumbCLI(t, ctx, append(args, "--format", "json")...)
 			if code != c.want {
 				t.Fatalf("exit %d, want %d\n%s\n%s", code, c.want, out, errs)
 			}
 			var res []checkResult
-			if err := json.Unmarshal([]byte(out), &res); err != nil || len(res) != 1 || res[0].Verdict != c.want {
+			if err := json.Unmarshal([]byte(out), &res); err != nil || len(res) != 1 || res[0].State != c.state || res[0].AtGate != (c.want == 1) {
 				t.Fatalf("json %v: %s", err, out)
+			}
+			// The text form: the state first, in lower case, then the watch.
+			code, out, _ = plumbCLI(t, ctx, args...)
+			if code != c.want || !strings.HasPrefix(out, fmt.Sprintf("%-8s gauges · max VIF ", c.state)) ||
+				!strings.Contains(out, fmt.Sprintf("exit %d\n", c.want)) {
+				t.Fatalf("text: exit %d\n%s", code, out)
+			}
+			for _, word := range []string{"OK", "WARNING", "CRITICAL", "UNKNOWN"} {
+				if strings.Contains(out, word) {
+					t.Errorf("text output says %s:\n%s", word, out)
+				}
 			}
 		})
 	}
-	// A source that cannot be read: exit 3, and the failure is recorded.
+	// A source that cannot be read: exit 2, and the failure is recorded.
 	dir := t.TempDir()
 	cfg := filepath.Join(dir, "plumb.yaml")
 	os.WriteFile(cfg, []byte(fmt.Sprintf("store: sqlite:%s/state.db\nsources: {g: \"sqlite:%s/missing.db\"}\nwatches:\n  - {name: gauges, source: g, table: gauges}\n", dir, dir)), 0o600)
 	code, out, errs := plumbCLI(t, ctx, "check", "--config", cfg, "-q")
-	if code != exitError || !strings.Contains(out, "FAILED") {
+	if code != 2 || !strings.HasPrefix(out, "unread   gauges") {
 		t.Fatalf("unreadable source: exit %d\n%s\n%s", code, out, errs)
+	}
+	// A wrong command line: 64.
+	for _, args := range [][]string{
+		{"check", "--config", cfg, "--fail-on", "error"},
+		{"check", "--config", cfg, "--no-such-flag"},
+		{"check", "a", "b", "--config", cfg},
+	} {
+		if code, _, errs := plumbCLI(t, ctx, args...); code != 64 {
+			t.Errorf("%v: exit %d, want 64: %s", args, code, errs)
+		}
 	}
 }
 

@@ -77,7 +77,7 @@ func newAlertsCmd() *cobra.Command {
 	)
 	cmd := &cobra.Command{
 		Use:   "alerts [--config FILE] [--watch NAME] [--open]",
-		Short: "List open and recent alerts",
+		Short: "list open and recent alerts",
 		Long: `alerts lists the alerts in the state store, ordered by the data time that
 opened them (as_of): the open ones and those resolved within --since (default
 30 days; "all" for every alert). rule is one of level, trend, jump (the three
@@ -85,7 +85,7 @@ faces of one near dependency: one alert), exact, constant, broken (an expected
 dependency that stopped holding), blind; severity is warning or critical.
 Times are data times: onset is since when the cause holds, as_of the window
 end that opened the alert, resolved_as_of the one that resolved it.`,
-		Args: cobra.NoArgs,
+		Args: noArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if format != "text" && format != "json" {
 				return usagef("--format %q: want text or json", format)

@@ -17,7 +17,7 @@ func newBackfillCmd() *cobra.Command {
 	)
 	cmd := &cobra.Command{
 		Use:   "backfill WATCH [--from DATE] [--config FILE]",
-		Short: "Rebuild a watch's history from the source (all of it, or from a date)",
+		Short: "rebuild a watch's history from the source (all of it, or from a date)",
 		Long: `backfill rescans the watch's buckets from --from (or the whole table), rewrites
 them and every point after it, and replays the alert rules over the whole
 history, so it records the same alerts, with the same ids and data times, as
@@ -26,7 +26,7 @@ living through those days would have. It delivers none of them unless given
 live run (plumb check or the agent). It takes the store's lock.`,
 		Example: `  plumb backfill district_daily
   plumb backfill district_daily --from 2026-07-01`,
-		Args: cobra.ExactArgs(1),
+		Args: oneArg("WATCH"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			var t time.Time
 			if from != "" {
@@ -35,7 +35,10 @@ live run (plumb check or the agent). It takes the store's lock.`,
 					return err
 				}
 			}
-			log, _ := newLogger(cmd.ErrOrStderr(), "text", slog.LevelWarn)
+			log, err := commandLogger(cmd, slog.LevelWarn)
+			if err != nil {
+				return err
+			}
 			return runBackfill(cmd, path, args[0], t, notifyAll, log)
 		},
 	}

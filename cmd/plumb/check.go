@@ -15,63 +15,105 @@ import (
 	"plumb/agent/config"
 )
 
-// verdict is the exit status of a judging command: 0 ok, 1 warning,
-// 2 critical. Its message has been printed already.
-type verdict int
+// The states `plumb check` gives a watch, after a plumb line: a steady
+// wall stands true, a leaning one has a warning open, a tilted one a
+// critical alert; unread is a watch whose run failed.
+const (
+	stateSteady  = "steady"
+	stateLeaning = "leaning"
+	stateTilted  = "tilted"
+	stateUnread  = "unread"
+)
 
-func (v verdict) Error() string { return "" }
-func (v verdict) ExitCode() int { return int(v) }
+// Exit codes of plumb check (an outside contract).
+const (
+	checkPass   = 0 // no watch at or above the gate
+	checkFail   = 1 // at least one watch at or above the gate
+	checkUnread = 2 // at least one watch could not be run (exitError)
+)
 
-func verdictOf(s agent.Severity) verdict {
+func stateOf(s agent.Severity) string {
 	switch s {
 	case agent.Critical:
-		return 2
+		return stateTilted
 	case agent.Warning:
-		return 1
+		return stateLeaning
 	}
-	return 0
+	return stateSteady
 }
 
-// failedRuns is returned when a run could not read its source.
-type failedRuns struct{ msg string }
+// gate is the least severity that fails plumb check (--fail-on).
+type gate agent.Severity
 
-func (e failedRuns) Error() string { return e.msg }
-func (e failedRuns) ExitCode() int { return exitError }
+// reached reports whether an open alert of severity s is at or above g.
+func (g gate) reached(s agent.Severity) bool {
+	switch s {
+	case agent.Critical:
+		return true
+	case agent.Warning:
+		return g == gate(agent.Warning)
+	}
+	return false
+}
+
+// checkExit is the exit status of plumb check; its lines have been
+// printed already.
+type checkExit int
+
+func (e checkExit) Error() string { return "" }
+func (e checkExit) ExitCode() int { return int(e) }
 
 func newCheckCmd() *cobra.Command {
 	var (
-		path, format string
-		quiet        bool
+		path, format, failOn string
+		quiet                bool
 	)
 	cmd := &cobra.Command{
-		Use:   "check [WATCH] [--config FILE]",
-		Short: "Run every watch (or one) once and exit 0 ok, 1 warning, 2 critical",
+		Use:   "check [WATCH] [--config FILE] [--fail-on warning|critical]",
+		Short: "run every watch (or one) once; exit 1 when one is at or above the gate",
 		Long: `check runs one pass of every configured watch, or of the one named, exactly as the
 agent's schedule would (incremental, recorded in the state store, alerts
-evaluated and delivered), then exits with the worst verdict among the watches'
-open alerts: 0 when none is open, 1 for a warning, 2 for a critical alert, and
-3 when a watch could not be read or the store is unusable. Use it in pipelines
-and CI gates. It takes the store's lock, so it cannot run beside the agent.`,
+evaluated and delivered), and prints one line per watch with its state:
+
+  steady    no alert open
+  leaning   a warning open
+  tilted    a critical alert open
+  unread    the run failed (the source or the store could not be read)
+
+The exit status is 0 when no watch is at or above the gate, 1 when at least
+one is, 2 when at least one watch could not be run (or the configuration or
+store is unusable) and 64 for a wrong command line. The gate is --fail-on:
+critical (the default) fails on tilted watches, warning on leaning ones too.
+Use it in pipelines and CI gates. It takes the store's lock, so it cannot run
+beside the agent.`,
 		Example: `  plumb check --config plumb.yaml
-  plumb check district_daily --format json`,
-		Args: cobra.MaximumNArgs(1),
+  plumb check district_daily --config plumb.yaml --fail-on warning --format json`,
+		Args: atMostOneArg("WATCH"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if format != "text" && format != "json" {
 				return usagef("--format %q: want text or json", format)
+			}
+			if failOn != string(agent.Warning) && failOn != string(agent.Critical) {
+				return usagef("--fail-on %q: want warning or critical", failOn)
 			}
 			name := ""
 			if len(args) == 1 {
 				name = args[0]
 			}
-			log, _ := newLogger(cmd.ErrOrStderr(), "text", slog.LevelWarn)
-			if !quiet {
-				log, _ = newLogger(cmd.ErrOrStderr(), "text", slog.LevelInfo)
+			level := slog.LevelInfo
+			if quiet {
+				level = slog.LevelWarn
 			}
-			return runCheck(cmd.Context(), cmd.OutOrStdout(), path, name, format, log)
+			log, err := commandLogger(cmd, level)
+			if err != nil {
+				return err
+			}
+			return runCheck(cmd.Context(), cmd.OutOrStdout(), path, name, format, gate(failOn), log)
 		},
 	}
 	addConfigFlag(cmd, &path)
 	cmd.Flags().StringVar(&format, "format", "text", "output format: text or json")
+	cmd.Flags().StringVar(&failOn, "fail-on", string(agent.Critical), "least alert severity that fails the check: warning or critical")
 	cmd.Flags().BoolVarP(&quiet, "quiet", "q", false, "log warnings only")
 	return cmd
 }
@@ -79,11 +121,12 @@ and CI gates. It takes the store's lock, so it cannot run beside the agent.`,
 // checkResult is one watch in `plumb check --format json`.
 type checkResult struct {
 	Watch    string        `json:"watch"`
-	Status   string        `json:"status"` // ok, warning, critical, failed
+	State    string        `json:"state"`              // steady, leaning, tilted, unread
+	Severity string        `json:"severity,omitempty"` // worst open alert: warning or critical
+	AtGate   bool          `json:"at_gate"`            // counts against --fail-on
 	Error    string        `json:"error,omitempty"`
 	Run      agent.Run     `json:"run"`
 	Open     []alertOutput `json:"open_alerts"`
-	Verdict  int           `json:"exit_code"`
 	Cond     *float64      `json:"condition_number"`
 	MaxVIF   *float64      `json:"max_vif"`
 	MaxVIFOn string        `json:"max_vif_column,omitempty"`
@@ -104,7 +147,7 @@ func watchesToRun(c *config.Config, name string) ([]*config.Watch, error) {
 	return []*config.Watch{w}, nil
 }
 
-func runCheck(ctx context.Context, stdout io.Writer, path, name, format string, log *slog.Logger) error {
+func runCheck(ctx context.Context, stdout io.Writer, path, name, format string, g gate, log *slog.Logger) error {
 	c, err := loadConfig(path, true)
 	if err != nil {
 		return err
@@ -124,11 +167,7 @@ func runCheck(ctx context.Context, stdout io.Writer, path, name, format string, 
 	}
 	defer release()
 	runner := newRunner(st, c, log)
-	var (
-		results []checkResult
-		worst   verdict
-		failed  []string
-	)
+	var results []checkResult
 	for _, w := range watches {
 		out, err := runner.Run(ctx, w, agent.RunOptions{Kind: agent.RunCheck})
 		if err != nil {
@@ -138,15 +177,10 @@ func runCheck(ctx context.Context, stdout io.Writer, path, name, format string, 
 		for _, a := range out.Open {
 			r.Open = append(r.Open, toAlertOutput(a))
 		}
-		switch {
-		case out.Err != nil:
-			r.Status, r.Error, r.Verdict = "failed", out.Err.Error(), exitError
-			failed = append(failed, fmt.Sprintf("watch %s: %v", w.Name, out.Err))
-		default:
-			v := verdictOf(out.Verdict)
-			r.Verdict = int(v)
-			r.Status = map[verdict]string{0: "ok", 1: "warning", 2: "critical"}[v]
-			worst = max(worst, v)
+		if out.Err != nil {
+			r.State, r.Error = stateUnread, out.Err.Error()
+		} else {
+			r.State, r.Severity, r.AtGate = stateOf(out.Verdict), string(out.Verdict), g.reached(out.Verdict)
 		}
 		if ps, err := st.Points(ctx, w.Name, agent.PointQuery{Limit: 1}); err == nil && len(ps) == 1 {
 			r.Cond, r.MaxVIF, r.MaxVIFOn = finite(ps[0].ConditionNumber), finite(ps[0].MaxVIF), ps[0].MaxVIFColumn
@@ -157,6 +191,7 @@ func runCheck(ctx context.Context, stdout io.Writer, path, name, format string, 
 	if _, err := d.Once(ctx); err != nil {
 		log.Warn("delivering notifications", "err", err)
 	}
+	code := checkCode(results)
 	if format == "json" {
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
@@ -164,34 +199,73 @@ func runCheck(ctx context.Context, stdout io.Writer, path, name, format string, 
 			return err
 		}
 	} else {
-		for _, r := range results {
-			line := fmt.Sprintf("%-24s %-8s", termSafe(r.Watch), strings.ToUpper(r.Status))
-			if r.Cond != nil {
-				line += fmt.Sprintf(" condition %s", fmtNum(*r.Cond))
-			}
-			if r.MaxVIF != nil {
-				line += fmt.Sprintf(", max VIF %s", fmtNum(*r.MaxVIF))
-				if r.MaxVIFOn != "" {
-					line += " (" + termSafe(r.MaxVIFOn) + ")"
-				}
-			}
-			line += fmt.Sprintf("; read %d rows", r.Run.RowsRead)
-			fmt.Fprintln(stdout, line)
-			if r.Error != "" {
-				fmt.Fprintf(stdout, "    error: %s\n", termSafe(r.Error))
-			}
-			for _, a := range r.Open {
-				fmt.Fprintf(stdout, "    %-8s %-8s %s\n", a.Severity, a.Rule, termSafe(a.Message))
-			}
+		writeCheckText(stdout, results, g, code)
+	}
+	if code == checkPass {
+		return nil
+	}
+	return checkExit(code)
+}
+
+// checkCode is the exit status for results: unread beats the gate.
+func checkCode(results []checkResult) int {
+	code := checkPass
+	for _, r := range results {
+		switch {
+		case r.State == stateUnread:
+			return checkUnread
+		case r.AtGate:
+			code = checkFail
 		}
 	}
-	if len(failed) > 0 {
-		return failedRuns{msg: strings.Join(failed, "; ")}
+	return code
+}
+
+// writeCheckText prints one line per watch, state first, then its open
+// alerts indented under it, and a closing tally that says why the exit
+// status is what it is:
+//
+//	leaning  district_volumes · max VIF 7.2 (billed_volume_m3) · condition 41 · 56 rows read
+//	         warning, trend: max VIF is rising …
+//	1 of 3 watches at or above the gate (critical): exit 1
+func writeCheckText(w io.Writer, results []checkResult, g gate, code int) {
+	tally := map[string]int{}
+	for _, r := range results {
+		tally[r.State]++
+		parts := []string{r.Watch}
+		if r.MaxVIF != nil {
+			s := "max VIF " + fmtNum(*r.MaxVIF)
+			if r.MaxVIFOn != "" {
+				s += " (" + r.MaxVIFOn + ")"
+			}
+			parts = append(parts, s)
+		}
+		if r.Cond != nil {
+			parts = append(parts, "condition "+fmtNum(*r.Cond))
+		}
+		parts = append(parts, fmt.Sprintf("%d rows read", r.Run.RowsRead))
+		fmt.Fprintf(w, "%-8s %s\n", r.State, strings.Join(parts, " · "))
+		if r.Error != "" {
+			fmt.Fprintf(w, "%8s %s\n", "", r.Error)
+		}
+		for _, a := range r.Open {
+			fmt.Fprintf(w, "%8s %s, %s: %s\n", "", a.Severity, a.Rule, a.Message)
+		}
 	}
-	if worst > 0 {
-		return worst
+	var counts []string
+	for _, s := range []string{stateSteady, stateLeaning, stateTilted, stateUnread} {
+		if tally[s] > 0 {
+			counts = append(counts, fmt.Sprintf("%d %s", tally[s], s))
+		}
 	}
-	return nil
+	verdict := "none at or above the gate"
+	switch code {
+	case checkFail:
+		verdict = "at or above the gate"
+	case checkUnread:
+		verdict = "not every watch could be run"
+	}
+	fmt.Fprintf(w, "%d watch(es): %s; gate %s: %s, exit %d\n", len(results), strings.Join(counts, ", "), string(g), verdict, code)
 }
 
 // finite returns a pointer to v, or nil when v is not finite (JSON null).

@@ -38,9 +38,12 @@ func loadConfig(path string, resolve bool) (*config.Config, error) {
 func newConfigCmd() *cobra.Command {
 	cmd := &cobra.Command{
 		Use:   "config",
-		Short: "Work with the agent's configuration file",
-		Args:  cobra.NoArgs,
+		Short: "work with the agent's configuration file",
+		Args:  cobra.ArbitraryArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
+			if len(args) > 0 {
+				return unknownCommand(cmd, args[0])
+			}
 			return usagef("config needs a subcommand: check")
 		},
 	}
@@ -52,7 +55,7 @@ func newConfigCheckCmd() *cobra.Command {
 	var path string
 	cmd := &cobra.Command{
 		Use:   "check [--config FILE]",
-		Short: "Validate a configuration file and print what it would run",
+		Short: "validate the configuration file and print what it would run",
 		Long: `check reads the configuration file, rejects unknown keys, values of the wrong
 type and inconsistent settings (each with its line), makes sure every secret it
 names (environment variables, secret files) can be read, and prints the store,
@@ -61,7 +64,7 @@ never printed; passwords in URLs are shown as xxxxx.
 
 The exit status is 0 for a usable file and 3 otherwise.`,
 		Example: `  plumb config check --config /etc/plumb/plumb.yaml`,
-		Args:    cobra.NoArgs,
+		Args:    noArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			return runConfigCheck(cmd.OutOrStdout(), path, time.Now())
 		},

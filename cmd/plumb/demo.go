@@ -92,7 +92,7 @@ func newDemoCmd() *cobra.Command {
 	)
 	cmd := &cobra.Command{
 		Use:   "demo [--dir DIR] [--no-serve]",
-		Short: "Build the water-utility demo, backfill its history and serve the dashboard",
+		Short: "build the water-utility demo, backfill its history and serve the dashboard",
 		Long: `demo tells plumb's story on invented data in one command. In --dir it writes
 districts.db, a water utility's daily demand features for four supply districts
 over 120 days (generated from a fixed seed, nothing is downloaded), a state
@@ -113,7 +113,7 @@ same folder replaces the files it wrote there.`,
 		Example: `  plumb demo --dir /tmp/plumb-demo
   plumb demo --dir /tmp/plumb-demo --no-serve
   plumb history district_volumes --config /tmp/plumb-demo/plumb.yaml`,
-		Args: cobra.NoArgs,
+		Args: noArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			sc := demo.Default
 			if start != "" {
@@ -126,7 +126,11 @@ same folder replaces the files it wrote there.`,
 				today := time.Now().UTC().Truncate(24 * time.Hour)
 				sc.Start = today.AddDate(0, 0, -sc.Days)
 			}
-			return runDemo(cmd.Context(), cmd.OutOrStdout(), cmd.ErrOrStderr(), sc, dir, listen, !noServe)
+			log, err := commandLogger(cmd, slog.LevelWarn)
+			if err != nil {
+				return err
+			}
+			return runDemo(cmd.Context(), cmd.OutOrStdout(), log, sc, dir, listen, !noServe)
 		},
 	}
 	cmd.Flags().StringVar(&dir, "dir", "plumb-demo", "folder for the demo's database, state store and configuration")
@@ -136,7 +140,7 @@ same folder replaces the files it wrote there.`,
 	return cmd
 }
 
-func runDemo(ctx context.Context, stdout, stderr io.Writer, sc demo.Scenario, dir, listen string, serve bool) error {
+func runDemo(ctx context.Context, stdout io.Writer, log *slog.Logger, sc demo.Scenario, dir, listen string, serve bool) error {
 	began := time.Now()
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return fmt.Errorf("demo folder: %w", err)
@@ -165,7 +169,6 @@ func runDemo(ctx context.Context, stdout, stderr io.Writer, sc demo.Scenario, di
 	if err != nil {
 		return err
 	}
-	log := slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: slog.LevelWarn}))
 	st, err := openStore(ctx, c, true, log)
 	if err != nil {
 		return err

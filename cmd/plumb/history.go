@@ -50,7 +50,7 @@ func newHistoryCmd() *cobra.Command {
 	)
 	cmd := &cobra.Command{
 		Use:   "history WATCH [--config FILE] [--format text|json] [--plot FILE.svg|FILE.png]",
-		Short: "Show a watch's timeline of condition number, max VIF, rank and rows",
+		Short: "show a watch's timeline of condition number, max VIF, rank and rows",
 		Long: `history prints the watch's points, oldest first: for each window end (or run
 time, without buckets) the condition number, the largest VIF and its column,
 the rank of [1 X] and the rows used. Undefined values (a singular design) are
@@ -63,7 +63,7 @@ extension.`,
 		Example: `  plumb history district_volumes --config plumb.yaml
   plumb history district_daily --segment hillside --plot hillside.svg
   plumb history district_volumes --plot volumes.png`,
-		Args: cobra.ExactArgs(1),
+		Args: oneArg("WATCH"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if format != "text" && format != "json" {
 				return usagef("--format %q: want text or json", format)

@@ -7,8 +7,10 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"log/slog"
 	"os"
 	"os/signal"
+	"strings"
 	"syscall"
 
 	"github.com/spf13/cobra"
@@ -17,10 +19,10 @@ import (
 	_ "plumb/connectors/sqlite"
 )
 
-// Exit codes. 0, 1 and 2 are reserved for verdicts (ok, warning,
-// critical) of the commands that judge; errors use the codes below.
+// Exit codes, the same for every command. plumb check adds 1 for a watch
+// at or above its gate (see check.go).
 const (
-	exitError    = 3  // the job could not be done: bad data, unreachable source, …
+	exitError    = 2  // the job could not be done: bad data, unreachable source, …
 	exitUsage    = 64 // the command line is wrong
 	exitInternal = 70 // a bug in plumb
 )
@@ -82,16 +84,25 @@ func execute(ctx context.Context, root *cobra.Command, args []string, stdout, st
 	fmt.Fprintln(stderr, "plumb:", termSafeLines(err.Error()))
 	var ue usageError
 	if errors.As(err, &ue) {
-		fmt.Fprintln(stderr, "Run 'plumb --help' for usage.")
+		fmt.Fprintln(stderr, "plumb --help lists the commands; plumb COMMAND --help explains one.")
 		return exitUsage
 	}
 	return exitError
 }
 
+// Command groups of plumb --help, by what the user is doing.
+var commandGroups = []*cobra.Group{
+	{ID: "once", Title: "look once"},
+	{ID: "watch", Title: "watch"},
+	{ID: "record", Title: "read the record"},
+	{ID: "upkeep", Title: "upkeep"},
+}
+
 func newRoot() *cobra.Command {
+	var logFormat string
 	root := &cobra.Command{
-		Use:   "plumb",
-		Short: "Watch feature tables for multicollinearity and drift toward it",
+		Use:   "plumb COMMAND [flags]",
+		Short: "watch feature tables for multicollinearity and drift toward it",
 		Long: `plumb reads the numeric feature columns of PostgreSQL and SQLite tables without
 loading them into memory and reports how redundant they are: variance inflation
 factors (VIF), condition indices with variance-decomposition proportions, exact
@@ -103,21 +114,101 @@ It only reads: every statement runs in a read-only transaction.
 Diagnostics describe the data, not causality. Dropping a relevant column trades
 variance for omitted-variable bias; where results feed decisions about people,
 defer to the model's governance.`,
+		Version:       versionLine(),
+		Args:          cobra.ArbitraryArgs,
 		SilenceUsage:  true,
 		SilenceErrors: true,
+		RunE: func(cmd *cobra.Command, args []string) error {
+			if len(args) == 0 {
+				return cmd.Help()
+			}
+			return unknownCommand(cmd, args[0])
+		},
 	}
+	root.SetVersionTemplate("{{.Version}}\n")
+	root.CompletionOptions.HiddenDefaultCmd = true
 	root.SetFlagErrorFunc(func(c *cobra.Command, err error) error {
+		// "plumb scna --db …": the flag belongs to the misspelt command.
+		if !c.HasParent() && c.Flags().NArg() > 0 {
+			return unknownCommand(c, c.Flags().Arg(0))
+		}
 		return usageError{err}
 	})
-	root.AddCommand(newScanCmd())
-	root.AddCommand(newConfigCmd())
-	root.AddCommand(newMigrateCmd())
-	root.AddCommand(newCheckCmd())
-	root.AddCommand(newHistoryCmd())
-	root.AddCommand(newAlertsCmd())
-	root.AddCommand(newBackfillCmd())
-	root.AddCommand(newAgentCmd())
-	root.AddCommand(newServeCmd())
-	root.AddCommand(newDemoCmd())
+	root.PersistentFlags().StringVar(&logFormat, "log-format", "json", "log lines on stderr as json or text")
+	root.AddGroup(commandGroups...)
+	for _, c := range []struct {
+		group string
+		cmd   *cobra.Command
+	}{
+		{"once", newScanCmd()},
+		{"once", newDemoCmd()},
+		{"watch", newCheckCmd()},
+		{"watch", newAgentCmd()},
+		{"watch", newBackfillCmd()},
+		{"record", newHistoryCmd()},
+		{"record", newAlertsCmd()},
+		{"record", newServeCmd()},
+		{"upkeep", newConfigCmd()},
+		{"upkeep", newMigrateCmd()},
+		{"upkeep", newVersionCmd()},
+	} {
+		c.cmd.GroupID = c.group
+		root.AddCommand(c.cmd)
+	}
+	setHelp(root)
 	return root
+}
+
+// unknownCommand is the usage error for a command name plumb does not
+// know, naming the nearest ones it does (by edit distance).
+func unknownCommand(parent *cobra.Command, name string) error {
+	var names []string
+	best := -1
+	for _, c := range parent.Commands() {
+		if !c.IsAvailableCommand() {
+			continue
+		}
+		switch d := editDistance(name, c.Name()); {
+		case best < 0 || d < best:
+			best, names = d, []string{c.Name()}
+		case d == best:
+			names = append(names, c.Name())
+		}
+	}
+	msg := fmt.Sprintf("%q is not a command of %s", name, parent.CommandPath())
+	if len(names) > 0 {
+		msg += fmt.Sprintf("; the nearest is %s", strings.Join(names, " or "))
+	}
+	return usageError{errors.New(msg)}
+}
+
+// editDistance is the Levenshtein distance between a and b, case folded.
+func editDistance(a, b string) int {
+	ra, rb := []rune(strings.ToLower(a)), []rune(strings.ToLower(b))
+	prev := make([]int, len(rb)+1)
+	cur := make([]int, len(rb)+1)
+	for j := range prev {
+		prev[j] = j
+	}
+	for i := 1; i <= len(ra); i++ {
+		cur[0] = i
+		for j := 1; j <= len(rb); j++ {
+			cost := 1
+			if ra[i-1] == rb[j-1] {
+				cost = 0
+			}
+			cur[j] = min(prev[j]+1, cur[j-1]+1, prev[j-1]+cost)
+		}
+		prev, cur = cur, prev
+	}
+	return prev[len(rb)]
+}
+
+// commandLogger is the logger of a command: --log-format on stderr.
+func commandLogger(cmd *cobra.Command, level slog.Level) (*slog.Logger, error) {
+	format, err := cmd.Flags().GetString("log-format")
+	if err != nil {
+		format = "json"
+	}
+	return newLogger(cmd.ErrOrStderr(), format, level)
 }

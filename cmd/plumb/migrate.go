@@ -15,11 +15,11 @@ func newMigrateCmd() *cobra.Command {
 	var path string
 	cmd := &cobra.Command{
 		Use:   "migrate [--config FILE]",
-		Short: "Create or upgrade the state store's schema",
+		Short: "create or upgrade the state store's schema",
 		Long: `migrate applies the state store's pending schema migrations (the agent, check and
 backfill also do this at start). A store migrated by a newer plumb is refused
 and left untouched. On SQLite, migrate from one process at a time.`,
-		Args: cobra.NoArgs,
+		Args: noArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			return runMigrate(cmd, path, cmd.OutOrStdout())
 		},

@@ -39,7 +39,7 @@ func newScanCmd() *cobra.Command {
 	var f scanFlags
 	cmd := &cobra.Command{
 		Use:   "scan [--db URL] (--table NAME | --query SQL) [flags]",
-		Short: "Read a table once and report its multicollinearity diagnostics",
+		Short: "read a table once and report its multicollinearity diagnostics",
 		Long: `scan streams the chosen numeric columns of one table or query and prints a
 report: per column VIF, tolerance, R² against the other columns and the factor
 by which its standard error is inflated; condition indices with
@@ -64,7 +64,7 @@ serious; a condition index above 30 marks a strong near dependency.`,
       --columns temperature_c,rainfall_mm,metered_volume_m3,billed_volume_m3 --format json
   plumb scan --db sqlite:districts.db --table district_daily \
       --group connections=residential_connections,commercial_connections`,
-		Args: cobra.NoArgs,
+		Args: noArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			return runScan(cmd.Context(), cmd.OutOrStdout(), cmd.ErrOrStderr(), &f)
 		},

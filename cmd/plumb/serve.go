@@ -18,10 +18,10 @@ import (
 )
 
 func newServeCmd() *cobra.Command {
-	var path, listen, logFormat string
+	var path, listen string
 	cmd := &cobra.Command{
 		Use:   "serve [--config FILE] [--listen ADDR]",
-		Short: "Serve the dashboard, JSON API and /metrics for a state store (no schedules)",
+		Short: "serve the dashboard, JSON API and /metrics for a state store (no schedules)",
 		Long: `serve reads the state store named by the configuration and serves, until
 interrupted: the dashboard (an overview of every watch and a page per watch with
 its timelines, VIF bars, correlation heat map, dependencies and run log), the
@@ -34,9 +34,9 @@ is not loopback needs a bearer token in $` + web.TokenEnv + `: requests must sen
 "Authorization: Bearer TOKEN" (browsers log in once at /login).`,
 		Example: `  plumb serve --config plumb.yaml
   PLUMB_HTTP_TOKEN=$(cat /etc/plumb/token) plumb serve --config plumb.yaml --listen 0.0.0.0:9464`,
-		Args: cobra.NoArgs,
+		Args: noArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			log, err := newLogger(cmd.ErrOrStderr(), logFormat, slog.LevelInfo)
+			log, err := commandLogger(cmd, slog.LevelInfo)
 			if err != nil {
 				return err
 			}
@@ -54,7 +54,6 @@ is not loopback needs a bearer token in $` + web.TokenEnv + `: requests must sen
 	}
 	addConfigFlag(cmd, &path)
 	cmd.Flags().StringVar(&listen, "listen", web.DefaultListen, "address to listen on (host:port)")
-	cmd.Flags().StringVar(&logFormat, "log-format", "text", "log format: json or text")
 	return cmd
 }
 

@@ -1,0 +1,129 @@
+package main
+
+import (
+	"context"
+	"flag"
+	"os"
+	"path/filepath"
+	"runtime"
+	"strings"
+	"testing"
+)
+
+var update = flag.Bool("update", false, "rewrite the golden files of cmd/plumb")
+
+// TestHelpGolden pins plumb --help: plumb's own layout, commands grouped
+// by what the user is doing, completion not listed.
+func TestHelpGolden(t *testing.T) {
+	code, out, errs := plumbCLI(t, context.Background(), "--help")
+	if code != 0 || errs != "" {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	golden := filepath.Join("testdata", "help.golden")
+	if *update {
+		if err := os.WriteFile(golden, []byte(out), 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	want, err := os.ReadFile(golden)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if out != string(want) {
+		t.Fatalf("plumb --help differs from %s (go test ./cmd/plumb -run TestHelpGolden -update rewrites it):\n%s", golden, out)
+	}
+	for _, s := range []string{"Available Commands", "Flags:", "Use \"plumb", "completion", "Global Flags"} {
+		if strings.Contains(out, s) {
+			t.Errorf("plumb --help says %q", s)
+		}
+	}
+	for _, g := range []string{"\nlook once\n", "\nwatch\n", "\nread the record\n", "\nupkeep\n"} {
+		if !strings.Contains(out, g) {
+			t.Errorf("plumb --help lacks the group %q", strings.TrimSpace(g))
+		}
+	}
+	// Bare plumb prints the same.
+	if code, bare, _ := plumbCLI(t, context.Background()); code != 0 || bare != out {
+		t.Errorf("plumb without arguments: exit %d\n%s", code, bare)
+	}
+}
+
+// TestCommandHelpIsPlumbs checks that every command's help is written in
+// plumb's layout, with no line of the library's template.
+func TestCommandHelpIsPlumbs(t *testing.T) {
+	for _, args := range [][]string{
+		{"scan", "--help"}, {"check", "--help"}, {"config", "--help"}, {"config", "check", "--help"},
+		{"help", "history"}, {"version", "--help"},
+	} {
+		code, out, errs := plumbCLI(t, context.Background(), args...)
+		if code != 0 || errs != "" {
+			t.Fatalf("%v: exit %d: %s", args, code, errs)
+		}
+		if !strings.HasPrefix(out, "plumb ") || !strings.Contains(out, "\nusage: plumb ") {
+			t.Errorf("%v:\n%s", args, out)
+		}
+		for _, s := range []string{"Usage:", "Flags:", "Global Flags:", "help for ", "Available Commands"} {
+			if strings.Contains(out, s) {
+				t.Errorf("%v: help says %q:\n%s", args, s, out)
+			}
+		}
+	}
+}
+
+func TestVersion(t *testing.T) {
+	for _, args := range [][]string{{"version"}, {"--version"}} {
+		code, out, errs := plumbCLI(t, context.Background(), args...)
+		if code != 0 || errs != "" {
+			t.Fatalf("%v: exit %d: %s", args, code, errs)
+		}
+		// A test binary records no commit (and go test stamps no module
+		// version): the line says so rather than inventing one.
+		want := "plumb (devel), commit not recorded, " + runtime.Version() + "\n"
+		if b := readBuildInfo(); b.Version != "(devel)" || b.Commit != "" {
+			want = versionLine() + "\n"
+		}
+		if out != want {
+			t.Errorf("%v: %q, want %q", args, out, want)
+		}
+	}
+}
+
+// TestUnknownCommand: an unknown command is a wrong command line (64),
+// like an unknown flag, and the nearest command is named.
+func TestUnknownCommand(t *testing.T) {
+	for _, c := range []struct {
+		args    []string
+		nearest string
+	}{
+		{[]string{"chek"}, "the nearest is check"},
+		{[]string{"histroy", "district_daily"}, "the nearest is history"},
+		{[]string{"config", "chekc"}, "the nearest is check"},
+		{[]string{"scna", "--db", "sqlite:x.db"}, "the nearest is scan"},
+	} {
+		code, out, errs := plumbCLI(t, context.Background(), c.args...)
+		if code != exitUsage || out != "" || !strings.Contains(errs, c.nearest) {
+			t.Errorf("%v: exit %d, stdout %q, stderr %q", c.args, code, out, errs)
+		}
+	}
+	if code, _, _ := plumbCLI(t, context.Background(), "scan", "--no-such-flag"); code != exitUsage {
+		t.Errorf("unknown flag: exit %d", code)
+	}
+	if code, _, _ := plumbCLI(t, context.Background(), "history"); code != exitUsage {
+		t.Errorf("history without WATCH: exit %d", code)
+	}
+}
+
+func TestEditDistance(t *testing.T) {
+	for _, c := range []struct {
+		a, b string
+		want int
+	}{
+		{"", "", 0}, {"check", "check", 0}, {"chek", "check", 1}, {"histroy", "history", 2},
+		{"kitten", "sitting", 3}, // the textbook example; common practice, no source
+		{"SCAN", "scan", 0},
+	} {
+		if got := editDistance(c.a, c.b); got != c.want {
+			t.Errorf("editDistance(%q, %q) = %d, want %d", c.a, c.b, got, c.want)
+		}
+	}
+}
