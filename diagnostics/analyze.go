@@ -502,6 +502,7 @@ func (rep *Report) nearDependencies(d *design, c *collin, opt Options) {
 		if len(cols) >= 2 {
 			rep.Dependencies = append(rep.Dependencies, Dependency{
 				Kind: KindNear, Columns: cols, ConditionIndex: ci, Proportions: props,
+				IncludesIntercept: rep.Proportions[dim][0] > opt.PropLimit,
 			})
 		}
 	}

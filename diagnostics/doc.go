@@ -104,7 +104,7 @@
 // σ₁·eps, so a singular design reports an index of 1/eps, never +Inf.
 // Near dependencies are the indices of (a) above CondLimit, other than the
 // (p + 1 − rank) largest which are the exact dependencies, with at least
-// two proportions above PropLimit ("(intercept)" can be one of them).
+// two proportions above PropLimit ("intercept" can be one of them; Dependency.IncludesIntercept says when).
 //
 // # Drivers
 //

@@ -115,7 +115,7 @@ func (rep *Report) regression(d *design, c *collin, opt Options) {
 	reg.Sigma = o.sigma
 	reg.R2 = 1 - o.ssr/syy
 	if !opt.NoIntercept {
-		reg.Coefficients = append(reg.Coefficients, Coefficient{Name: InterceptName, Estimate: o.b0, StdError: o.se0, T: tstat(o.b0, o.se0)})
+		reg.Coefficients = append(reg.Coefficients, Coefficient{Name: InterceptName, IsIntercept: true, Estimate: o.b0, StdError: o.se0, T: tstat(o.b0, o.se0)})
 	}
 	varY := d.sd(y) * d.sd(y)
 	tcrit := distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(df)}.Quantile(1 - tLevel/2)

@@ -36,8 +36,10 @@ const (
 	DefaultPropLimit = 0.5
 )
 
-// InterceptName names the intercept in proportions and coefficients.
-const InterceptName = "(intercept)"
+// InterceptName names the intercept in proportions, dependencies and
+// coefficients. A column may carry the same name: Coefficient.IsIntercept
+// and Dependency.IncludesIntercept tell them apart.
+const InterceptName = "intercept"
 
 // Path names (Report.Path): the accumulator the diagnostics came from.
 const (
@@ -85,7 +87,7 @@ type Report struct {
 	ConditionNumber  float64     `json:"condition_number"`
 	ConditionIndices []float64   `json:"condition_indices"` // ascending
 	Proportions      [][]float64 `json:"proportions"`       // [dimension][variable], dimensions as ConditionIndices
-	ProportionNames  []string    `json:"proportion_names"`  // "(intercept)" first
+	ProportionNames  []string    `json:"proportion_names"`  // "intercept" first
 	// Convention (b): the centered columns that vary, scaled to unit
 	// length, no intercept.
 	CenteredConditionNumber  float64     `json:"centered_condition_number"`
@@ -184,6 +186,9 @@ type Dependency struct {
 	// proportions above PropLimit.
 	ConditionIndex float64            `json:"condition_index,omitempty"`
 	Proportions    map[string]float64 `json:"proportions,omitempty"`
+	// IncludesIntercept is set when the intercept ("intercept" in Columns)
+	// takes part in a near dependency.
+	IncludesIntercept bool `json:"includes_intercept,omitempty"`
 }
 
 // Dependency kinds.
@@ -223,7 +228,7 @@ type DropVIF struct {
 type Regression struct {
 	Target       string        `json:"target"`
 	Intercept    bool          `json:"intercept"`
-	Coefficients []Coefficient `json:"coefficients"` // intercept first, named "(intercept)"
+	Coefficients []Coefficient `json:"coefficients"` // intercept first, named "intercept"
 	// NotEstimable lists regressors left out of the fit because they are
 	// constant or the dependent column of an exact dependency.
 	NotEstimable []string        `json:"not_estimable,omitempty"`
@@ -236,10 +241,13 @@ type Regression struct {
 
 // Coefficient is one estimated coefficient.
 type Coefficient struct {
-	Name     string  `json:"name"`
-	Estimate float64 `json:"estimate"`
-	StdError float64 `json:"std_error"`
-	T        float64 `json:"t"`
+	Name string `json:"name"`
+	// IsIntercept marks the intercept's coefficient (named "intercept"),
+	// so that a column of that name stays distinguishable.
+	IsIntercept bool    `json:"is_intercept"`
+	Estimate    float64 `json:"estimate"`
+	StdError    float64 `json:"std_error"`
+	T           float64 `json:"t"`
 	// Digits is the number of correct significant digits expected in
 	// Estimate from a first-order rounding-error estimate (see Trust).
 	Digits float64 `json:"expected_digits"`

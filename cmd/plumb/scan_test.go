@@ -8,6 +8,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"path/filepath"
+	"regexp"
 	"strings"
 	"testing"
 
@@ -76,11 +77,14 @@ type scanJSON struct {
 		Equation       string             `json:"equation"`
 		ConditionIndex float64            `json:"condition_index"`
 		Proportions    map[string]float64 `json:"proportions"`
+		WithIntercept  bool               `json:"includes_intercept"`
 	} `json:"dependencies"`
+	ProportionNames []string `json:"proportion_names"`
 	Regression *struct {
 		Coefficients []struct {
-			Name     string  `json:"name"`
-			Estimate float64 `json:"estimate"`
+			Name        string  `json:"name"`
+			IsIntercept bool    `json:"is_intercept"`
+			Estimate    float64 `json:"estimate"`
 			StdError float64 `json:"std_error"`
 			T        float64 `json:"t"`
 		} `json:"coefficients"`
@@ -113,7 +117,7 @@ func TestScanSampleText(t *testing.T) {
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
-	for _, want := range []string{"rows used 480", "billed_volume_m3", "Condition number", "OLS of demand_m3", "omitted-variable bias"} {
+	for _, want := range []string{"rows used 480", "billed_volume_m3", "Condition number", "Least-squares fit of demand_m3", "omitted-variable bias"} {
 		if !strings.Contains(out, want) {
 			t.Errorf("report lacks %q:\n%s", want, out)
 		}
@@ -163,7 +167,7 @@ func TestScanSampleJSONContract(t *testing.T) {
 	if len(s.ConditionIndices) != 11 || s.ConditionNumber < s.CenteredConditionNumber {
 		t.Errorf("condition indices %v, number %v, centered %v", s.ConditionIndices, s.ConditionNumber, s.CenteredConditionNumber)
 	}
-	if s.Regression == nil || len(s.Regression.Coefficients) != 11 || s.Regression.Coefficients[0].Name != "(intercept)" {
+	if s.Regression == nil || len(s.Regression.Coefficients) != 11 || s.Regression.Coefficients[0].Name != "intercept" || !s.Regression.Coefficients[0].IsIntercept {
 		t.Fatalf("regression %+v", s.Regression)
 	}
 }
@@ -284,5 +288,76 @@ func TestScanHelp(t *testing.T) {
 		if !strings.Contains(out, flag) {
 			t.Errorf("help lacks %s", flag)
 		}
+	}
+}
+
+// TestScanRegressionPrintout pins plumb's own regression layout: a fit line
+// with R² and the residual SD in the target's units, a header with units,
+// and the intercept named "intercept" in text and JSON (is_intercept on its
+// coefficient, first of proportion_names), distinguishable from a column of
+// that name.
+func TestScanRegressionPrintout(t *testing.T) {
+	code, out, errs := runCLI(t, "scan", "--quiet")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	for _, want := range []string{
+		"Least-squares fit of demand_m3 on 10 columns and an intercept, 480 rows: R² ",
+		", residual SD ",
+		"  coefficient ", " estimate ", " in units of ", " standard error ", " estimate ÷ SE\n",
+		"demand_m3 (all columns 0)",
+		"demand_m3 per temperature_c",
+	} {
+		if !strings.Contains(out, want) {
+			t.Errorf("report lacks %q:\n%s", want, out)
+		}
+	}
+	for _, gone := range []string{"(intercept)", "std error", "degrees of freedom", "sigma "} {
+		if strings.Contains(out, gone) {
+			t.Errorf("report says %q:\n%s", gone, out)
+		}
+	}
+	if !regexp.MustCompile(`(?m)^  intercept +-?[0-9]`).MatchString(out) {
+		t.Errorf("no intercept row:\n%s", out)
+	}
+
+	// A column called "intercept" beside the real one, in a near
+	// dependency with it: y = 2·intercept_col + noise, intercept_col ≈ 1000 ± 1.
+	var rows [][]any
+	for i := range 60 {
+		x := 1000 + float64(i%7)/7
+		z := float64((i * 37) % 11)
+		rows = append(rows, []any{x, z, 2*x + z + float64(i%3)})
+	}
+	path := sqliteTable(t, "CREATE TABLE meters (intercept REAL, z REAL, y REAL)", rows)
+	s := scanJSONOf(t, "--db", "sqlite:"+path, "--table", "meters", "--target", "y")
+	if s.Regression == nil || len(s.Regression.Coefficients) != 3 {
+		t.Fatalf("regression %+v", s.Regression)
+	}
+	var real, col int
+	for _, c := range s.Regression.Coefficients {
+		if c.Name != "intercept" && c.Name != "z" {
+			t.Errorf("coefficient named %q", c.Name)
+		}
+		if c.IsIntercept {
+			real++
+		} else if c.Name == "intercept" {
+			col++
+		}
+	}
+	if real != 1 || col != 1 || !s.Regression.Coefficients[0].IsIntercept {
+		t.Errorf("want the intercept first with is_intercept and the column apart: %+v", s.Regression.Coefficients)
+	}
+	if len(s.ProportionNames) == 0 || s.ProportionNames[0] != "intercept" {
+		t.Errorf("proportion_names %v: want intercept first", s.ProportionNames)
+	}
+	var near bool
+	for _, d := range s.Dependencies {
+		if d.Kind == "near" && d.WithIntercept {
+			near = true
+		}
+	}
+	if !near {
+		t.Errorf("no near dependency marked includes_intercept (a column of mean 1000 and spread 0.3 is nearly the intercept): %+v", s.Dependencies)
 	}
 }

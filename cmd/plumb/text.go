@@ -117,13 +117,7 @@ func writeText(w io.Writer, out *scanOutput) error {
 		tw.Flush()
 	}
 	if reg := r.Regression; reg != nil {
-		fmt.Fprintf(&b, "\nOLS of %s: R² %.6f, sigma %.6g on %d degrees of freedom\n", out.Target, reg.R2, reg.Sigma, reg.DF)
-		tw = tabwriter.NewWriter(&b, 2, 4, 2, ' ', tabwriter.AlignRight)
-		fmt.Fprintln(tw, "term\testimate\tstd error\tt\t")
-		for _, c := range reg.Coefficients {
-			fmt.Fprintf(tw, "%s\t%.6g\t%.4g\t%.3f\t\n", c.Name, c.Estimate, c.StdError, c.T)
-		}
-		tw.Flush()
+		writeRegression(&b, out.Target, r.RowsUsed, reg)
 		b.WriteString("\nWhy each coefficient's variance is what it is: Var(b_j) = sigma² / (SST_j · (1 − R_j²))\n")
 		for _, s := range reg.Attribution {
 			if s.Inflated {
@@ -156,6 +150,32 @@ func writeText(w io.Writer, out *scanOutput) error {
 	fmt.Fprintf(&b, "\n%s\n", out.Caution)
 	_, err := io.WriteString(w, termSafeLines(b.String()))
 	return err
+}
+
+// writeRegression prints the least-squares fit: one line with R² and the
+// residual SD in the target's units, then per coefficient its estimate,
+// the unit it is in (target units per unit of the column; the intercept is
+// in target units), its standard error and the estimate in standard
+// errors.
+func writeRegression(b *strings.Builder, target string, rows int64, reg *diagnostics.Regression) {
+	cols := len(reg.Coefficients)
+	with := ""
+	if reg.Intercept {
+		cols--
+		with = " and an intercept"
+	}
+	fmt.Fprintf(b, "\nLeast-squares fit of %s on %d columns%s, %d rows: R² %.6f, residual SD %.6g %s\n",
+		target, cols, with, rows, reg.R2, reg.Sigma, target)
+	tw := tabwriter.NewWriter(b, 2, 4, 2, ' ', 0)
+	fmt.Fprintln(tw, "  coefficient\testimate\tin units of\tstandard error\testimate ÷ SE")
+	for _, c := range reg.Coefficients {
+		unit := target + " per " + c.Name
+		if c.IsIntercept {
+			unit = target + " (all columns 0)"
+		}
+		fmt.Fprintf(tw, "  %s\t%.6g\t%s\t%.4g\t%.3f\n", c.Name, c.Estimate, unit, c.StdError, c.T)
+	}
+	tw.Flush()
 }
 
 func num(v *float64, format string) string {

@@ -11,7 +11,7 @@ vif_statsmodels  statsmodels.stats.outliers_influence.variance_inflation_factor
 vif_inverse_correlation  diag(inv(corr(X))), numpy.
 correlation_eigenvalues  numpy.linalg.eigvalsh(corr(X)), descending.
 uncentered       convention (a): Z = [1 X], each column scaled to unit
-                 Euclidean length; names start with "(intercept)".
+                 Euclidean length; names start with "intercept".
 centered         convention (b): X centered on its means, each column scaled
                  to unit length, no intercept column.
 
@@ -90,7 +90,7 @@ def dataset(spec):
         "vif_inverse_correlation": vif_inv,
         "correlation_eigenvalues": floats(eig),
         "uncentered": {
-            "names": ["(intercept)"] + regs,
+            "names": ["intercept"] + regs,
             "singular_values": floats(mu_a),
             "condition_indices": floats(eta_a),
             "condition_number": float(eta_a[-1]),
