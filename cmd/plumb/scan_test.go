@@ -80,13 +80,13 @@ type scanJSON struct {
 		WithIntercept  bool               `json:"includes_intercept"`
 	} `json:"dependencies"`
 	ProportionNames []string `json:"proportion_names"`
-	Regression *struct {
+	Regression      *struct {
 		Coefficients []struct {
 			Name        string  `json:"name"`
 			IsIntercept bool    `json:"is_intercept"`
 			Estimate    float64 `json:"estimate"`
-			StdError float64 `json:"std_error"`
-			T        float64 `json:"t"`
+			StdError    float64 `json:"std_error"`
+			T           float64 `json:"t"`
 		} `json:"coefficients"`
 		Sigma float64 `json:"sigma"`
 		R2    float64 `json:"r2"`
