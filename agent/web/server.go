@@ -17,8 +17,9 @@ import (
 )
 
 // DefaultListen is the address the server listens on unless told
-// otherwise: loopback only, so no token is needed.
-const DefaultListen = "127.0.0.1:9464"
+// otherwise: loopback only, so no token is needed. 7586 spells PLUM on a
+// telephone keypad; no well-known exporter or SDK claims it.
+const DefaultListen = "127.0.0.1:7586"
 
 // TokenEnv is the environment variable the command line reads the bearer
 // token from.

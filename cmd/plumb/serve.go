@@ -33,7 +33,7 @@ The server listens on ` + web.DefaultListen + ` unless told otherwise. Any addre
 is not loopback needs a bearer token in $` + web.TokenEnv + `: requests must send
 "Authorization: Bearer TOKEN" (browsers log in once at /login).`,
 		Example: `  plumb serve --config plumb.yaml
-  PLUMB_HTTP_TOKEN=$(cat /etc/plumb/token) plumb serve --config plumb.yaml --listen 0.0.0.0:9464`,
+  PLUMB_HTTP_TOKEN=$(cat /etc/plumb/token) plumb serve --config plumb.yaml --listen 0.0.0.0:7586`,
 		Args: noArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			log, err := commandLogger(cmd, slog.LevelInfo)
