@@ -100,7 +100,7 @@ watches:
 		}
 		lastRead = out.Run.RowsRead
 	}
-	// The last run read the lookback (2 buckets), the new day and the
+	// The last run read the rescanned buckets (2), the new day and the
 	// filter's two-day margin: 5 days of 40 rows.
 	if lastRead != 5*perDay {
 		t.Errorf("the last incremental run read %d rows, want %d", lastRead, 5*perDay)

@@ -291,7 +291,7 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 		return col, nil
 	}
 
-	// Bucketed: rescan from the lookback (or everything), merge windows
+	// Bucketed: rescan the newest buckets (or everything), merge windows
 	// from the stored buckets.
 	last, have, err := r.Store.LastBucket(ctx, w.Name)
 	if err != nil {

@@ -172,7 +172,7 @@ watches:
     time_column: day
     bucket: day
     window: 7 buckets
-    lookback: 2 buckets
+    rescan: 2 buckets
     limits:
       vif: {warn: 5, critical: 10}
       condition: {warn: 1000000, critical: 10000000}
@@ -312,7 +312,7 @@ func TestIncrementalReadsLess(t *testing.T) {
 	if err != nil || next.Err != nil {
 		t.Fatal(err, next.Err)
 	}
-	// lookback 2 buckets: the newest stored bucket (day 29) and the one
+	// rescan 2 buckets: the newest stored bucket (day 29) and the one
 	// before (day 28) are rescanned, with the new day 30; the time filter
 	// starts two days earlier still (day 26, its safety margin), so days
 	// 26–30 are read: 5·40 rows instead of 31·40.

@@ -85,7 +85,7 @@ func windowStart(end time.Time, w *config.Watch) time.Time {
 // rescanFrom returns the first bucket a run rescans, given the newest
 // stored bucket.
 func rescanFrom(last time.Time, w *config.Watch) time.Time {
-	return calendar(w).RescanFrom(last, span(w.Lookback))
+	return calendar(w).RescanFrom(last, span(w.Rescan))
 }
 
 // acc is a decoded bucket.

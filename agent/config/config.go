@@ -36,7 +36,7 @@
 //	    time_column: day                  # optional; buckets need it
 //	    bucket: day                       # hour, day, week, month (day when time_column is set)
 //	    window: 30 buckets                # e.g. 28d, 12w, 720h
-//	    lookback: 2 buckets               # late data: buckets rescanned each run
+//	    rescan: 2 buckets                 # late data: the newest buckets read again each run
 //	    time_zone: UTC                    # bucket boundaries and schedule
 //	    segment_by: district              # optional: diagnostics per value too
 //	    max_segments: 1000
@@ -80,7 +80,7 @@ const DefaultStore = "sqlite:plumb-state.db"
 const (
 	DefaultSchedule    = "0 * * * *"
 	DefaultWindow      = 30 // buckets
-	DefaultLookback    = 2  // buckets
+	DefaultRescan      = 2  // buckets
 	DefaultMaxSegments = 1000
 	DefaultVIFWarn     = 5.0  // common practice: worth a look
 	DefaultVIFCrit     = 10.0 // common practice: serious
@@ -199,7 +199,7 @@ type Watch struct {
 	TimeColumn  string              `yaml:"time_column"`
 	Bucket      string              `yaml:"bucket"`
 	Window      Span                `yaml:"window"`
-	Lookback    Span                `yaml:"lookback"`
+	Rescan      Span                `yaml:"rescan"`
 	TimeZone    string              `yaml:"time_zone"`
 	SegmentBy   string              `yaml:"segment_by"`
 	MaxSegments int                 `yaml:"max_segments"`
@@ -273,17 +273,24 @@ func Parse(data []byte) (*Config, error) {
 	c := &Config{}
 	dec := yaml.NewDecoder(bytes.NewReader(data))
 	dec.KnownFields(true)
+	// Unknown keys and values of the wrong type do not stop the decoder:
+	// they are reported together with what validation finds.
+	var problems []string
 	if err := dec.Decode(c); err != nil {
-		if errors.Is(err, io.EOF) {
+		var te *yaml.TypeError
+		switch {
+		case errors.Is(err, io.EOF):
 			return nil, errors.New("the file is empty; it needs at least sources and watches")
+		case !errors.As(err, &te):
+			return nil, friendly(err)
 		}
-		return nil, friendly(err)
+		problems = friendly(err).(*Error).Problems
 	}
 	var extra yaml.Node
 	if err := dec.Decode(&extra); err == nil {
 		return nil, fmt.Errorf("line %d: a second YAML document; put everything in one", extra.Line)
 	}
-	v := validator{root: docRoot(&root)}
+	v := validator{root: docRoot(&root), problems: problems}
 	v.config(c)
 	if err := v.err(); err != nil {
 		return nil, err
@@ -343,6 +350,10 @@ func friendly(err error) error {
 	msgs := make([]string, 0, len(te.Errors))
 	for _, e := range te.Errors {
 		if m := reUnknown.FindStringSubmatch(e); m != nil {
+			if m[2] == "lookback" && m[3] == "config.Watch" {
+				msgs = append(msgs, fmt.Sprintf("line %s: lookback is now called rescan (the newest buckets each run reads again for late data); write rescan: with the same value", m[1]))
+				continue
+			}
 			msgs = append(msgs, fmt.Sprintf("line %s: unknown key %q in %s", m[1], m[2], typeName(m[3])))
 			continue
 		}

@@ -39,7 +39,7 @@ watches:
     time_column: day
     bucket: day
     window: 28d
-    lookback: 3 buckets
+    rescan: 3 buckets
     segment_by: district
     schedule: "15 6 * * *"
     time_zone: Europe/Berlin
@@ -65,8 +65,8 @@ func TestParseFull(t *testing.T) {
 	if w == nil {
 		t.Fatal("watch district_daily missing")
 	}
-	if w.Window != (Span{Duration: 28 * 24 * time.Hour}) || w.Lookback != (Span{Buckets: 3}) {
-		t.Errorf("window %v lookback %v", w.Window, w.Lookback)
+	if w.Window != (Span{Duration: 28 * 24 * time.Hour}) || w.Rescan != (Span{Buckets: 3}) {
+		t.Errorf("window %v rescan %v", w.Window, w.Rescan)
 	}
 	if w.Limits.VIF != (Level{4, 8}) || w.Limits.Condition != (Level{20, 30}) || w.Limits.Horizon.D() != 10*24*time.Hour {
 		t.Errorf("limits %+v", w.Limits)
@@ -100,7 +100,7 @@ watches:
 	}
 	w := c.Watches[0]
 	if c.Store != DefaultStore || w.Bucket != "day" || w.Window != (Span{Buckets: DefaultWindow}) ||
-		w.Lookback != (Span{Buckets: DefaultLookback}) || w.TimeZone != "UTC" || w.MaxSegments != DefaultMaxSegments {
+		w.Rescan != (Span{Buckets: DefaultRescan}) || w.TimeZone != "UTC" || w.MaxSegments != DefaultMaxSegments {
 		t.Errorf("defaults: store %q, %+v", c.Store, w)
 	}
 }
@@ -128,9 +128,9 @@ func TestParseErrors(t *testing.T) {
 		{"cron on the 30th of February", base + "    schedule: \"0 0 30 2 *\"\n", []string{"line 7", `watch "w"`, `schedule "0 0 30 2 *" never fires`}},
 		{"cron on the 31st of April", base + "    schedule: \"0 0 31 4 *\"\n", []string{"line 7", `watch "w"`, `schedule "0 0 31 4 *" never fires`}},
 		{"bad duration", base + "    time_column: day\n    window: 3 fortnights\n", []string{"line 8", "duration"}},
-		{"negative duration", base + "    time_column: day\n    lookback: -2d\n", []string{"line 8"}},
+		{"negative duration", base + "    time_column: day\n    rescan: -2d\n", []string{"line 8"}},
 		{"zero span", base + "    time_column: day\n    window: 0\n", []string{"line 8", "0"}},
-		{"lookback over window", base + "    time_column: day\n    window: 3d\n    lookback: 5d\n", []string{"line 9", "longer than the window"}},
+		{"rescan over window", base + "    time_column: day\n    window: 3d\n    rescan: 5d\n", []string{"line 9", "longer than the window"}},
 		{"window without bucket", base + "    window: 3d\n", []string{"line 7", "window needs time_column"}},
 		{"bad bucket", base + "    time_column: day\n    bucket: fortnight\n", []string{"line 8", `bucket "fortnight"`}},
 		{"table and query", base + "    query: SELECT 1\n", []string{"one of table and query"}},
@@ -159,6 +159,13 @@ func TestParseErrors(t *testing.T) {
 		{"one column", base + "    columns: [a]\n", []string{"two or more"}},
 		{"group column unknown", base + "    columns: [a, b]\n    groups: {g: [a, c]}\n", []string{`column "c"`}},
 	}
+	cases = append(cases, []struct {
+		name, yaml string
+		want       []string
+	}{
+		// The old name of rescan is explained, not just refused.
+		{"lookback renamed", base + "    time_column: day\n    lookback: 3 buckets\n", []string{"line 8", "lookback is now called rescan", "rescan:"}},
+	}...)
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
 			_, err := Parse([]byte(tc.yaml))
@@ -316,7 +323,7 @@ func TestDescribe(t *testing.T) {
 	for _, want := range []string{
 		"store: sqlite:state.db",
 		"$PLUMB_WEBHOOK_SECRET (NOT SET)",
-		"one per day of day (Europe/Berlin); window 4w, rescanning 3 buckets",
+		"buckets     daily by column day (Europe/Berlin); window 4w; rescan 3 buckets for late data",
 		// 06:15 Berlin summer time is 04:15 UTC; the first run after noon UTC on 1 June is on 2 June.
 		"next 2026-06-02 06:15 CEST, 2026-06-03 06:15 CEST, 2026-06-04 06:15 CEST",
 		"columns     every numeric column",
@@ -334,6 +341,44 @@ func TestRareSchedulesAccepted(t *testing.T) {
 	for _, spec := range []string{"0 0 29 2 *", "0 0 31 * *", "0 0 31 12 *", "0 0 31 2 1", "0 6 * * *"} {
 		if _, err := ParseSchedule(spec, time.UTC); err != nil {
 			t.Errorf("%q: %v", spec, err)
+		}
+	}
+}
+
+// TestParseReportsEveryProblem: unknown keys, wrong types, bad values and
+// inconsistent settings all come back at once, in the order of the file.
+func TestParseReportsEveryProblem(t *testing.T) {
+	in := `sources: {d: "sqlite:x.db"}
+watches:
+  - name: w
+    source: dd
+    table: t
+    colums: [a, b]
+    time_column: day
+    window: 3 fortnights
+    lookback: 2 buckets
+    limits: {vif: {warn: high}}
+    schedule: "61 * * * *"
+`
+	_, err := Parse([]byte(in))
+	var e *Error
+	if !errors.As(err, &e) {
+		t.Fatalf("error %v (%T), want *Error", err, err)
+	}
+	want := []string{
+		`line 4: watch "w": unknown source "dd"`,
+		`line 6: unknown key "colums"`,
+		"line 8: duration",
+		"line 9: lookback is now called rescan",
+		"line 10: want a number",
+		`line 11: watch "w": schedule "61 * * * *"`,
+	}
+	if len(e.Problems) != len(want) {
+		t.Fatalf("%d problems, want %d:\n%s", len(e.Problems), len(want), err)
+	}
+	for i, w := range want {
+		if !strings.HasPrefix(e.Problems[i], w) {
+			t.Errorf("problem %d %q, want it to start %q", i, e.Problems[i], w)
 		}
 	}
 }

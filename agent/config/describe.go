@@ -71,8 +71,8 @@ func (c *Config) Describe(w io.Writer, now time.Time, env Env) {
 			p("    group       %s = %s\n", g, strings.Join(wa.Groups[g], ", "))
 		}
 		if wa.Bucket != "" {
-			p("    buckets     one per %s of %s (%s); window %s, rescanning %s for late data\n",
-				wa.Bucket, wa.TimeColumn, wa.TimeZone, wa.Window, wa.Lookback)
+			p("    buckets     %s by column %s (%s); window %s; rescan %s for late data\n",
+				bucketAdverb[wa.Bucket], wa.TimeColumn, wa.TimeZone, wa.Window, wa.Rescan)
 		} else {
 			p("    buckets     none: every run reads the whole table\n")
 		}
@@ -106,6 +106,9 @@ func (c *Config) Describe(w io.Writer, now time.Time, env Env) {
 		p("    schedule    %s; next %s\n", wa.Schedule, strings.Join(next, ", "))
 	}
 }
+
+// bucketAdverb says how often a bucket starts.
+var bucketAdverb = map[string]string{"hour": "hourly", "day": "daily", "week": "weekly", "month": "monthly"}
 
 func secretSource(envName, file string, env Env) string {
 	switch {

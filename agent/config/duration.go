@@ -22,11 +22,11 @@ func (d Duration) String() string { return FormatDuration(time.Duration(d)) }
 // UnmarshalYAML reads a duration scalar.
 func (d *Duration) UnmarshalYAML(n *yaml.Node) error {
 	if n.Kind != yaml.ScalarNode {
-		return fmt.Errorf("line %d: want a duration such as 10m, 36h or 14d", n.Line)
+		return valueError(n, "want a duration such as 10m, 36h or 14d")
 	}
 	v, err := ParseDuration(n.Value)
 	if err != nil {
-		return fmt.Errorf("line %d: %w", n.Line, err)
+		return valueError(n, err.Error())
 	}
 	*d = Duration(v)
 	return nil
@@ -84,7 +84,7 @@ func FormatDuration(d time.Duration) string {
 	return d.String()
 }
 
-// Span is a window or lookback length: either a count of buckets ("30
+// Span is a window or rescan length: either a count of buckets ("30
 // buckets") or a duration ("28d"). The zero Span means "not set".
 type Span struct {
 	Buckets  int
@@ -129,17 +129,24 @@ func ParseSpan(v string) (Span, error) {
 // UnmarshalYAML reads a span scalar.
 func (s *Span) UnmarshalYAML(n *yaml.Node) error {
 	if n.Kind != yaml.ScalarNode {
-		return fmt.Errorf("line %d: want a length such as 28d or \"30 buckets\"", n.Line)
+		return valueError(n, `want a length such as 28d or "30 buckets"`)
 	}
 	v, err := ParseSpan(n.Value)
 	if err != nil {
-		return fmt.Errorf("line %d: %w", n.Line, err)
+		return valueError(n, err.Error())
 	}
 	if v.IsZero() {
-		return fmt.Errorf("line %d: a length of 0 is not allowed", n.Line)
+		return valueError(n, "a length of 0 is not allowed")
 	}
 	*s = v
 	return nil
+}
+
+// valueError is a bad value at n. It is a *yaml.TypeError so that the
+// decoder records it and goes on, and Parse reports it with every other
+// problem of the file.
+func valueError(n *yaml.Node, msg string) error {
+	return &yaml.TypeError{Errors: []string{fmt.Sprintf("line %d: %s", n.Line, msg)}}
 }
 
 // Secret holds a credential. It prints as "xxxxx" in every format, so a

@@ -2,10 +2,12 @@ package config
 
 import (
 	"fmt"
+	"math"
 	"net/mail"
 	"net/url"
 	"regexp"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 
@@ -26,7 +28,20 @@ func (v *validator) err() error {
 	if len(v.problems) == 0 {
 		return nil
 	}
+	// In the order of the file; problems without a line last.
+	slices.SortStableFunc(v.problems, func(a, b string) int { return problemLine(a) - problemLine(b) })
 	return &Error{Problems: v.problems}
+}
+
+var reProblemLine = regexp.MustCompile(`^line (\d+): `)
+
+func problemLine(p string) int {
+	if m := reProblemLine.FindStringSubmatch(p); m != nil {
+		if n, err := strconv.Atoi(m[1]); err == nil {
+			return n
+		}
+	}
+	return math.MaxInt32
 }
 
 // addf records a problem at the node reached by path (string keys and int
@@ -316,23 +331,23 @@ func (v *validator) watch(c *Config, i int, w *Watch) {
 		if !w.Window.IsZero() {
 			v.addf(p("window"), "%s: window needs time_column (and bucket)", label)
 		}
-		if !w.Lookback.IsZero() {
-			v.addf(p("lookback"), "%s: lookback needs time_column (and bucket)", label)
+		if !w.Rescan.IsZero() {
+			v.addf(p("rescan"), "%s: rescan needs time_column (and bucket)", label)
 		}
 	} else {
 		if w.Window.IsZero() {
 			w.Window = Span{Buckets: DefaultWindow}
 		}
-		if w.Lookback.IsZero() {
-			w.Lookback = Span{Buckets: DefaultLookback}
+		if w.Rescan.IsZero() {
+			w.Rescan = Span{Buckets: DefaultRescan}
 		}
 		if bd := approxBucket(w.Bucket); bd > 0 {
 			if w.Window.Duration > 0 && w.Window.Duration < bd {
 				v.addf(p("window"), "%s: window %s is shorter than one %s", label, w.Window, w.Bucket)
 			}
-			if w.Window.Duration > 0 && w.Lookback.Duration > w.Window.Duration ||
-				w.Window.Buckets > 0 && w.Lookback.Buckets > w.Window.Buckets {
-				v.addf(p("lookback"), "%s: lookback %s is longer than the window %s", label, w.Lookback, w.Window)
+			if w.Window.Duration > 0 && w.Rescan.Duration > w.Window.Duration ||
+				w.Window.Buckets > 0 && w.Rescan.Buckets > w.Window.Buckets {
+				v.addf(p("rescan"), "%s: rescan %s is longer than the window %s", label, w.Rescan, w.Window)
 			}
 		}
 	}

@@ -98,8 +98,8 @@ func newAgentCmd() *cobra.Command {
 		Use:   "agent [--config FILE]",
 		Short: "run every watch on its schedule and deliver the alerts (daemon)",
 		Long: `agent migrates the state store, takes its lock (one agent per store), and runs
-each watch on its cron schedule: incremental runs that rescan the lookback and
-newer buckets, trend, jump and level rules with hysteresis, and notifications
+each watch on its cron schedule: incremental runs that read the newest buckets again
+(rescan) and the new ones, trend, jump and level rules with hysteresis, and notifications
 through the configured webhooks, log and email, retried from the outbox until
 they are acknowledged.
 

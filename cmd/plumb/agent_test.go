@@ -60,7 +60,8 @@ func TestConfigCheckCommand(t *testing.T) {
 	ctx := context.Background()
 	cfg, _ := demoConfig(t, "")
 	code, out, errs := plumbCLI(t, ctx, "config", "check", "--config", cfg)
-	if code != 0 || !strings.Contains(out, "OK, 1 watch(es)") || !strings.Contains(out, "one per day of day (UTC); window 4w") {
+	if code != 0 || !strings.Contains(out, "usable, 1 watch(es)") || !strings.Contains(out, "daily by column day (UTC); window 4w") ||
+		strings.Contains(out, "of day") {
 		t.Fatalf("exit %d\n%s\n%s", code, out, errs)
 	}
 	bad := filepath.Join(t.TempDir(), "bad.yaml")
@@ -75,9 +76,47 @@ func TestConfigCheckCommand(t *testing.T) {
 	if code != exitError || !strings.Contains(errs, "PLUMB_TEST_UNSET_SECRET is not set") || !strings.Contains(out, "(NOT SET)") {
 		t.Fatalf("missing secret: exit %d\n%s\n%s", code, out, errs)
 	}
+	// Every problem of the file at once, the renamed key explained.
+	many := filepath.Join(t.TempDir(), "many.yaml")
+	os.WriteFile(many, []byte("sources: {d: \"sqlite:x.db\"}\nwatches:\n  - {name: w, source: e, table: t, colums: [a], time_column: day, lookback: 2 buckets}\n"), 0o600)
+	code, _, errs = plumbCLI(t, ctx, "config", "check", "--config", many)
+	for _, want := range []string{"3 problems", `unknown key "colums"`, "lookback is now called rescan", `unknown source "e"`} {
+		if code != exitError || !strings.Contains(errs, want) {
+			t.Errorf("many problems: exit %d, stderr lacks %q: %s", code, want, errs)
+		}
+	}
 	code, _, errs = plumbCLI(t, ctx, "config", "check", "--config", filepath.Join(t.TempDir(), "none.yaml"))
 	if code != exitError || !strings.Contains(errs, "no such file") {
 		t.Fatalf("missing file: exit %d: %s", code, errs)
+	}
+}
+
+// TestConfigCheckConnect: with --connect, config check opens the store and
+// every source and watch and says which answer.
+func TestConfigCheckConnect(t *testing.T) {
+	ctx := context.Background()
+	cfg, _ := demoConfig(t, "")
+	code, out, errs := plumbCLI(t, ctx, "config", "check", "--config", cfg, "--connect")
+	if code != 0 || !strings.Contains(out, "not created yet") || !strings.Contains(out, "source districts sqlite:") ||
+		!strings.Contains(out, "watch district_daily: table district_daily answers with 13 columns") {
+		t.Fatalf("exit %d\n%s\n%s", code, out, errs)
+	}
+	if code, _, errs := plumbCLI(t, ctx, "migrate", "--config", cfg); code != 0 {
+		t.Fatalf("migrate: %s", errs)
+	}
+	code, out, _ = plumbCLI(t, ctx, "config", "check", "--config", cfg, "--connect")
+	if code != 0 || !strings.Contains(out, "(up to date)") {
+		t.Fatalf("after migrate: exit %d\n%s", code, out)
+	}
+	// A source file that is not there, and a watch's table that is not.
+	text, _ := os.ReadFile(cfg)
+	broken := strings.Replace(string(text), "table: "+demo.Table, "table: no_such_table", 1)
+	broken = strings.Replace(broken, "watches:", "  gone: sqlite:"+filepath.Join(t.TempDir(), "gone.db")+"\nwatches:", 1)
+	os.WriteFile(cfg, []byte(broken), 0o600)
+	code, out, errs = plumbCLI(t, ctx, "config", "check", "--config", cfg, "--connect")
+	if code != exitError || !strings.Contains(out, "source gone sqlite:") || !strings.Contains(out, "watch district_daily: no answer") ||
+		!strings.Contains(errs, "2 of its connections did not answer") {
+		t.Fatalf("broken: exit %d\n%s\n%s", code, out, errs)
 	}
 }
 

@@ -47,7 +47,7 @@ watches:
     time_column: day
     bucket: day
     window: 14 buckets
-    lookback: 3 buckets
+    rescan: 3 buckets
     schedule: "15 6 * * *"
     notify: [log]
   # Connection counts, all districts pooled: an upstream change makes the
@@ -60,7 +60,7 @@ watches:
     time_column: day
     bucket: day
     window: 28 buckets
-    lookback: 3 buckets
+    rescan: 3 buckets
     schedule: "15 6 * * *"
     notify: [log]
   # The demand regression the analysts fit per district, on the columns
@@ -76,7 +76,7 @@ watches:
     time_column: day
     bucket: day
     window: 28 buckets
-    lookback: 3 buckets
+    rescan: 3 buckets
     segment_by: district
     schedule: "15 6 * * *"
     notify: [log]
