@@ -92,7 +92,7 @@ serious; a condition index above 30 marks a strong near dependency.`,
 	fl.IntVar(&f.parallel, "parallel", 1, "partitions read at once on separate connections (PostgreSQL)")
 	fl.BoolVar(&f.pushdown, "pushdown", false, "compute the cross-products inside the database (PostgreSQL)")
 	fl.DurationVar(&f.statementTimeout, "statement-timeout", 0, "longest a statement may run, e.g. 90s or 2h; SQLite also waits this long for a writer's lock (default: the connector's: 1h for PostgreSQL; for SQLite no limit and a 5s wait)")
-	fl.BoolVarP(&f.quiet, "quiet", "q", false, "no progress bar")
+	fl.BoolVarP(&f.quiet, "quiet", "q", false, "no progress line")
 	return cmd
 }
 
@@ -310,7 +310,7 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 // precision flag starts at; never with --precision fast).
 func scanAndAnalyze(ctx context.Context, what string, src connectors.Source, req connectors.Request, opt diagnostics.Options, f *scanFlags, stderr io.Writer) (*connectors.Result, *diagnostics.Report, error) {
 	for {
-		bar := newProgress(stderr, f.quiet, req.QR || req.Extended)
+		bar := newProgress(stderr, f.quiet, what, req.QR || req.Extended)
 		req.Progress = bar.update
 		res, err := src.Scan(ctx, req)
 		bar.finish()
