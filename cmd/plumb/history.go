@@ -1,13 +1,14 @@
 package main
 
 import (
+	"context"
 	"encoding/json"
 	"fmt"
 	"io"
 	"math"
 	"os"
 	"path/filepath"
-	"strconv"
+	"slices"
 	"strings"
 	"time"
 
@@ -87,7 +88,7 @@ extension.`,
 }
 
 func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment string, limit int, format string) error {
-	_, st, err := openWatchStore(cmd, path, watch)
+	c, st, err := openWatchStore(cmd, path, watch)
 	if err != nil {
 		return err
 	}
@@ -99,6 +100,9 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 	ps, err := st.Points(cmd.Context(), watch, agent.PointQuery{Segment: key, Limit: limit})
 	if err != nil {
 		return err
+	}
+	if len(ps) == 0 && segment != "" {
+		return unknownSegment(cmd.Context(), st, c.Watch(watch), segment)
 	}
 	out := make([]historyPoint, 0, len(ps))
 	for _, p := range ps {
@@ -168,6 +172,31 @@ func openWatchStore(cmd *cobra.Command, path, watch string) (*config.Config, *sq
 	return c, st, nil
 }
 
+// unknownSegment is the error for --segment NAME when the watch has no
+// history for NAME: it names the segments that have one.
+func unknownSegment(ctx context.Context, st agent.Store, w *config.Watch, segment string) error {
+	if w.SegmentBy == "" {
+		return usagef("watch %q is not segmented (it has no segment_by): leave out --segment %q", w.Name, segment)
+	}
+	ps, err := st.Points(ctx, w.Name, agent.PointQuery{AllSegs: true})
+	if err != nil {
+		return err
+	}
+	seen := map[string]bool{}
+	var names []string
+	for _, p := range ps {
+		if p.Segment != connectors.WholeTable && !seen[p.Segment] {
+			seen[p.Segment] = true
+			names = append(names, connectors.ParseSegmentKey(p.Segment).String())
+		}
+	}
+	if len(names) == 0 {
+		return usagef("watch %q has no segment %q: it has no history of any %s yet (plumb check or backfill records it)", w.Name, segment, w.SegmentBy)
+	}
+	slices.Sort(names)
+	return usagef("watch %q has no segment %q; its segments (values of %s): %s", w.Name, segment, w.SegmentBy, strings.Join(names, ", "))
+}
+
 // runHistoryPlot writes the timeline chart the watch page shows, from the
 // same view of the store as plumb serve.
 func runHistoryPlot(cmd *cobra.Command, stdout io.Writer, path, watch, segment, plot string) error {
@@ -186,7 +215,7 @@ func runHistoryPlot(cmd *cobra.Command, stdout io.Writer, path, watch, segment, 
 	}
 	seg := d.Segment(key)
 	if seg == nil {
-		return usagef("watch %q has no segment %s", watch, strconv.Quote(segment))
+		return unknownSegment(cmd.Context(), st, c.Watch(watch), segment)
 	}
 	title := watch + " · " + connectors.ParseSegmentKey(key).String()
 	f, err := os.Create(plot)

@@ -89,3 +89,32 @@ func TestHistoryPlot(t *testing.T) {
 		t.Errorf("--segment nowhere: exit %d, %q: want a usage error", code, errs)
 	}
 }
+
+// TestHistoryUnknownSegment: --segment with a name the watch has no
+// history for is an error naming the segments it has, not "no history".
+func TestHistoryUnknownSegment(t *testing.T) {
+	dir := filepath.Join(t.TempDir(), "demo")
+	if code, _, errs := runCLI(t, "demo", "--dir", dir, "--no-serve", "--start", "2026-06-01"); code != 0 {
+		t.Fatalf("demo: exit %d: %s", code, errs)
+	}
+	cfg := filepath.Join(dir, "plumb.yaml")
+	for _, args := range [][]string{
+		{"history", "district_daily", "--segment", "hilside", "--config", cfg},
+		{"history", "district_daily", "--segment", "hilside", "--config", cfg, "--format", "json"},
+		{"history", "district_daily", "--segment", "hilside", "--config", cfg, "--plot", filepath.Join(t.TempDir(), "h.svg")},
+	} {
+		code, out, errs := runCLI(t, args...)
+		if code != exitUsage || out != "" || strings.Contains(errs, "no history yet") ||
+			!strings.Contains(errs, `no segment "hilside"; its segments (values of district): `) || !strings.Contains(errs, "hillside") {
+			t.Errorf("%v: exit %d\n%s\n%s", args, code, out, errs)
+		}
+	}
+	code, _, errs := runCLI(t, "history", "district_volumes", "--segment", "hillside", "--config", cfg)
+	if code != exitUsage || !strings.Contains(errs, "not segmented") {
+		t.Errorf("unsegmented watch: exit %d: %s", code, errs)
+	}
+	code, out, errs := runCLI(t, "history", "district_daily", "--segment", "hillside", "--config", cfg, "--limit", "2")
+	if code != 0 || strings.Count(out, "\n") != 3 {
+		t.Errorf("known segment: exit %d\n%s\n%s", code, out, errs)
+	}
+}
