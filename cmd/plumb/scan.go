@@ -130,6 +130,8 @@ type groupOutput struct {
 	Report *diagnostics.Report `json:"report,omitempty"`
 
 	segment string // the key, for the text table
+	rows    int64  // usable rows, for the text form's summary
+	err     error
 }
 
 // caution is printed with every report.
@@ -283,13 +285,13 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 		gopt := opt
 		gopt.ReferenceSD = rep.ColumnSDs()
 		for _, g := range res.Groups {
-			gout := groupOutput{SegmentJSON: connectors.SegmentJSONOf(g.Key.Segment), segment: g.Key.Segment}
+			gout := groupOutput{SegmentJSON: connectors.SegmentJSONOf(g.Key.Segment), segment: g.Key.Segment, rows: g.Moments.N()}
 			if !g.Key.Bucket.IsZero() {
 				gout.Bucket = g.Key.Bucket.Format("2006-01-02T15:04:05Z07:00")
 			}
 			r, err := diagnostics.Analyze(g.Moments, g.QR, gopt)
 			if err != nil {
-				gout.Error = err.Error()
+				gout.Error, gout.err = err.Error(), err
 			} else {
 				gout.Report = r
 			}

@@ -361,3 +361,28 @@ func TestScanRegressionPrintout(t *testing.T) {
 		t.Errorf("no near dependency marked includes_intercept (a column of mean 1000 and spread 0.3 is nearly the intercept): %+v", s.Dependencies)
 	}
 }
+
+// TestScanUnusableGroupsOneLine: groups of --bucket and --segment that
+// cannot be analysed are summed up in one line, not one line each (the
+// sample's 120 days × 4 districts would be 480 lines).
+func TestScanUnusableGroupsOneLine(t *testing.T) {
+	code, out, errs := runCLI(t, "scan", "--quiet", "--time-column", "day", "--bucket", "day", "--segment", "district")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	want := "480 of 480 groups could not be analysed: 480 with too few usable rows (1 row each; first 2026-"
+	if strings.Count(out, "could not be analysed") != 1 || !strings.Contains(out, want) || strings.Count(out, "\n") > 80 {
+		t.Fatalf("want one summary line %q in a short report:\n%s", want, out)
+	}
+	// JSON keeps each group's error.
+	code, out, _ = runCLI(t, "scan", "--quiet", "--format", "json", "--time-column", "day", "--bucket", "day", "--segment", "district")
+	if code != 0 || strings.Count(out, "too few usable rows") != 480 {
+		t.Fatalf("json: exit %d, %d group errors", code, strings.Count(out, "too few usable rows"))
+	}
+	// Monthly groups of two columns all have rows enough: a table, no
+	// summary line.
+	code, out, _ = runCLI(t, "scan", "--quiet", "--time-column", "day", "--bucket", "month", "--segment", "district", "--columns", "temperature_c,rainfall_mm")
+	if code != 0 || strings.Contains(out, "could not be analysed") || strings.Count(out, " harbour ") != 4 {
+		t.Fatalf("monthly groups: exit %d\n%s", code, out)
+	}
+}

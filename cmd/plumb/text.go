@@ -1,9 +1,11 @@
 package main
 
 import (
+	"errors"
 	"fmt"
 	"io"
 	"math"
+	"sort"
 	"strings"
 	"text/tabwriter"
 
@@ -134,18 +136,7 @@ func writeText(w io.Writer, out *scanOutput) error {
 		}
 	}
 	if len(out.Groups) > 0 {
-		b.WriteString("\nBy group\n")
-		tw = tabwriter.NewWriter(&b, 2, 4, 2, ' ', 0)
-		fmt.Fprintln(tw, "bucket\tsegment\trows\tcondition\tmax VIF\trank\tnote")
-		for _, g := range out.Groups {
-			if g.Report == nil {
-				fmt.Fprintf(tw, "%s\t%s\t\t\t\t\t%s\n", g.Bucket, connectors.SegmentLabel(g.segment), g.Error)
-				continue
-			}
-			gr := g.Report
-			fmt.Fprintf(tw, "%s\t%s\t%d\t%.4g\t%s\t%d\t%s\n", g.Bucket, connectors.SegmentLabel(g.segment), gr.RowsUsed, gr.ConditionNumber, maxVIF(gr), gr.Rank, groupNote(gr))
-		}
-		tw.Flush()
+		writeGroups(&b, out)
 	}
 	fmt.Fprintf(&b, "\n%s\n", out.Caution)
 	_, err := io.WriteString(w, termSafeLines(b.String()))
@@ -176,6 +167,83 @@ func writeRegression(b *strings.Builder, target string, rows int64, reg *diagnos
 		fmt.Fprintf(tw, "  %s\t%.6g\t%s\t%.4g\t%.3f\n", c.Name, c.Estimate, unit, c.StdError, c.T)
 	}
 	tw.Flush()
+}
+
+// writeGroups prints the groups of --bucket and --segment that could be
+// analysed, one line each, and those that could not in one line.
+func writeGroups(b *strings.Builder, out *scanOutput) {
+	var bad []groupOutput
+	b.WriteString("\nBy group\n")
+	tw := tabwriter.NewWriter(b, 2, 4, 2, ' ', 0)
+	fmt.Fprintln(tw, "bucket\tsegment\trows\tcondition\tmax VIF\trank\tnote")
+	shown := 0
+	for _, g := range out.Groups {
+		if g.Report == nil {
+			bad = append(bad, g)
+			continue
+		}
+		gr := g.Report
+		fmt.Fprintf(tw, "%s\t%s\t%d\t%.4g\t%s\t%d\t%s\n", g.Bucket, connectors.SegmentLabel(g.segment), gr.RowsUsed, gr.ConditionNumber, maxVIF(gr), gr.Rank, groupNote(gr))
+		shown++
+	}
+	if shown > 0 {
+		tw.Flush()
+	} else {
+		b.WriteString("  (none could be analysed)\n")
+	}
+	if len(bad) > 0 {
+		fmt.Fprintf(b, "%s\n", unusableGroups(bad, len(out.Groups)))
+	}
+}
+
+// unusableGroups sums up the groups that could not be analysed in one
+// line: how many, why (the commonest reasons first), their rows and a
+// hint.
+func unusableGroups(bad []groupOutput, total int) string {
+	type reason struct {
+		why        string
+		n          int
+		lo, hi     int64
+		firstGroup string
+	}
+	var reasons []*reason
+	byWhy := map[string]*reason{}
+	tooFew := false
+	for _, g := range bad {
+		why := g.Error
+		switch {
+		case errors.Is(g.err, diagnostics.ErrTooFewRows):
+			why, tooFew = "too few usable rows", true
+		case errors.Is(g.err, diagnostics.ErrAllDropped):
+			why = "every row has a NULL, NaN or ±Inf"
+		case errors.Is(g.err, diagnostics.ErrNoRows):
+			why = "no rows"
+		}
+		r := byWhy[why]
+		if r == nil {
+			r = &reason{why: why, lo: g.rows, hi: g.rows, firstGroup: strings.TrimSpace(g.Bucket + " " + connectors.SegmentLabel(g.segment))}
+			byWhy[why] = r
+			reasons = append(reasons, r)
+		}
+		r.n++
+		r.lo, r.hi = min(r.lo, g.rows), max(r.hi, g.rows)
+	}
+	sort.SliceStable(reasons, func(i, j int) bool { return reasons[i].n > reasons[j].n })
+	var parts []string
+	for _, r := range reasons {
+		rows := fmt.Sprintf("%d rows each", r.lo)
+		if r.lo == 1 && r.hi == 1 {
+			rows = "1 row each"
+		} else if r.lo != r.hi {
+			rows = fmt.Sprintf("%d to %d rows", r.lo, r.hi)
+		}
+		parts = append(parts, fmt.Sprintf("%d with %s (%s; first %s)", r.n, r.why, rows, r.firstGroup))
+	}
+	line := fmt.Sprintf("%d of %d groups could not be analysed: %s.", len(bad), total, strings.Join(parts, "; "))
+	if tooFew {
+		line += " Wider buckets or fewer columns give each group enough rows; --format json has each group's error."
+	}
+	return line
 }
 
 func num(v *float64, format string) string {
