@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"encoding/json"
 	"flag"
 	"os"
 	"path/filepath"
@@ -125,5 +126,40 @@ func TestEditDistance(t *testing.T) {
 		if got := editDistance(c.a, c.b); got != c.want {
 			t.Errorf("editDistance(%q, %q) = %d, want %d", c.a, c.b, got, c.want)
 		}
+	}
+}
+
+// TestLogFormatSameEverywhere: every command logs JSON lines on stderr by
+// default and text with --log-format text; the flag is the same on all.
+func TestLogFormatSameEverywhere(t *testing.T) {
+	ctx := context.Background()
+	cfg, _ := demoConfig(t, "")
+	code, _, errs := plumbCLI(t, ctx, "check", "--config", cfg)
+	if code != checkFail || errs == "" {
+		t.Fatalf("check: exit %d, stderr %q", code, errs)
+	}
+	for _, line := range strings.Split(strings.TrimSpace(errs), "\n") {
+		var v map[string]any
+		if err := json.Unmarshal([]byte(line), &v); err != nil || v["level"] == nil || v["msg"] == nil {
+			t.Errorf("check logs a line that is not a JSON object with level and msg: %q", line)
+		}
+	}
+	code, _, errs = plumbCLI(t, ctx, "check", "--config", cfg, "--log-format", "text")
+	if code != checkFail || !strings.Contains(errs, "level=INFO msg=run") {
+		t.Errorf("check --log-format text: exit %d, stderr %q", code, errs)
+	}
+	// Every command that logs takes the one flag with the one default.
+	root := newRoot()
+	f := root.PersistentFlags().Lookup("log-format")
+	if f == nil || f.DefValue != "json" {
+		t.Fatalf("--log-format: %+v", f)
+	}
+	for _, c := range root.Commands() {
+		if local := c.LocalNonPersistentFlags().Lookup("log-format"); local != nil {
+			t.Errorf("plumb %s has a --log-format of its own (default %s)", c.Name(), local.DefValue)
+		}
+	}
+	if code, _, _ := plumbCLI(t, ctx, "check", "--config", cfg, "--log-format", "xml"); code != exitUsage {
+		t.Errorf("--log-format xml: exit %d", code)
 	}
 }
