@@ -6,6 +6,8 @@ import (
 	"strconv"
 	"strings"
 	"time"
+
+	"plumb/connectors"
 )
 
 // Charts are laid out here, in SVG user units, and drawn by the templates
@@ -321,7 +323,7 @@ func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float
 	last := tl[len(tl)-1]
 	if v := metricOf(last, metric); !math.IsNaN(v) && v < hi {
 		s.Dots = append(s.Dots, dot{X: xs.At(last.At), Y: ys.At(v), R: 3.5, Shape: "circle", Fill: col,
-			Title: last.At.Format(time.DateOnly) + ": " + fmtNum(v)})
+			Title: "data through " + connectors.DataThrough(last.At) + ": " + fmtNum(v)})
 	}
 	s.D = d.String()
 	c.Series = append(c.Series, s)
@@ -397,7 +399,7 @@ func (c *lineChart) markAlerts(alerts []Alert, segment string) {
 			continue
 		}
 		m := alertMark{X: c.xs.At(a.AsOf), Y: c.Plot.Bottom() - 8, Severity: a.Severity, Rule: a.Rule, Fill: colOrange,
-			Title: a.AsOf.UTC().Format(time.DateOnly) + " · " + a.Severity + " (" + a.Rule + "): " + a.Message}
+			Title: "data through " + connectors.DataThrough(a.AsOf) + " · " + a.Severity + " (" + a.Rule + "): " + a.Message}
 		if a.Severity == SeverityCritical {
 			m.Fill = colVermillion
 		}

@@ -50,6 +50,7 @@ var funcs = template.FuncMap{
 		return t.UTC().Format("2006-01-02 15:04 UTC")
 	},
 	"iso":      func(t time.Time) string { return t.UTC().Format(time.RFC3339) },
+	"through":  connectors.DataThrough,
 	"dur":      fmtDuration,
 	"count":    fmtCount,
 	"icon":     stateIcon,

@@ -143,14 +143,14 @@ func runAlerts(cmd *cobra.Command, stdout io.Writer, path string, q agent.AlertQ
 	for _, a := range out {
 		state := "open"
 		if a.ResolvedAsOf != nil {
-			state = "resolved as of " + a.ResolvedAsOf.Format("2006-01-02 15:04")
+			state = "resolved, data through " + connectors.DataThrough(*a.ResolvedAsOf)
 		}
 		seg := ""
 		if a.segment != connectors.WholeTable {
 			seg = "/" + connectors.SegmentLabel(a.segment)
 		}
-		fmt.Fprintf(stdout, "%s  %-8s %-8s %s%s  since %s  %s\n    %s\n", a.ID, a.Severity, a.Rule, termSafe(a.Watch), termSafe(seg),
-			a.Onset.Format("2006-01-02 15:04"), state, termSafe(a.Message))
+		fmt.Fprintf(stdout, "%s  %-8s %-8s %s%s  since %s, data through %s  %s\n    %s\n", a.ID, a.Severity, a.Rule, termSafe(a.Watch), termSafe(seg),
+			dataDay(a.Onset), connectors.DataThrough(a.AsOf), state, termSafe(a.Message))
 		if len(a.Columns) > 0 {
 			fmt.Fprintf(stdout, "    columns: %s\n", termSafe(strings.Join(a.Columns, ", ")))
 		}
@@ -162,4 +162,15 @@ func runAlerts(cmd *cobra.Command, stdout io.Writer, path string, q agent.AlertQ
 		}
 	}
 	return nil
+}
+
+// dataDay writes a bucket's start (an alert's onset) as the day it is, or
+// to the minute when it is not a midnight: the same day the window whose
+// data run through it is dated by.
+func dataDay(t time.Time) string {
+	t = t.UTC()
+	if t.Equal(t.Truncate(24 * time.Hour)) {
+		return t.Format(time.DateOnly)
+	}
+	return t.Format("2006-01-02 15:04 UTC")
 }

@@ -126,7 +126,7 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 		fmt.Fprintf(stdout, "watch %s has no history yet\n", termSafe(watch))
 		return nil
 	}
-	fmt.Fprintf(stdout, "%-20s %8s %5s %14s %14s %12s  %s\n", "at", "rows", "rank", "condition", "centered", "max VIF", "column")
+	fmt.Fprintf(stdout, "%-20s %8s %5s %14s %14s %12s  %s\n", "data through", "rows", "rank", "condition", "centered", "max VIF", "column")
 	show := func(v *float64, singular bool) string {
 		switch {
 		case v != nil:
@@ -141,7 +141,7 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 		if len(p.LeftOut) > 0 {
 			col += " (left out, reported by their own alerts: " + strings.Join(p.LeftOut, ", ") + ")"
 		}
-		fmt.Fprintf(stdout, "%-20s %8d %5d %14s %14s %12s  %s\n", p.At.Format("2006-01-02 15:04"), p.Rows, p.Rank,
+		fmt.Fprintf(stdout, "%-20s %8d %5d %14s %14s %12s  %s\n", connectors.DataThrough(p.At), p.Rows, p.Rank,
 			show(p.ConditionNumber, p.Singular), show(p.CenteredCondition, p.Singular), show(p.MaxVIF, false), termSafe(col))
 	}
 	if f, ok := stdout.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
