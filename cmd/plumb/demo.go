@@ -8,6 +8,7 @@ import (
 	"io/fs"
 	"log/slog"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"sort"
 	"strings"
@@ -65,9 +66,10 @@ watches:
     notify: [log]
   # The demand regression the analysts fit per district, on the columns
   # that move within a district from day to day (population, connections
-  # and pipe age barely do over two weeks: per district they would only
+  # and pipe age barely do over four weeks: per district they would only
   # measure the intercept again). A stuck pressure sensor makes its column
-  # constant in that district's segment; a 14-day window sees it sooner.
+  # constant in that district's segment once the whole 28-day window lies
+  # after it.
   - name: district_daily
     source: districts
     table: district_daily
@@ -197,7 +199,8 @@ func runDemo(ctx context.Context, stdout io.Writer, log *slog.Logger, sc demo.Sc
 	if err := demoReport(ctx, stdout, st, c, sc); err != nil {
 		return err
 	}
-	fmt.Fprintf(stdout, "\nbuilt and backfilled in %.1fs. Next: plumb history district_volumes --config %s\n", time.Since(began).Seconds(), cfgPath)
+	fmt.Fprintf(stdout, "\nbuilt and backfilled in %.1fs.\n", time.Since(began).Seconds())
+	writeDemoHints(stdout, invokedAs(), cfgPath, sc, !serve)
 	if !serve {
 		return nil
 	}
@@ -423,4 +426,60 @@ func demoStories(c *config.Config, sc demo.Scenario, points map[string][]agent.P
 
 func demoConfigArgs(statePath, dbPath, cfgPath string) []any {
 	return []any{statePath, dbPath, cfgPath}
+}
+
+// writeDemoHints prints commands to try next, each runnable as shown: plumb
+// as the user started it, the configuration by its absolute path.
+func writeDemoHints(w io.Writer, plumb, cfgPath string, sc demo.Scenario, withServe bool) {
+	cfg := "--config " + shellQuote(cfgPath)
+	fmt.Fprintln(w, "Next, from the folder you ran this in:")
+	hints := []string{
+		"history district_volumes " + cfg,
+		"history district_daily --segment " + shellQuote(sc.StuckDistrict) + " " + cfg,
+		"alerts --open " + cfg,
+	}
+	if withServe {
+		hints = append(hints, "serve "+cfg)
+	}
+	for _, h := range hints {
+		fmt.Fprintf(w, "  %s %s\n", plumb, h)
+	}
+}
+
+// invokedAs is how to start this plumb again from a shell: "go run
+// ./cmd/plumb" for a binary go run built, "plumb" when that name on the
+// PATH is this binary, else the path it was started by.
+func invokedAs() string {
+	exe, _ := os.Executable()
+	return invocation(exe, os.Args[0], exec.LookPath)
+}
+
+func invocation(exe, arg0 string, lookPath func(string) (string, error)) string {
+	if strings.Contains(filepath.ToSlash(exe), "/go-build") {
+		return "go run ./cmd/plumb"
+	}
+	if p, err := lookPath("plumb"); err == nil && sameFile(p, exe) {
+		return "plumb"
+	}
+	if arg0 == "" {
+		return shellQuote(exe)
+	}
+	return shellQuote(arg0)
+}
+
+func sameFile(a, b string) bool {
+	fa, err := os.Stat(a)
+	if err != nil {
+		return false
+	}
+	fb, err := os.Stat(b)
+	return err == nil && os.SameFile(fa, fb)
+}
+
+// shellQuote quotes s for a POSIX shell when it needs it.
+func shellQuote(s string) string {
+	if s != "" && strings.Trim(s, "abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789-_./:=+,@%") == "" {
+		return s
+	}
+	return "'" + strings.ReplaceAll(s, "'", `'\''`) + "'"
 }
