@@ -128,19 +128,22 @@ func vifChart(id string, cols []diagnostics.ColumnReport, warn, crit float64) *b
 		}
 		c.Bars = append(c.Bars, b)
 	}
-	if warn > 0 {
-		c.Levels = append(c.Levels, vline{X: xs.At(warn), Stroke: stroke{Colour: colOrange, Width: 1.5, Dash: dashWarn}, Label: "warn " + fmtNum(warn)})
-	}
-	if crit > 0 {
-		c.Levels = append(c.Levels, vline{X: xs.At(crit), Stroke: stroke{Colour: colVermillion, Width: 1.5, Dash: dashCritical}, Label: "critical " + fmtNum(crit)})
-	}
 	c.Legend = []legendItem{
 		{Label: "below warn", Kind: "bar", Fill: colGreen},
 		{Label: "warn to critical", Kind: "bar", Pattern: id + "-warning"},
 		{Label: "critical or above", Kind: "bar", Pattern: id + "-critical"},
 		{Label: "undefined (∞)", Kind: "bar", Pattern: id + "-undefined"},
-		{Label: "warn level", Kind: "line", Stroke: stroke{Colour: colOrange, Width: 1.5, Dash: dashWarn}},
-		{Label: "critical level", Kind: "line", Stroke: stroke{Colour: colVermillion, Width: 1.5, Dash: dashCritical}},
+	}
+	// The legend shows the level lines drawn, with their strokes.
+	if warn > 0 {
+		st := stroke{Colour: colOrange, Width: 1.5, Dash: dashWarn}
+		c.Levels = append(c.Levels, vline{X: xs.At(warn), Stroke: st, Label: "warn " + fmtNum(warn)})
+		c.Legend = append(c.Legend, legendItem{Label: "warn level", Kind: "line", Stroke: st})
+	}
+	if crit > 0 {
+		st := stroke{Colour: colVermillion, Width: 1.5, Dash: dashCritical}
+		c.Levels = append(c.Levels, vline{X: xs.At(crit), Stroke: st, Label: "critical " + fmtNum(crit)})
+		c.Legend = append(c.Legend, legendItem{Label: "critical level", Kind: "line", Stroke: st})
 	}
 	c.LegendY = c.Plot.Bottom() + 62
 	return c

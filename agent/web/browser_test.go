@@ -42,6 +42,26 @@ func TestBrowserDashboard(t *testing.T) {
 		}
 	}
 
+	// The segmented watch counts its districts, not the whole table too.
+	if sub := webtest.Eval[string](b, `document.querySelector('tr[data-watch="district_daily"] .sub').textContent`); !strings.Contains(sub, "by district (4)") {
+		t.Errorf("overview: district_daily says %q, want by district (4)", sub)
+	}
+
+	// The Alerts link opens a page of the open alerts, not raw JSON.
+	open, err := allAlerts(context.Background(), f.view, true)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b.Click(`header nav a[href="/alerts"]`, "table[data-alerts]")
+	b.Screenshot("alerts.png")
+	if ct := webtest.Eval[string](b, "document.contentType"); ct != "text/html" {
+		t.Errorf("the Alerts link opens %s, want an HTML page", ct)
+	}
+	if n := webtest.Eval[int](b, `document.querySelectorAll("tr[data-alert]").length`); n != len(open) {
+		t.Errorf("alerts page: %d rows, want the %d open alerts", n, len(open))
+	}
+	b.Visit(ts.URL + "/")
+
 	// Follow the link to the watch page.
 	b.Click(`a.watch[href="/watches/district_daily"]`, "#tl-cond")
 	if loc := webtest.Eval[string](b, "location.pathname"); loc != "/watches/district_daily" {

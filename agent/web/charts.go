@@ -33,6 +33,9 @@ type stroke struct {
 	Colour string
 	Width  float64
 	Dash   string
+	// Cap is the line cap, "" for butt; a legend draws its sample with
+	// the same cap, so that a dashed line looks the same in both.
+	Cap string
 }
 
 // legendItem is one entry of a legend; Kind is line, area, bar or marker.
@@ -278,7 +281,7 @@ func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float
 	}
 
 	var d strings.Builder
-	s := series{Name: title, Class: metric, Stroke: stroke{Colour: col, Width: 2}}
+	s := series{Name: title, Class: metric, Stroke: stroke{Colour: col, Width: 2, Cap: "round"}}
 	pen := false
 	for _, p := range tl {
 		v := metricOf(p, metric)
@@ -345,7 +348,7 @@ func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float
 		}
 		band.WriteString("Z")
 		c.Cone = &cone{D: band.String(), Centre: centre.String(), Fill: colSkyBlue,
-			Pattern: id + "-cone", Stroke: stroke{Colour: col, Width: 1.5, Dash: dashForecast}}
+			Pattern: id + "-cone", Stroke: stroke{Colour: col, Width: 1.5, Dash: dashForecast, Cap: "round"}}
 		c.Series = append(c.Series, series{Name: "forecast", Class: "forecast", D: centre.String(), Stroke: c.Cone.Stroke})
 		c.Legend = append(c.Legend,
 			legendItem{Label: "forecast (trend)", Kind: "line", Stroke: c.Cone.Stroke},
@@ -505,15 +508,16 @@ func f1(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) }
 func fmtTick(v float64) string {
 	switch {
 	case v >= 1e6:
-		return fmt.Sprintf("1e%d", int(math.Round(math.Log10(v))))
+		return "10" + superscript(int(math.Round(math.Log10(v))))
 	case v >= 1e3:
 		return strconv.FormatFloat(v/1e3, 'f', -1, 64) + "k"
 	}
 	return strconv.FormatFloat(v, 'f', -1, 64)
 }
 
-// fmtNum formats a metric with three significant digits; ∞ for +Inf and
-// "—" for NaN.
+// fmtNum formats a metric for people, with about three significant
+// digits: 7.25, 42.5, 4218, 43 210 (grouped by a narrow space), 13.1
+// million, 4.5 billion, 4.50 × 10¹⁵; ∞ for +Inf and "—" for NaN.
 func fmtNum(v float64) string {
 	switch {
 	case math.IsNaN(v):
@@ -527,8 +531,19 @@ func fmtNum(v float64) string {
 	switch {
 	case a == 0:
 		return "0"
-	case a >= 1e5:
-		return strings.Replace(strconv.FormatFloat(v, 'e', 2, 64), "e+", "e", 1)
+	case a >= 999.5e9:
+		exp := int(math.Floor(math.Log10(a)))
+		m := v / math.Pow(10, float64(exp))
+		if math.Abs(m) >= 9.995 {
+			m, exp = m/10, exp+1
+		}
+		return strconv.FormatFloat(m, 'f', 2, 64) + " × 10" + superscript(exp)
+	case a >= 999.5e6:
+		return trimZeros(strconv.FormatFloat(v/1e9, 'f', 3-digitsBefore(a/1e9), 64)) + " billion"
+	case a >= 999.5e3:
+		return trimZeros(strconv.FormatFloat(v/1e6, 'f', 3-digitsBefore(a/1e6), 64)) + " million"
+	case a >= 1e4:
+		return fmtCount(int64(math.Round(v)))
 	case a >= 100:
 		return strconv.FormatFloat(v, 'f', 0, 64)
 	case a >= 10:
@@ -537,6 +552,49 @@ func fmtNum(v float64) string {
 		return trimZeros(strconv.FormatFloat(v, 'f', 2, 64))
 	}
 	return strconv.FormatFloat(v, 'g', 3, 64)
+}
+
+// digitsBefore is the number of digits before the point of a in [1, 1000)
+// once rounded to three significant digits.
+func digitsBefore(a float64) int {
+	switch {
+	case a >= 99.95:
+		return 3
+	case a >= 9.995:
+		return 2
+	}
+	return 1
+}
+
+// superscript writes n in superscript digits: 15 → ¹⁵.
+func superscript(n int) string {
+	const digits = "⁰¹²³⁴⁵⁶⁷⁸⁹"
+	sup := []rune(digits)
+	var b strings.Builder
+	if n < 0 {
+		b.WriteRune('⁻')
+		n = -n
+	}
+	for _, c := range strconv.Itoa(n) {
+		b.WriteRune(sup[c-'0'])
+	}
+	return b.String()
+}
+
+// fmtRate writes a trend's relative change per day for people: "rising
+// 2.3 %/day", "falling 0.4 %/day", "flat" when it rounds to zero (never
+// "-0.0%/day").
+func fmtRate(rate float64) string {
+	pct := 100 * rate
+	switch {
+	case math.IsNaN(pct):
+		return "no trend"
+	case math.Abs(pct) < 0.05:
+		return "flat"
+	case pct > 0:
+		return "rising " + trimZeros(strconv.FormatFloat(pct, 'f', 1, 64)) + " %/day"
+	}
+	return "falling " + trimZeros(strconv.FormatFloat(-pct, 'f', 1, 64)) + " %/day"
 }
 
 // trimZeros drops trailing zeros of a decimal: "5.00" → "5", "7.50" → "7.5".

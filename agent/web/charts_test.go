@@ -60,8 +60,11 @@ func TestFormats(t *testing.T) {
 		num  string
 		corr string
 	}{
-		{5, "5", ".00"}, {10, "10", ""}, {7.25, "7.25", ""}, {4218.4, "4218", ""}, {4.5e15, "4.50e15", ""},
+		{5, "5", ".00"}, {10, "10", ""}, {7.25, "7.25", ""}, {4218.4, "4218", ""}, {4.5e15, "4.50 × 10¹⁵", ""},
 		{math.Inf(1), "∞", ""}, {math.NaN(), "—", "—"}, {0.00123, "0.00123", ""},
+		// Numbers for people: grouped, in words, never 1.31e07.
+		{43210.4, "43\u202f210", ""}, {131000, "131\u202f000", ""}, {1.31e7, "13.1 million", ""}, {1.0e6, "1 million", ""},
+		{999.7e6, "1 billion", ""}, {2.5e9, "2.5 billion", ""}, {-1.31e7, "-13.1 million", ""}, {9.999e14, "1.00 × 10¹⁵", ""},
 	} {
 		if got := fmtNum(c.v); got != c.num {
 			t.Errorf("fmtNum(%v) = %q, want %q", c.v, got, c.num)
@@ -72,9 +75,21 @@ func TestFormats(t *testing.T) {
 			t.Errorf("fmtCorr(%v) = %q, want %q", v, got, want)
 		}
 	}
-	for v, want := range map[float64]string{1: "1", 20: "20", 5000: "5k", 1e6: "1e6"} {
+	for v, want := range map[float64]string{1: "1", 20: "20", 5000: "5k", 1e6: "10⁶", 1e12: "10¹²"} {
 		if got := fmtTick(v); got != want {
 			t.Errorf("fmtTick(%v) = %q, want %q", v, got, want)
+		}
+	}
+}
+
+// TestFmtRate: a trend's rate for people, never "-0.0%/day".
+func TestFmtRate(t *testing.T) {
+	for rate, want := range map[float64]string{
+		0.05: "rising 5 %/day", 0.023: "rising 2.3 %/day", -0.004: "falling 0.4 %/day",
+		-0.0001: "flat", 0.0004: "flat", 0: "flat", math.NaN(): "no trend",
+	} {
+		if got := fmtRate(rate); got != want {
+			t.Errorf("fmtRate(%v) = %q, want %q", rate, got, want)
 		}
 	}
 }

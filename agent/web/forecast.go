@@ -62,7 +62,7 @@ func TrendForecast(tl []Point, metric string, n int, horizon time.Duration, crit
 	if metric == MetricMaxVIF {
 		name = "max VIF"
 	}
-	fc.Message = fmt.Sprintf("%s %s, trend %+.1f%%/day over the last %d points", name, fmtNum(level), 100*tr.Rate, tr.N)
+	fc.Message = fmt.Sprintf("%s %s, %s over the last %d points", name, fmtNum(level), fmtRate(tr.Rate), tr.N)
 	if cx, ok := tr.Crossing(critical); ok && level < critical && cx <= float64(days) {
 		fc.Crosses = last.At.Add(time.Duration(cx * float64(24*time.Hour)))
 		fc.Message += fmt.Sprintf(": reaches %s in about %.0f days", fmtNum(critical), math.Max(1, math.Round(cx)))

@@ -44,7 +44,7 @@ func TestTrendForecastExponential(t *testing.T) {
 	if math.Abs(cross-math.Log(30/vals[13])/math.Log(1.05)) > 1e-6 {
 		t.Errorf("crossing after %.4f days", cross)
 	}
-	if !strings.Contains(fc.Message, "reaches 30 in about 10 days") || !strings.Contains(fc.Message, "+5.0%/day") {
+	if !strings.Contains(fc.Message, "reaches 30 in about 10 days") || !strings.Contains(fc.Message, "rising 5 %/day") {
 		t.Errorf("message %q", fc.Message)
 	}
 }

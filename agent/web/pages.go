@@ -30,7 +30,7 @@ var staticFS fs.FS = embeddedStatic
 
 // pages holds the parsed templates.
 type pages struct {
-	overview, watch, notFound *template.Template
+	overview, watch, alerts, notFound *template.Template
 }
 
 var funcs = template.FuncMap{
@@ -83,6 +83,9 @@ func newPages(logout bool) (*pages, error) {
 	if p.watch, err = parse("watch.tmpl"); err != nil {
 		return nil, err
 	}
+	if p.alerts, err = parse("alerts.tmpl"); err != nil {
+		return nil, err
+	}
 	if p.notFound, err = parse("notfound.tmpl"); err != nil {
 		return nil, err
 	}
@@ -115,6 +118,30 @@ type page struct {
 	Title     string
 	Generated time.Time
 	Error     string
+}
+
+// alertsData is the alerts page: every watch's open alerts, or all.
+type alertsData struct {
+	page
+	All    bool
+	Alerts []Alert
+}
+
+// alertsPage lists the alerts of every watch, newest first: the open
+// ones, or with ?state=all every one.
+func (s *Server) alertsPage(w http.ResponseWriter, r *http.Request) {
+	ctx, cancel := context.WithTimeout(r.Context(), apiTimeout)
+	defer cancel()
+	data := alertsData{page: page{Title: "Alerts", Generated: s.opt.Now()}, All: r.URL.Query().Get("state") == "all"}
+	alerts, err := allAlerts(ctx, s.opt.View, !data.All)
+	if err != nil {
+		s.opt.Logger.Error("alerts page: state store", "err", err)
+		data.Error = "The state store could not be read: " + err.Error()
+		s.render(w, http.StatusServiceUnavailable, s.pages.alerts, data)
+		return
+	}
+	data.Alerts = alerts
+	s.render(w, http.StatusOK, s.pages.alerts, data)
 }
 
 // overviewRow is one watch on the overview.

@@ -197,6 +197,7 @@ func (s *Server) routes(metrics http.Handler) http.Handler {
 	mux.Handle("GET /metrics", metrics)
 	mux.HandleFunc("GET /{$}", s.overview)
 	mux.HandleFunc("GET /watches/{name}", s.watchPage)
+	mux.HandleFunc("GET /alerts", s.alertsPage)
 	mux.HandleFunc("GET /api/watches", s.apiWatches)
 	mux.HandleFunc("GET /api/watches/{name}", s.apiWatch)
 	mux.HandleFunc("GET /api/watches/{name}/history", s.apiHistory)

@@ -110,6 +110,18 @@ type WatchSummary struct {
 	ConsecutiveFailures int   `json:"consecutive_failures"`
 }
 
+// SegmentCount is the number of segments (values of SegmentBy), not
+// counting the whole table.
+func (w *WatchSummary) SegmentCount() int {
+	n := 0
+	for _, s := range w.Segments {
+		if s.Segment != "" {
+			n++
+		}
+	}
+	return n
+}
+
 // Headline returns the segment the overview shows for the watch: the
 // whole table when present, else the first segment; nil when none.
 func (w *WatchSummary) Headline() *SegmentSummary {
