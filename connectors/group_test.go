@@ -4,6 +4,7 @@ import (
 	"errors"
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"testing"
 	"time"
 
@@ -14,6 +15,17 @@ import (
 // to pass the buffer bound several times) and compares each group with an
 // accumulator fed that group's rows directly.
 func TestGrouperAgainstDirect(t *testing.T) {
+	// Tests stay small (under 1 GB of memory each): this one allocates
+	// about 70 MB in all; it once reserved a million-row block per group.
+	var before runtime.MemStats
+	runtime.ReadMemStats(&before)
+	defer func() {
+		var after runtime.MemStats
+		runtime.ReadMemStats(&after)
+		if alloc := after.TotalAlloc - before.TotalAlloc; alloc > 512<<20 {
+			t.Errorf("the test allocated %d MB; keep it under 512 MB", alloc>>20)
+		}
+	}()
 	names := []string{"temperature", "rainfall", "metered_volume"}
 	for _, qr := range []bool{false, true} {
 		g := NewGrouper(GroupOptions{Columns: names, QR: qr, Bucketed: true, Segmented: true, MaxSegments: 50})
@@ -35,7 +47,10 @@ func TestGrouperAgainstDirect(t *testing.T) {
 			}
 			b := blocks[k]
 			if b == nil {
-				b = stream.NewBlock(3, 1<<20, false)
+				// One block per group, grown as rows come (about 1000
+				// each): boundaries unlike the grouper's, memory in
+				// proportion to the rows.
+				b = stream.NewBlock(3, 64, false)
 				blocks[k] = b
 				direct[k] = stream.NewMoments(names)
 				directQR[k] = stream.NewQR(names)
