@@ -9,6 +9,8 @@ import (
 	"runtime"
 	"strings"
 	"testing"
+
+	"github.com/spf13/cobra"
 )
 
 var update = flag.Bool("update", false, "rewrite the golden files of cmd/plumb")
@@ -161,5 +163,74 @@ func TestLogFormatSameEverywhere(t *testing.T) {
 	}
 	if code, _, _ := plumbCLI(t, ctx, "check", "--config", cfg, "--log-format", "xml"); code != exitUsage {
 		t.Errorf("--log-format xml: exit %d", code)
+	}
+}
+
+// TestReadmeAgreesWithHelp: the README gives every command's usage line as
+// its help does, says which commands take --config, and the exit codes the
+// help gives.
+func TestReadmeAgreesWithHelp(t *testing.T) {
+	b, err := os.ReadFile(filepath.Join("..", "..", "README.md"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	readme := strings.ReplaceAll(string(b), `\|`, "|") // pipes escaped in tables
+	root := newRoot()
+	var withConfig, without []string
+	var walk func(c *cobra.Command)
+	walk = func(c *cobra.Command) {
+		for _, sub := range c.Commands() {
+			if !sub.IsAvailableCommand() {
+				continue
+			}
+			if sub.HasAvailableSubCommands() {
+				walk(sub)
+				continue
+			}
+			usage := "plumb " + strings.TrimPrefix(usageLine(sub), "plumb ")
+			if sub.Name() != "scan" && sub.Name() != "demo" && !strings.Contains(readme, "`"+usage+"`") {
+				t.Errorf("README lacks the usage line `%s`", usage)
+			}
+			name := strings.TrimPrefix(sub.CommandPath(), "plumb ")
+			if sub.Flags().Lookup("config") != nil {
+				withConfig = append(withConfig, name)
+				if !strings.Contains(sub.Use, "[--config FILE]") {
+					t.Errorf("plumb %s takes --config but its usage line does not say so: %s", name, sub.Use)
+				}
+			} else {
+				without = append(without, name)
+			}
+		}
+	}
+	walk(root)
+	// scan's and demo's usage lines are in the tour and the scan section.
+	for _, u := range []string{"plumb scan --db sqlite:districts.db --table district_daily --target demand_m3 \\\n    --group ", "plumb demo --dir"} {
+		if !strings.Contains(readme, u) {
+			t.Errorf("README lacks %q", u)
+		}
+	}
+	_, configPara, _ := strings.Cut(readme, "The commands that read the configuration")
+	configPara, _, _ = strings.Cut(configPara, "\n\n")
+	for _, name := range withConfig {
+		if !strings.Contains(configPara, "`"+name+"`") {
+			t.Errorf("README's paragraph on --config does not list %s: %q", name, configPara)
+		}
+	}
+	takers, others, _ := strings.Cut(configPara, "(default `plumb.yaml`)")
+	for _, name := range without {
+		if strings.Contains(takers, "`"+name+"`") || !strings.Contains(others, "`"+name+"`") || !strings.Contains(others, "do not") {
+			t.Errorf("README's paragraph on --config does not say %s takes none: %q", name, configPara)
+		}
+	}
+	_, codes, _ := strings.Cut(readme, "## Exit codes\n")
+	codes, _, _ = strings.Cut(codes, "\n## ")
+	for _, c := range []string{"0 it did its job", "2 it could not", "64 a wrong command line", "70 a fault in plumb", "adds 1"} {
+		if !strings.Contains(codes, c) {
+			t.Errorf("README's exit codes lack %q", c)
+		}
+	}
+	code, out, _ := plumbCLI(t, context.Background(), "--help")
+	if code != 0 || !strings.Contains(out, "Every command exits 0 when it did its\njob, 2 when it could not") || !strings.Contains(out, "64 for a wrong command line and 70 for a fault in plumb") {
+		t.Errorf("plumb --help's exit codes differ from the README's")
 	}
 }
