@@ -195,7 +195,7 @@ func TestCheckHistoryAlertsBackfill(t *testing.T) {
 		t.Fatal("no open exact-dependency alert")
 	}
 	code, out, errs = plumbCLI(t, ctx, "alerts", "--config", cfg, "--open")
-	if code != 0 || !strings.Contains(out, "  open\n") || !strings.Contains(out, "what to do: ") {
+	if code != 0 || !strings.Contains(out, "  open\n") || !strings.Contains(out, "what to do: ") || strings.Contains(out, "OPEN") {
 		t.Fatalf("alerts text: exit %d\n%s\n%s", code, out, errs)
 	}
 

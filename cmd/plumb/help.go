@@ -31,14 +31,30 @@ func setHelp(root *cobra.Command) {
 	walk(root)
 	root.InitDefaultVersionFlag()
 	root.Flags().Lookup("version").Usage = "print plumb's version, commit and Go version"
-	// `plumb help COMMAND` works; the list does not show it.
-	root.InitDefaultHelpCmd()
-	for _, c := range root.Commands() {
-		if c.Name() == "help" {
-			c.Hidden = true
-			c.Short = "explain a command (same as plumb COMMAND --help)"
-		}
-	}
+	// `plumb help COMMAND` works like plumb COMMAND --help; the list does
+	// not show it.
+	root.SetHelpCommand(&cobra.Command{
+		Use:    "help [COMMAND]",
+		Short:  "explain a command (same as plumb COMMAND --help)",
+		Hidden: true,
+		Args:   cobra.ArbitraryArgs,
+		RunE: func(c *cobra.Command, args []string) error {
+			target, rest, err := root.Find(args)
+			if err != nil || len(rest) > 0 {
+				parent := target
+				if parent == nil {
+					parent = root
+				}
+				name := args[len(args)-1]
+				if len(rest) > 0 {
+					name = rest[0]
+				}
+				return unknownCommand(parent, name)
+			}
+			writeHelp(c.OutOrStdout(), target)
+			return nil
+		},
+	})
 }
 
 // The three positional-argument rules plumb's commands use, as usage

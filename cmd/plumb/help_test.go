@@ -102,6 +102,8 @@ func TestUnknownCommand(t *testing.T) {
 		{[]string{"histroy", "district_daily"}, "the nearest is history"},
 		{[]string{"config", "chekc"}, "the nearest is check"},
 		{[]string{"scna", "--db", "sqlite:x.db"}, "the nearest is scan"},
+		{[]string{"help", "histroy"}, "the nearest is history"},
+		{[]string{"help", "config", "chekc"}, "the nearest is check"},
 	} {
 		code, out, errs := plumbCLI(t, context.Background(), c.args...)
 		if code != exitUsage || out != "" || !strings.Contains(errs, c.nearest) {
