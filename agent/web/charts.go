@@ -515,6 +515,10 @@ func fmtTick(v float64) string {
 	return strconv.FormatFloat(v, 'f', -1, 64)
 }
 
+// FormatNumber writes a metric as the dashboard does, for the command
+// line to print numbers the same way.
+func FormatNumber(v float64) string { return fmtNum(v) }
+
 // fmtNum formats a metric for people, with about three significant
 // digits: 7.25, 42.5, 4218, 43 210 (grouped by a narrow space), 13.1
 // million, 4.5 billion, 4.50 × 10¹⁵; ∞ for +Inf and "—" for NaN.

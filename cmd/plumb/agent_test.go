@@ -10,6 +10,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"regexp"
 	"slices"
 	"strings"
 	"testing"
@@ -128,6 +129,10 @@ func TestCheckHistoryAlertsBackfill(t *testing.T) {
 	if code != checkFail || !strings.Contains(out, "tilted   district_daily · ") ||
 		!strings.Contains(out, "total_connections = 1·residential_connections + 1·commercial_connections + 0") {
 		t.Fatalf("check: exit %d\n%s\n%s", code, out, errs)
+	}
+	// Numbers for people: a singular design is said so, not 4.5e+15.
+	if !regexp.MustCompile(`tilted   district_daily · max VIF ∞ \(\w+\) · singular \(rank \d+ of 11\) · \d+ rows read\n`).MatchString(out) || strings.Contains(out, "e+") {
+		t.Errorf("check line:\n%s", out)
 	}
 
 	code, out, errs = plumbCLI(t, ctx, "history", "district_daily", "--config", cfg, "--format", "json")

@@ -13,6 +13,7 @@ import (
 
 	"plumb/agent"
 	"plumb/agent/config"
+	"plumb/agent/web"
 )
 
 // The states `plumb check` gives a watch, after a plumb line: a steady
@@ -130,6 +131,8 @@ type checkResult struct {
 	Cond     *float64      `json:"condition_number"`
 	MaxVIF   *float64      `json:"max_vif"`
 	MaxVIFOn string        `json:"max_vif_column,omitempty"`
+
+	rank, full int // of the latest point: rank of [1 X] and its columns
 }
 
 func watchesToRun(c *config.Config, name string) ([]*config.Watch, error) {
@@ -184,6 +187,7 @@ func runCheck(ctx context.Context, stdout io.Writer, path, name, format string, 
 		}
 		if ps, err := st.Points(ctx, w.Name, agent.PointQuery{Limit: 1}); err == nil && len(ps) == 1 {
 			r.Cond, r.MaxVIF, r.MaxVIFOn = finite(ps[0].ConditionNumber), finite(ps[0].MaxVIF), ps[0].MaxVIFColumn
+			r.rank, r.full = ps[0].Rank, ps[0].Columns+1
 		}
 		results = append(results, r)
 	}
@@ -233,14 +237,20 @@ func writeCheckText(w io.Writer, results []checkResult, g gate, code int) {
 	for _, r := range results {
 		tally[r.State]++
 		parts := []string{r.Watch}
-		if r.MaxVIF != nil {
-			s := "max VIF " + fmtNum(*r.MaxVIF)
+		if r.MaxVIF != nil || r.MaxVIFOn != "" {
+			s := "max VIF ∞" // undefined: a constant column or an exact dependency
+			if r.MaxVIF != nil {
+				s = "max VIF " + fmtNum(*r.MaxVIF)
+			}
 			if r.MaxVIFOn != "" {
 				s += " (" + r.MaxVIFOn + ")"
 			}
 			parts = append(parts, s)
 		}
-		if r.Cond != nil {
+		switch {
+		case r.rank > 0 && r.rank < r.full:
+			parts = append(parts, fmt.Sprintf("singular (rank %d of %d)", r.rank, r.full))
+		case r.Cond != nil:
 			parts = append(parts, "condition "+fmtNum(*r.Cond))
 		}
 		parts = append(parts, fmt.Sprintf("%d rows read", r.Run.RowsRead))
@@ -276,12 +286,6 @@ func finite(v float64) *float64 {
 	return &v
 }
 
-func fmtNum(v float64) string {
-	switch {
-	case math.Abs(v) >= 1e6:
-		return fmt.Sprintf("%.3g", v)
-	case math.Abs(v) >= 100:
-		return fmt.Sprintf("%.0f", v)
-	}
-	return fmt.Sprintf("%.3g", v)
-}
+// fmtNum writes a number for people, as the dashboard does: 645,
+// 43 210, 13.1 million, never 1.31e+07.
+func fmtNum(v float64) string { return web.FormatNumber(v) }
