@@ -25,36 +25,38 @@ func TestDayNumbersAgree(t *testing.T) {
 	if code != 0 {
 		t.Fatalf("demo: exit %d: %s", code, errs)
 	}
-	m := regexp.MustCompile(`district_connections reports the exact dependency on day (\d+)`).FindStringSubmatch(out)
+	m := regexp.MustCompile(`district_connections reports the exact dependency on day (\d+), .*dated to day (\d+) \(its onset`).FindStringSubmatch(out)
 	if m == nil {
 		t.Fatalf("no exact-dependency day in the demo report:\n%s", out)
 	}
 	day, _ := strconv.Atoi(m[1])
+	onsetDay, _ := strconv.Atoi(m[2])
 	date := start.AddDate(0, 0, day).Format(time.DateOnly)
+	onset := start.AddDate(0, 0, onsetDay).Format(time.DateOnly)
 	if !strings.Contains(out, "day 0 = "+start.Format(time.DateOnly)) {
 		t.Errorf("the report does not say which date day 0 is:\n%s", out)
 	}
 	cfg := filepath.Join(dir, "plumb.yaml")
 
 	code, out, errs = runCLI(t, "alerts", "--config", cfg, "--watch", "district_connections", "--since", "all")
-	if code != 0 || !regexp.MustCompile(`exact +district_connections  data through `+date+`  `).MatchString(out) {
-		t.Errorf("plumb alerts does not date the exact alert's window through %s (day %d):\n%s\n%s", date, day, out, errs)
+	if code != 0 || !regexp.MustCompile(`exact +district_connections  since `+onset+`, data through `+date+`  `).MatchString(out) {
+		t.Errorf("plumb alerts does not date the exact alert since %s (day %d), data through %s (day %d):\n%s\n%s", onset, onsetDay, date, day, out, errs)
+	}
+	// The JSON keeps the window's end: the midnight after the last day.
+	code, out, _ = runCLI(t, "alerts", "--config", cfg, "--watch", "district_connections", "--since", "all", "--format", "json")
+	end := start.AddDate(0, 0, day+1).Format(time.RFC3339)
+	if code != 0 || !strings.Contains(out, `"as_of": "`+end+`"`) || !strings.Contains(out, `"onset": "`+onset+`T00:00:00Z"`) {
+		t.Errorf("plumb alerts JSON: want as_of %s and onset %s:\n%s", end, onset, out)
 	}
 
+	// History names the window that raised it by the same day.
 	code, out, errs = runCLI(t, "history", "district_connections", "--config", cfg)
-	if code != 0 {
-		t.Fatalf("history: exit %d: %s", code, errs)
+	if code != 0 || !regexp.MustCompile(`(?m)^`+date+` +\d+ +\d+ `).MatchString(out) || !strings.HasPrefix(out, "data through ") {
+		t.Errorf("history: no window dated through %s (day %d):\n%s\n%s", date, day, out, errs)
 	}
-	// The first window with rank 3 of 4 is the exact alert's.
-	var first string
-	for _, line := range strings.Split(out, "\n") {
-		if f := strings.Fields(line); len(f) > 3 && f[2] == "3" {
-			first = f[0]
-			break
-		}
-	}
-	if first != date {
-		t.Errorf("history: first rank-deficient window through %q, want %s (day %d):\n%s", first, date, day, out)
+	code, out, _ = runCLI(t, "history", "district_connections", "--config", cfg, "--format", "json")
+	if code != 0 || !strings.Contains(out, `"at": "`+end+`"`) {
+		t.Errorf("history JSON lacks the window ending %s", end)
 	}
 
 	st, err := sqlstore.Open(context.Background(), "sqlite:"+filepath.Join(dir, "state.db"), sqlstore.Options{})

@@ -12,10 +12,7 @@ import (
 	"testing"
 	"time"
 
-	"plumb/agent"
 	"plumb/agent/config"
-	"plumb/agent/demo"
-	"plumb/agent/sqlstore"
 )
 
 // TestDemoHintsRun: the commands the demo prints at the end run as shown
@@ -130,9 +127,7 @@ func TestInvocation(t *testing.T) {
 
 // TestDemoConfigCommentsMatch: the comments of the demo's plumb.yaml agree
 // with its watches: every "N-day window" a watch's comment names is that
-// watch's window, and the condition numbers the header gives for ordinary
-// days are what the backfilled history shows for full windows before each
-// story begins.
+// watch's window, and the limits the header gives are every watch's.
 func TestDemoConfigCommentsMatch(t *testing.T) {
 	dir := filepath.Join(t.TempDir(), "demo")
 	start := time.Date(2026, 6, 1, 0, 0, 0, 0, time.UTC)
@@ -170,46 +165,20 @@ func TestDemoConfigCommentsMatch(t *testing.T) {
 		}
 	}
 
+	// The header's limits are every watch's.
 	header := strings.Join(strings.Fields(strings.ReplaceAll(string(text), "\n#", "\n")), " ")
-	m := regexp.MustCompile(`the pooled volumes (\d+)-(\d+), the pooled connections (\d+)-(\d+), one district's demand regression (\d+)-(\d+)`).FindStringSubmatch(header)
+	m := regexp.MustCompile(`default limits: VIF (\d+) and (\d+), and the centered condition number \(the columns among themselves\) (\d+) and (\d+)`).FindStringSubmatch(header)
 	if m == nil {
-		t.Fatalf("header lacks the ordinary ranges:\n%s", text)
+		t.Fatalf("header does not give the limits:\n%s", text)
 	}
-	st, err := sqlstore.Open(context.Background(), "sqlite:"+filepath.Join(dir, "state.db"), sqlstore.Options{})
-	if err != nil {
-		t.Fatal(err)
+	var want [4]float64
+	for i := range want {
+		want[i], _ = strconv.ParseFloat(m[i+1], 64)
 	}
-	defer st.Close()
-	sc := demo.Default
-	for i, w := range []struct {
-		watch    string
-		storyDay int // the first day the story touches
-		segments bool
-	}{
-		{"district_volumes", sc.RolloutDay, false},
-		{"district_connections", sc.ChangeDay, false},
-		{"district_daily", sc.StuckDay, true},
-	} {
-		lo, _ := strconv.ParseFloat(m[1+2*i], 64)
-		hi, _ := strconv.ParseFloat(m[2+2*i], 64)
-		wt := c.Watch(w.watch)
-		ps, err := st.Points(context.Background(), w.watch, agent.PointQuery{AllSegs: true})
-		if err != nil {
-			t.Fatal(err)
-		}
-		seen := 0
-		for _, p := range ps {
-			day := int(p.At.Sub(start).Hours()/24) - 1 // the window's last data day
-			if (p.Segment != "") != w.segments || day < wt.Window.Buckets-1 || day >= w.storyDay {
-				continue
-			}
-			seen++
-			if p.ConditionNumber < lo || p.ConditionNumber > hi {
-				t.Errorf("%s %s day %d: condition number %.1f outside the comment's %v-%v", w.watch, p.Segment, day, p.ConditionNumber, lo, hi)
-			}
-		}
-		if seen == 0 {
-			t.Errorf("%s: no ordinary full window to compare", w.watch)
+	for _, w := range c.Watches {
+		l := w.Limits
+		if got := [4]float64{l.VIF.Warn, l.VIF.Critical, l.Condition.Warn, l.Condition.Critical}; got != want || l.ConditionBasis != config.ConditionCentered {
+			t.Errorf("watch %s: limits %v on the %s condition number; the header says %v on the centered one", w.Name, got, l.ConditionBasis, want)
 		}
 	}
 }
