@@ -52,14 +52,16 @@ func TestBrowserDashboard(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	b.Click(`header nav a[href="/alerts"]`, "table[data-alerts]")
-	b.Screenshot("alerts.png")
+	// Wait for the new page's footer: the whole page is parsed then.
+	b.Click(`header nav a[href="/alerts"]`, "body:has(table[data-alerts]) footer")
 	if ct := webtest.Eval[string](b, "document.contentType"); ct != "text/html" {
 		t.Errorf("the Alerts link opens %s, want an HTML page", ct)
 	}
 	if n := webtest.Eval[int](b, `document.querySelectorAll("tr[data-alert]").length`); n != len(open) {
 		t.Errorf("alerts page: %d rows, want the %d open alerts", n, len(open))
 	}
+	b.Visit(ts.URL + "/alerts")
+	b.Screenshot("alerts.png")
 	b.Visit(ts.URL + "/")
 
 	// Follow the link to the watch page.
