@@ -81,8 +81,8 @@ func TestDayNumbersAgree(t *testing.T) {
 	body, _ := io.ReadAll(resp.Body)
 	resp.Body.Close()
 	page := string(body)
-	if !strings.Contains(page, "data through "+date) || !regexp.MustCompile(`<tr><td>`+date+`</td><td><span class="pill pill-critical">critical</span></td><td>exact</td>`).MatchString(page) {
-		t.Errorf("the dashboard does not date the exact alert's window through %s (day %d)", date, day)
+	if !strings.Contains(page, "data through "+date) || !regexp.MustCompile(`<tr><td>`+onset+`</td><td>`+date+`</td><td><span class="pill pill-critical">critical</span></td><td>exact</td>`).MatchString(page) {
+		t.Errorf("the dashboard does not date the exact alert since %s, its window through %s (day %d)", onset, date, day)
 	}
 	if strings.Contains(page, "data as of") {
 		t.Errorf("the dashboard still says 'data as of'")
