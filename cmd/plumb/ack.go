@@ -17,7 +17,7 @@ func newAlertsAckCmd() *cobra.Command {
 	var path, forDur, note string
 	cmd := &cobra.Command{
 		Use:   "ack ID [--config FILE] [--for DURATION] [--note TEXT]",
-		Short: "Acknowledge an open alert, optionally for a while",
+		Short: "acknowledge an open alert, optionally for a while",
 		Long: `ack records that you know about an open alert: who (your user name), when,
 for how long (--for, e.g. 12h, 3d; without it, until the alert resolves or
 escalates) and why (--note). While acknowledged the alert is not notified
@@ -27,7 +27,7 @@ resolution is notified as always. ID is the id plumb alerts prints, or a
 unique beginning of it. A running agent keeps the acknowledgement: ack does
 not need the store to itself.`,
 		Example: `  plumb alerts ack 3f9c2a71d0 --config plumb.yaml --for 3d --note "meter rollout in the harbour district"`,
-		Args:    cobra.ExactArgs(1),
+		Args:    oneArg("ID"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			ack := agent.Ack{By: osUser(), At: time.Now(), Note: strings.TrimSpace(note)}
 			if forDur != "" {

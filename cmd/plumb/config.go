@@ -45,9 +45,10 @@ func loadConfig(path string, resolve bool) (*config.Config, error) {
 
 func newConfigCmd() *cobra.Command {
 	cmd := &cobra.Command{
-		Use:   "config",
-		Short: "work with the agent's configuration file",
-		Args:  cobra.ArbitraryArgs,
+		Use:         "config",
+		Annotations: map[string]string{"group": "only"},
+		Short:       "work with the agent's configuration file",
+		Args:        cobra.ArbitraryArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if len(args) > 0 {
 				return unknownCommand(cmd, args[0])

@@ -112,7 +112,7 @@ func writeHelp(w io.Writer, c *cobra.Command) {
 			b.WriteString("\n" + g.Title + "\n")
 			for _, sub := range c.Commands() {
 				if sub.GroupID == g.ID && sub.IsAvailableCommand() {
-					writeCommand(&b, sub)
+					writeCommand(&b, sub, "")
 				}
 			}
 		}
@@ -120,7 +120,7 @@ func writeHelp(w io.Writer, c *cobra.Command) {
 		b.WriteString("\ncommands\n")
 		for _, sub := range c.Commands() {
 			if sub.IsAvailableCommand() {
-				writeCommand(&b, sub)
+				writeCommand(&b, sub, "")
 			}
 		}
 	}
@@ -158,15 +158,24 @@ func usageLine(c *cobra.Command) string {
 	return use
 }
 
-// writeCommand writes one line of a command list: the name (with a
-// subcommand's name for a command that only groups them) and its summary.
-func writeCommand(b *strings.Builder, c *cobra.Command) {
-	name, short := c.Name(), c.Short
-	if subs := c.Commands(); len(subs) == 1 && subs[0].IsAvailableCommand() {
-		name += " " + subs[0].Name()
-		short = subs[0].Short
+// writeCommand writes the lines of a command list for c: its name and
+// summary (unless it only groups subcommands), then each subcommand's,
+// named with c's name in front.
+func writeCommand(b *strings.Builder, c *cobra.Command, prefix string) {
+	name := strings.TrimSpace(prefix + " " + c.Name())
+	if !groupOnly(c) {
+		fmt.Fprintf(b, "  %-14s %s\n", name, c.Short)
 	}
-	fmt.Fprintf(b, "  %-14s %s\n", name, short)
+	for _, sub := range c.Commands() {
+		if sub.IsAvailableCommand() {
+			writeCommand(b, sub, name)
+		}
+	}
+}
+
+// groupOnly reports whether c only groups subcommands (plumb config).
+func groupOnly(c *cobra.Command) bool {
+	return c.HasAvailableSubCommands() && c.Annotations["group"] == "only"
 }
 
 // writeFlags lists flags one per line: the flag with the kind of value it
@@ -240,7 +249,9 @@ func valueName(f *pflag.Flag) string {
 	case "time-zone":
 		return "ZONE"
 	case "watch":
-		return "WATCH"
+		return "NAME"
+	case "for":
+		return "DURATION"
 	case "since":
 		return "AGE"
 	case "from", "start":
