@@ -28,7 +28,9 @@ func TestDemoHintsRun(t *testing.T) {
 	if !ok {
 		t.Fatalf("no hints:\n%s", out)
 	}
-	prefix := "go run ./cmd/plumb " // a test binary is built by go, as go run's is
+	// go test builds the binary as go run does ("go run ./cmd/plumb");
+	// a test binary built with go test -c is named by its path.
+	prefix := invokedAs() + " "
 	n := 0
 	for _, line := range strings.Split(strings.TrimSpace(hints), "\n") {
 		line = strings.TrimSpace(line)
