@@ -236,14 +236,14 @@ func writeCheckText(w io.Writer, results []checkResult, g gate, code int) {
 	tally := map[string]int{}
 	for _, r := range results {
 		tally[r.State]++
-		parts := []string{r.Watch}
+		parts := []string{termSafe(r.Watch)}
 		if r.MaxVIF != nil || r.MaxVIFOn != "" {
 			s := "max VIF ∞" // undefined: a constant column or an exact dependency
 			if r.MaxVIF != nil {
 				s = "max VIF " + fmtNum(*r.MaxVIF)
 			}
 			if r.MaxVIFOn != "" {
-				s += " (" + r.MaxVIFOn + ")"
+				s += " (" + termSafe(r.MaxVIFOn) + ")"
 			}
 			parts = append(parts, s)
 		}
@@ -256,10 +256,10 @@ func writeCheckText(w io.Writer, results []checkResult, g gate, code int) {
 		parts = append(parts, fmt.Sprintf("%d rows read", r.Run.RowsRead))
 		fmt.Fprintf(w, "%-8s %s\n", r.State, strings.Join(parts, " · "))
 		if r.Error != "" {
-			fmt.Fprintf(w, "%8s %s\n", "", r.Error)
+			fmt.Fprintf(w, "%8s %s\n", "", termSafe(r.Error))
 		}
 		for _, a := range r.Open {
-			fmt.Fprintf(w, "%8s %s, %s: %s\n", "", a.Severity, a.Rule, a.Message)
+			fmt.Fprintf(w, "%8s %s, %s: %s\n", "", a.Severity, a.Rule, termSafe(a.Message))
 		}
 	}
 	var counts []string

@@ -116,7 +116,7 @@ watches:
 		{"alerts", "--config", cfg, "--since", "all"},
 	} {
 		code, out, errs := plumbCLI(t, ctx, args...)
-		if code == 70 || code == 1 {
+		if code == exitInternal || code == exitUsage {
 			t.Fatalf("%s: exit %d\n%s\n%s", args[0], code, out, errs)
 		}
 		assertTerminalSafe(t, args[0], out)
