@@ -174,7 +174,13 @@ func cause(a *Alert, since time.Time, resolved bool) string {
 			what += " (" + alertColumns(a)[0] + ")"
 		}
 		if d.Limit > 0 && !resolved {
-			return fmt.Sprintf("%s at or above the %s level %s%s", what, a.Severity, num(d.Limit), from)
+			// Dated from when this severity began; the onset dates the
+			// rise as a whole.
+			at := from
+			if !d.Since.IsZero() {
+				at = " since " + dataTime(d.Since)
+			}
+			return fmt.Sprintf("%s at or above the %s level %s%s", what, a.Severity, num(d.Limit), at)
 		}
 		return what + " at " + string(a.Severity) + " level" + from
 	case RuleTrend:

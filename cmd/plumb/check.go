@@ -1,6 +1,7 @@
 package main
 
 import (
+	"cmp"
 	"context"
 	"encoding/json"
 	"fmt"
@@ -129,8 +130,13 @@ type checkResult struct {
 	Run      agent.Run     `json:"run"`
 	Open     []alertOutput `json:"open_alerts"`
 	Cond     *float64      `json:"condition_number"`
-	MaxVIF   *float64      `json:"max_vif"`
-	MaxVIFOn string        `json:"max_vif_column,omitempty"`
+	// Judged is the condition number the watch's limits apply to (its
+	// condition_basis, on the design without the columns that exact and
+	// constant alerts explain); Basis names it.
+	Judged   *float64 `json:"judged_condition_number"`
+	Basis    string   `json:"condition_basis"`
+	MaxVIF   *float64 `json:"max_vif"`
+	MaxVIFOn string   `json:"max_vif_column,omitempty"`
 
 	rank, full int // of the latest point: rank of [1 X] and its columns
 }
@@ -188,6 +194,10 @@ func runCheck(ctx context.Context, stdout io.Writer, path, name, format string, 
 		if ps, err := st.Points(ctx, w.Name, agent.PointQuery{Limit: 1}); err == nil && len(ps) == 1 {
 			r.Cond, r.MaxVIF, r.MaxVIFOn = finite(ps[0].ConditionNumber), finite(ps[0].MaxVIF), ps[0].MaxVIFColumn
 			r.rank, r.full = ps[0].Rank, ps[0].Columns+1
+			r.Basis = cmp.Or(w.Limits.ConditionBasis, config.DefaultConditionBasis)
+			if o, err := agent.ObservationFromPoint(ps[0], r.Basis); err == nil {
+				r.Judged = finite(o.Cond)
+			}
 		}
 		results = append(results, r)
 	}
@@ -247,11 +257,17 @@ func writeCheckText(w io.Writer, results []checkResult, g gate, code int) {
 			}
 			parts = append(parts, s)
 		}
+		name := "centered condition"
+		if r.Basis == config.ConditionIntercept {
+			name = "condition with the intercept"
+		}
 		switch {
+		case r.rank > 0 && r.rank < r.full && r.Judged != nil:
+			parts = append(parts, fmt.Sprintf("singular (rank %d of %d); %s of the rest %s", r.rank, r.full, name, fmtNum(*r.Judged)))
 		case r.rank > 0 && r.rank < r.full:
 			parts = append(parts, fmt.Sprintf("singular (rank %d of %d)", r.rank, r.full))
-		case r.Cond != nil:
-			parts = append(parts, "condition "+fmtNum(*r.Cond))
+		case r.Judged != nil:
+			parts = append(parts, name+" "+fmtNum(*r.Judged))
 		}
 		parts = append(parts, fmt.Sprintf("%d rows read", r.Run.RowsRead))
 		fmt.Fprintf(w, "%-8s %s\n", r.State, strings.Join(parts, " · "))

@@ -214,7 +214,7 @@ func runDemo(ctx context.Context, stdout io.Writer, log *slog.Logger, sc demo.Sc
 // its last day.
 func demoReport(ctx context.Context, w io.Writer, st agent.Store, c *config.Config, sc demo.Scenario) error {
 	tw := tabwriter.NewWriter(w, 2, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "watch\twindows\tlast condition number\tlast max VIF\trank")
+	fmt.Fprintln(tw, "watch\twindows\tlast centered condition number\tlast max VIF\trank")
 	points := map[string][]agent.Point{}
 	for _, wt := range c.Watches {
 		ps, err := st.Points(ctx, wt.Name, agent.PointQuery{AllSegs: true})
@@ -237,7 +237,16 @@ func demoReport(ctx context.Context, w io.Writer, st agent.Store, c *config.Conf
 		if last.MaxVIFColumn != "" {
 			vif += " (" + last.MaxVIFColumn + ")"
 		}
-		fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t%d of %d\n", wt.Name, len(whole), fmtNum(last.ConditionNumber), vif, last.Rank, last.Columns+1)
+		// The number the limits judge: of the columns left once exact and
+		// constant alerts have taken theirs.
+		cond := fmtNum(last.CenteredCondition)
+		if o, err := agent.ObservationFromPoint(last, wt.Limits.ConditionBasis); err == nil {
+			cond = fmtNum(o.Cond)
+			if len(o.LeftOut) > 0 {
+				cond += " (without " + strings.Join(o.LeftOut, ", ") + ")"
+			}
+		}
+		fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t%d of %d\n", wt.Name, len(whole), cond, vif, last.Rank, last.Columns+1)
 	}
 	tw.Flush()
 	alerts, err := st.Alerts(ctx, agent.AlertQuery{})
