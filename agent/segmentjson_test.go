@@ -15,7 +15,7 @@ func TestNotificationSegmentJSON(t *testing.T) {
 	for _, c := range []struct {
 		key, want string
 	}{
-		{connectors.WholeTable, `"whole_table":true`},
+		{connectors.WholeTable, `"whole_table":true,"segment":null`},
 		{connectors.SegmentKey(""), `"segment":""`},
 		{connectors.NullSegment, `"segment":null`},
 		{connectors.SegmentKey("hillside"), `"segment":"hillside"`},
@@ -32,7 +32,7 @@ func TestNotificationSegmentJSON(t *testing.T) {
 		if !strings.Contains(string(b), c.want) {
 			t.Errorf("%q: %s lacks %s", c.key, b, c.want)
 		}
-		if c.key != connectors.WholeTable && strings.Contains(string(b), "whole_table") {
+		if c.key != connectors.WholeTable && !strings.Contains(string(b), `"whole_table":false`) {
 			t.Errorf("%q: a segment marked as the whole table: %s", c.key, b)
 		}
 		if n.Segments != nil && !strings.Contains(string(b), `"segments":["hillside","",null]`) {

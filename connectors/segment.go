@@ -131,9 +131,13 @@ func KeyOfLabel(label string) (string, error) {
 // "whole_table": true and no "segment"; a segment has "segment" with its
 // value as a string (the empty string included) or null for NULL. Embed
 // it in the JSON form of a type and fill it with SegmentJSONOf.
+//
+// Both keys are always present, so every series has a "segment": the whole
+// table is {"whole_table": true, "segment": null}; a segment is
+// {"whole_table": false, "segment": VALUE} with null for NULL.
 type SegmentJSON struct {
-	WholeTable bool         `json:"whole_table,omitempty"`
-	Segment    segmentValue `json:"segment,omitzero"`
+	WholeTable bool         `json:"whole_table"`
+	Segment    segmentValue `json:"segment"`
 }
 
 // SegmentJSONOf returns the JSON form of a key.
@@ -166,7 +170,7 @@ type segmentValue struct {
 func (s segmentValue) IsZero() bool { return !s.set }
 
 func (s segmentValue) MarshalJSON() ([]byte, error) {
-	if s.null {
+	if s.null || !s.set {
 		return []byte("null"), nil
 	}
 	return json.Marshal(s.v)

@@ -150,7 +150,7 @@ watches:
 		segRaw, hasSeg := m["segment"]
 		whole := string(m["whole_table"]) == "true"
 		switch {
-		case whole && !hasSeg:
+		case whole && hasSeg && string(segRaw) == "null":
 			found["whole"] = rowsOf(m)
 		case !whole && hasSeg:
 			found["segment "+string(segRaw)] = rowsOf(m)
