@@ -60,7 +60,7 @@ cfg=$work/soak.yaml
 		1) cols="[residential_connections, commercial_connections, total_connections]"; extra="" ;;
 		2) cols="[temperature_c, rainfall_mm, pressure_bar, metered_volume_m3]"; extra="target: demand_m3, segment_by: district, " ;;
 		esac
-		printf '  - {name: soak_%03d, source: districts, table: district_daily, columns: %s, %stime_column: day, bucket: day, window: 14 buckets, lookback: 3 buckets, schedule: "* * * * *", notify: [log]}\n' \
+		printf '  - {name: soak_%03d, source: districts, table: district_daily, columns: %s, %stime_column: day, bucket: day, window: 14 buckets, rescan: 3 buckets, schedule: "* * * * *", notify: [log]}\n' \
 			"$i" "$cols" "$extra"
 	done
 } >"$cfg"
