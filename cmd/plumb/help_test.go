@@ -124,7 +124,7 @@ func TestEditDistance(t *testing.T) {
 		want int
 	}{
 		{"", "", 0}, {"check", "check", 0}, {"chek", "check", 1}, {"histroy", "history", 2},
-		{"kitten", "sitting", 3}, // the textbook example; common practice, no source
+		{"metred", "metered", 1}, {"volumes", "columns", 2}, // counted by hand: one insertion; two substitutions
 		{"SCAN", "scan", 0},
 	} {
 		if got := editDistance(c.a, c.b); got != c.want {
