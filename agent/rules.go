@@ -126,6 +126,15 @@ type RecentPoint struct {
 	LeftOut string `json:"left_out,omitempty"`
 }
 
+// dataDay is the data day the point's window ends on (its end, for a
+// point stored before days were kept).
+func (p RecentPoint) dataDay() time.Time {
+	if p.Day.IsZero() {
+		return p.At
+	}
+	return p.Day
+}
+
 func leftOutKey(o Observation) string {
 	cols := slices.Clone(o.LeftOut)
 	slices.Sort(cols)
@@ -902,10 +911,7 @@ func (r *Rules) trend(recent []RecentPoint, get func(RecentPoint) float64, o Obs
 	default:
 		msg = fmt.Sprintf("%s %s %s: reaches %s around %s%s", name, num(windowValue), rate, num(crit), r.day(when), rng)
 	}
-	first := recent[0].Day
-	if first.IsZero() {
-		first = recent[0].At
-	}
+	first := recent[0].dataDay()
 	return finding{rule: RuleTrend, subject: metric, severity: Warning, message: msg, onset: first, columns: cols,
 		detail: AlertDetail{Metric: metric, Value: windowValue, Limit: crit, Values: values, Remedy: remedy,
 			Forecast: &Forecast{RatePerDay: tr.Rate, Crossing: when.UTC(), Limit: crit}}}, true
@@ -939,10 +945,7 @@ func (r *Rules) jump(recent []RecentPoint, get func(RecentPoint) float64, o Obse
 	if d < 0 {
 		dir = "dropped"
 	}
-	prevDay := recent[len(recent)-1].Day
-	if prevDay.IsZero() {
-		prevDay = recent[len(recent)-1].At
-	}
+	prevDay := recent[len(recent)-1].dataDay()
 	msg := fmt.Sprintf("%s %s from %s on %s to %s on %s (%+.0f%%), far outside the recent changes (robust z %.1f)",
 		r.metricLabel(metric, metric), dir, num(prev), r.day(prevDay), num(v), r.day(o.Day), 100*math.Expm1(d), z)
 	return finding{rule: RuleJump, subject: metric, severity: Warning, message: msg, onset: o.Day, columns: cols,
