@@ -8,7 +8,13 @@
 //   - from ChangeDay on, an upstream change writes total_connections as the
 //     exact sum of residential and commercial connections (before it, the
 //     total also counted a varying number of other connections);
-//   - the pressure sensor of one district sticks from StuckDay on.
+//   - the pressure sensor of one district sticks from StuckDay on;
+//   - each district draws its water from a mix of sources (supply_source,
+//     a text column), and from DoseDay on the treatment works dose chlorine
+//     by source alone: chlorine_mg_l becomes a function of supply_source,
+//     an exact dependency between a factor and a numeric column. From
+//     NewSourceDay on one district also receives desalinated water, a
+//     level the table has not held before.
 //
 // Apart from these stories the columns are not collinear, within a
 // district or with the districts pooled: the districts are laid out to a
@@ -45,7 +51,21 @@ type Scenario struct {
 	ChangeDay     int // day index from which total_connections is an exact sum
 	StuckDay      int // day index from which StuckDistrict's pressure is constant
 	StuckDistrict string
+	DoseDay       int    // day index from which chlorine_mg_l is fixed by supply_source
+	NewSourceDay  int    // day index from which NewSourceIn also draws on NewSource
+	NewSource     string // a supply source first seen on NewSourceDay
+	NewSourceIn   string // the district that receives it
 }
+
+// Sources are the supply sources of the scenario before NewSource, with
+// the chlorine dose (mg/l) the treatment works sets for each from DoseDay.
+var Sources = []struct {
+	Name string
+	Dose float64
+}{{"blended", 0.65}, {"groundwater", 0.5}, {"reservoir", 0.8}}
+
+// newSourceDose is the dose of the new source from DoseDay.
+const newSourceDose = 0.6
 
 // Default is the scenario of plumb's demo and built-in sample.
 var Default = Scenario{
@@ -57,6 +77,10 @@ var Default = Scenario{
 	ChangeDay:     70,
 	StuckDay:      85,
 	StuckDistrict: "hillside",
+	DoseDay:       96,
+	NewSourceDay:  104,
+	NewSource:     "desalinated",
+	NewSourceIn:   "harbour",
 }
 
 // Row is one district-day.
@@ -73,6 +97,8 @@ type Row struct {
 	PressureBar            float64
 	MeteredVolumeM3        float64
 	BilledVolumeM3         float64
+	SupplySource           string
+	ChlorineMgL            float64
 	DemandM3               float64
 }
 
@@ -101,6 +127,9 @@ func (s Scenario) Rows() []Row {
 	}
 	round1 := func(x float64) float64 { return math.Round(x*10) / 10 }
 	round3 := func(x float64) float64 { return math.Round(x*1000) / 1000 }
+	// The supply sources draw on a stream of their own, so that the
+	// other columns are the same with or without them.
+	srng := rand.New(rand.NewPCG(s.Seed+1, s.Seed^0x5bd1e9955bd1e995))
 	var rows []Row
 	rain := 0.0
 	for d := 0; d < s.Days; d++ {
@@ -147,6 +176,7 @@ func (s Scenario) Rows() []Row {
 			metered := pop*0.145 + 60*(temp-15) - 10*rainfall + 300*rng.NormFloat64()
 			estimate := metered*(0.9+0.08*rng.NormFloat64()) + 500*rng.NormFloat64()
 			billed := rollout*metered*(1+0.004*rng.NormFloat64()) + (1-rollout)*estimate
+			source, chlorine := s.source(srng, i, name, d, temp)
 			leak := 18*x.age + 260*(pressure-3.5)
 			demand := metered + leak + 150*rng.NormFloat64()
 			rows = append(rows, Row{
@@ -160,11 +190,34 @@ func (s Scenario) Rows() []Row {
 				PressureBar:            pressure,
 				MeteredVolumeM3:        round1(metered),
 				BilledVolumeM3:         round1(billed),
+				SupplySource:           source,
+				ChlorineMgL:            chlorine,
 				DemandM3:               round1(demand),
 			})
 		}
 	}
 	return rows
+}
+
+// source draws district i's supply source on day d and the chlorine dose
+// set for it: before DoseDay the works adjust the dose by hand, with the
+// temperature and from day to day; from DoseDay on it is the source's own.
+// Each district leans on one source (its index) and takes the others on
+// some days.
+func (s Scenario) source(rng *rand.Rand, i int, name string, d int, temp float64) (string, float64) {
+	k := i % len(Sources)
+	if u := rng.Float64(); u >= 0.55 {
+		k = (k + 1 + int((u-0.55)/0.225)) % len(Sources)
+	}
+	src, dose := Sources[k].Name, Sources[k].Dose
+	if name == s.NewSourceIn && d >= s.NewSourceDay && rng.Float64() < 0.35 {
+		src, dose = s.NewSource, newSourceDose
+	}
+	manual := 0.62 + 0.01*(temp-17) + 0.12*rng.NormFloat64()
+	if d < s.DoseDay {
+		return src, math.Round(manual*100) / 100
+	}
+	return src, dose
 }
 
 // WriteSQLite creates path (which must not exist) holding the scenario's
@@ -193,12 +246,14 @@ func (s Scenario) WriteSQLite(ctx context.Context, path string) error {
 		pressure_bar REAL,
 		metered_volume_m3 REAL,
 		billed_volume_m3 REAL,
+		supply_source TEXT NOT NULL,
+		chlorine_mg_l REAL,
 		demand_m3 REAL,
 		PRIMARY KEY (day, district)
 	)`); err != nil {
 		return fmt.Errorf("demo database %s: %w", path, err)
 	}
-	stmt, err := tx.PrepareContext(ctx, `INSERT INTO `+Table+` VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?)`)
+	stmt, err := tx.PrepareContext(ctx, `INSERT INTO `+Table+` VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)`)
 	if err != nil {
 		return fmt.Errorf("demo database %s: %w", path, err)
 	}
@@ -207,7 +262,7 @@ func (s Scenario) WriteSQLite(ctx context.Context, path string) error {
 		if _, err := stmt.ExecContext(ctx, r.Day.Format(time.DateOnly), r.District,
 			r.TemperatureC, r.RainfallMM, r.PopulationServed,
 			r.ResidentialConnections, r.CommercialConnections, r.TotalConnections,
-			r.PipeAgeYears, r.PressureBar, r.MeteredVolumeM3, r.BilledVolumeM3, r.DemandM3); err != nil {
+			r.PipeAgeYears, r.PressureBar, r.MeteredVolumeM3, r.BilledVolumeM3, r.SupplySource, r.ChlorineMgL, r.DemandM3); err != nil {
 			return fmt.Errorf("demo database %s: %w", path, err)
 		}
 	}

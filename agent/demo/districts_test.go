@@ -167,3 +167,55 @@ func TestQuietOutsideStories(t *testing.T) {
 		t.Errorf("pooled connections after the change: rank %d, want 3 of 4", rep.Rank)
 	}
 }
+
+// TestDoseStory checks the supply-source story with hand-built indicator
+// columns (the base level, reservoir, left out): before DoseDay the
+// chlorine dose varies within each source; from it, the dose is the
+// source's own, so the design loses one rank; the new source appears only
+// from NewSourceDay, in one district.
+func TestDoseStory(t *testing.T) {
+	s := Default
+	rows := s.Rows()
+	cols := []string{"blended", "groundwater", "desalinated", "chlorine_mg_l", "temperature_c"}
+	fit := func(from, to int) *diagnostics.Report {
+		t.Helper()
+		m := stream.NewMoments(cols)
+		b := stream.NewBlock(len(cols), 64, false)
+		for _, r := range rows {
+			d := int(r.Day.Sub(s.Start).Hours() / 24)
+			if d < from || d >= to {
+				continue
+			}
+			if r.SupplySource == s.NewSource && (d < s.NewSourceDay || r.District != s.NewSourceIn) {
+				t.Fatalf("day %d %s: source %s before its day or outside %s", d, r.District, r.SupplySource, s.NewSourceIn)
+			}
+			vals, _ := b.AppendRow()
+			for j, name := range cols[:3] {
+				vals[j] = 0
+				if r.SupplySource == name {
+					vals[j] = 1
+				}
+			}
+			vals[3], vals[4] = r.ChlorineMgL, r.TemperatureC
+			if b.Full() {
+				m.Add(b)
+				b.Reset()
+			}
+		}
+		m.Add(b)
+		rep, err := diagnostics.Analyze(m, nil, diagnostics.Options{Columns: cols})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return rep
+	}
+	if rep := fit(s.NewSourceDay-28, s.DoseDay); rep.Rank != 5 {
+		t.Errorf("before the dose change: rank %d, want 5 (the desalinated column is empty)", rep.Rank)
+	}
+	if rep := fit(s.DoseDay-28, s.DoseDay); !(vifOf(t, rep, "chlorine_mg_l") < 5) {
+		t.Errorf("before the dose change: chlorine VIF %.3g, want under 5", vifOf(t, rep, "chlorine_mg_l"))
+	}
+	if rep := fit(s.NewSourceDay, s.Days); rep.Rank != 5 {
+		t.Errorf("after the dose change, with the new source: rank %d of 6, want 5 (chlorine fixed by source)", rep.Rank)
+	}
+}

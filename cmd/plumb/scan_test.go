@@ -133,12 +133,12 @@ func TestScanSampleJSONContract(t *testing.T) {
 	if s.RowsUsed != int64(demo.Default.Days*len(demo.Default.Districts)) || s.RowsDropped != 0 {
 		t.Errorf("rows used %d dropped %d", s.RowsUsed, s.RowsDropped)
 	}
-	// day and district are text: skipped and listed.
-	if len(s.Skipped) != 2 {
-		t.Errorf("skipped %v, want day and district", s.Skipped)
+	// day, district and supply_source are text: skipped and listed.
+	if len(s.Skipped) != 3 {
+		t.Errorf("skipped %v, want day, district and supply_source", s.Skipped)
 	}
-	if len(s.Columns) != 10 {
-		t.Fatalf("%d columns, want the 10 numeric features", len(s.Columns))
+	if len(s.Columns) != 11 {
+		t.Fatalf("%d columns, want the 11 numeric features", len(s.Columns))
 	}
 	vif := map[string]float64{}
 	for _, c := range s.Columns {
@@ -161,13 +161,13 @@ func TestScanSampleJSONContract(t *testing.T) {
 	if vif["rainfall_mm"] > 5 {
 		t.Errorf("rainfall VIF %v: rainfall is generated independently", vif["rainfall_mm"])
 	}
-	if s.Rank != 11 {
-		t.Errorf("rank %d, want 11 (full rank: the total is exact only from day %d)", s.Rank, demo.Default.ChangeDay)
+	if s.Rank != 12 {
+		t.Errorf("rank %d, want 12 (full rank: the total is exact only from day %d)", s.Rank, demo.Default.ChangeDay)
 	}
-	if len(s.ConditionIndices) != 11 || s.ConditionNumber < s.CenteredConditionNumber {
+	if len(s.ConditionIndices) != 12 || s.ConditionNumber < s.CenteredConditionNumber {
 		t.Errorf("condition indices %v, number %v, centered %v", s.ConditionIndices, s.ConditionNumber, s.CenteredConditionNumber)
 	}
-	if s.Regression == nil || len(s.Regression.Coefficients) != 11 || s.Regression.Coefficients[0].Name != "intercept" || !s.Regression.Coefficients[0].IsIntercept {
+	if s.Regression == nil || len(s.Regression.Coefficients) != 12 || s.Regression.Coefficients[0].Name != "intercept" || !s.Regression.Coefficients[0].IsIntercept {
 		t.Fatalf("regression %+v", s.Regression)
 	}
 }
@@ -302,7 +302,7 @@ func TestScanRegressionPrintout(t *testing.T) {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
 	for _, want := range []string{
-		"Least-squares fit of demand_m3 on 10 columns and an intercept, 480 rows: R² ",
+		"Least-squares fit of demand_m3 on 11 columns and an intercept, 480 rows: R² ",
 		", residual SD ",
 		"  coefficient ", " estimate ", " in units of ", " standard error ", " estimate ÷ SE\n",
 		"demand_m3 (all columns 0)",
