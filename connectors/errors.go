@@ -19,6 +19,9 @@ var (
 	// ErrTooManySegments: the segment column has more distinct values than
 	// the request allows.
 	ErrTooManySegments = errors.New("too many segments")
+	// ErrTooManyLevels: a factor (text or boolean column) has more distinct
+	// values than the request allows.
+	ErrTooManyLevels = errors.New("too many levels")
 	// ErrUnsupported: the request asks for something this source cannot do.
 	ErrUnsupported = errors.New("unsupported")
 	// ErrInsufficient: the scan produced too little data to diagnose.

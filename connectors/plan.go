@@ -21,7 +21,20 @@ type Plan struct {
 	Bucket      string
 	Location    *time.Location // never nil
 	MaxSegments int            // never 0
+	MaxLevels   int            // never 0
 	Extended    bool           // QR factors in double-double (Request.Extended)
+}
+
+// Factors returns the indices in Values of the factors (text and boolean
+// columns).
+func (p *Plan) Factors() []int {
+	var idx []int
+	for i, c := range p.Values {
+		if c.IsFactor() {
+			idx = append(idx, i)
+		}
+	}
+	return idx
 }
 
 // Names returns the names of the accumulated columns.
@@ -38,13 +51,19 @@ var Buckets = []string{"hour", "day", "week", "month"}
 
 // Resolve matches a request against the columns a source described.
 // Without req.Columns every numeric or boolean column is used except the
-// time, segment and weight columns, and the others are listed in Skipped.
+// time, segment and weight columns, and the others are listed in Skipped;
+// a text column is used, as a factor, when req.Columns names it, and so is
+// a boolean column wherever it is used.
 // timeKinds are the kinds this source can read as a time column.
 //
 // Errors name the source and the column, list what is available, and wrap
 // ErrNotFound, ErrColumnType or ErrUnsupported.
 func Resolve(source string, cols []Column, req Request, timeKinds ...Kind) (*Plan, error) {
-	p := &Plan{Source: source, Bucket: req.Bucket, Location: req.Location, MaxSegments: req.MaxSegments, Extended: req.Extended}
+	p := &Plan{Source: source, Bucket: req.Bucket, Location: req.Location, MaxSegments: req.MaxSegments,
+		MaxLevels: req.MaxLevels, Extended: req.Extended}
+	if p.MaxLevels <= 0 {
+		p.MaxLevels = DefaultMaxLevels
+	}
 	if p.Location == nil {
 		p.Location = time.UTC
 	}
@@ -134,8 +153,8 @@ func Resolve(source string, cols []Column, req Request, timeKinds ...Kind) (*Pla
 		case c.Kind == KindTime:
 			return nil, fmt.Errorf("%s: column %q is a time column (type %s); use it with --time-column, or pick numeric columns: %w",
 				source, c.Name, c.Type, ErrColumnType)
-		case !numeric(*c):
-			return nil, fmt.Errorf("%s: column %q is not numeric (type %s); pick numeric columns (numeric here: %s): %w",
+		case !numeric(*c) && c.Kind != KindText:
+			return nil, fmt.Errorf("%s: column %q has type %s, which plumb cannot use; pick numeric, text or boolean columns (numeric here: %s): %w",
 				source, c.Name, c.Type, numericNames(cols), ErrColumnType)
 		}
 		p.Values = append(p.Values, *c)
@@ -151,7 +170,7 @@ func Resolve(source string, cols []Column, req Request, timeKinds ...Kind) (*Pla
 // the source's own Resolve at scan time. The caller keeps the target out
 // of req.Columns.
 func Choose(source string, cols []Column, req Request, target string) (*Plan, error) {
-	p, err := Resolve(source, cols, req, KindTime, KindNumeric, KindBool, KindOther)
+	p, err := Resolve(source, cols, req, KindTime, KindNumeric, KindBool, KindOther, KindText)
 	if err != nil || target == "" {
 		return p, err
 	}
@@ -159,7 +178,11 @@ func Choose(source string, cols []Column, req Request, target string) (*Plan, er
 	if err != nil {
 		return nil, fmt.Errorf("target: %w", err)
 	}
-	if c.Kind != KindNumeric && c.Kind != KindBool {
+	if c.IsFactor() {
+		return nil, fmt.Errorf("target: column %q of %s is categorical (type %s): plumb fits an ordinary least-squares regression, so the target must be numeric (for a 0/1 target, cast it to an integer in --query): %w",
+			c.Name, source, c.Type, ErrColumnType)
+	}
+	if c.Kind != KindNumeric {
 		return nil, fmt.Errorf("target: column %q of %s has type %s; want a numeric column: %w", c.Name, source, c.Type, ErrColumnType)
 	}
 	p.Values = slices.DeleteFunc(p.Values, func(v Column) bool { return v.Name == c.Name })

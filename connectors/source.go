@@ -22,10 +22,14 @@ import (
 type Kind int
 
 const (
-	KindOther   Kind = iota // not usable (text, json, bytea, …)
+	KindOther   Kind = iota // not usable (json, bytea, blobs, …)
 	KindNumeric             // integers, floats, numeric/decimal
-	KindBool                // booleans, read as 0/1
+	KindBool                // booleans: a factor with levels "false" and "true"
 	KindTime                // date, timestamp, timestamptz, or SQLite time text / unix seconds
+	// KindText: text, varchar, char(n), name, citext and enum types in
+	// PostgreSQL; TEXT affinity (or text values in a column of no declared
+	// type) in SQLite. A factor when named in Request.Columns.
+	KindText
 )
 
 func (k Kind) String() string {
@@ -36,6 +40,8 @@ func (k Kind) String() string {
 		return "boolean"
 	case KindTime:
 		return "time"
+	case KindText:
+		return "text"
 	}
 	return "other"
 }
@@ -45,7 +51,36 @@ type Column struct {
 	Name string
 	Type string // the database's own type name, e.g. "double precision", "INTEGER"
 	Kind Kind
+	// Levels is, for a text column left out of a scan (Result.Skipped),
+	// its number of distinct non-NULL values where a source could count
+	// them cheaply, up to Request.MaxLevels+1 (LevelsMore: the count
+	// stopped there); 0 when not counted.
+	Levels     int
+	LevelsMore bool
 }
+
+// IsFactor reports whether the column, when accumulated, is a categorical
+// factor: a text or boolean column, expanded into one indicator column per
+// level (see Factor).
+func (c Column) IsFactor() bool { return c.Kind == KindText || c.Kind == KindBool }
+
+// Factor is a categorical column of a result. It is accumulated as one
+// indicator (0/1) column per level, named IndicatorName(Name, level), in
+// the factor's place among the columns, its levels in byte order; every
+// level seen is kept (no base level is dropped: that is the analysis's
+// choice).
+type Factor struct {
+	Name   string
+	Levels []string // sorted; every level seen in the result
+	Null   int64    // rows dropped because this column was NULL
+}
+
+// IndicatorName is the name of the indicator column of a factor's level:
+// factor[level].
+func IndicatorName(factor, level string) string { return factor + "[" + level + "]" }
+
+// DefaultMaxLevels bounds the distinct values (levels) of a factor.
+const DefaultMaxLevels = 50
 
 // Request says what to read.
 type Request struct {
@@ -60,6 +95,10 @@ type Request struct {
 	Location    *time.Location // bucket boundaries; nil means UTC
 	Segment     string         // optional segment column: one accumulator per value
 	MaxSegments int            // bound on distinct segments; 0 means DefaultMaxSegments
+	// MaxLevels bounds the levels of each factor (text and boolean
+	// columns); 0 means DefaultMaxLevels. A factor with more is an error
+	// wrapping ErrTooManyLevels.
+	MaxLevels int
 
 	SamplePct float64 // 0 or 100 means every row
 	Seed      int64
@@ -94,7 +133,11 @@ type Group struct {
 
 // Result is what a scan produced.
 type Result struct {
-	Columns []string // the accumulated columns, in request order
+	// Columns are the accumulated columns in request order, each factor
+	// expanded in its place into its indicator columns (IndicatorName), one
+	// per level of Factors. Every group holds all of them.
+	Columns []string
+	Factors []Factor // the factors among the requested columns, in request order
 	Groups  []Group  // sorted by bucket, then segment
 	Read    int64    // rows read from the database
 	Sampled bool     // rows were sampled (SamplePct)
@@ -107,9 +150,11 @@ type Result struct {
 }
 
 // Merged returns one group holding all groups merged (the whole table).
+// Groups over fewer columns (fewer levels of a factor) are widened to
+// Columns first (Align).
 func (r *Result) Merged() Group {
 	g := Group{Moments: stream.NewMoments(r.Columns)}
-	for _, x := range r.Groups {
+	for _, x := range Align(r.Groups, r.Columns) {
 		g.Moments.Merge(x.Moments)
 		if x.QR != nil {
 			if g.QR == nil {

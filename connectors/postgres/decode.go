@@ -109,6 +109,14 @@ func (d *decoder) row(f [][]byte) error {
 			nulls[j] = true
 			continue
 		}
+		if lay.factor != nil && lay.factor[j] {
+			code, err := d.g.Level(j, b)
+			if err != nil {
+				return d.fail(fmt.Errorf("%s: %w", d.source, err))
+			}
+			vals[j] = code
+			continue
+		}
 		if len(b) != 8 {
 			return d.fail(fmt.Errorf("%s: column %q: %w", d.source, d.plan.Values[j].Name, errLayout))
 		}

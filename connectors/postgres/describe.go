@@ -114,8 +114,12 @@ func (s *Source) describeTable(ctx context.Context, tx pgx.Tx, table string) (*t
 	t.oid = *oid
 	t.relkind = kind
 	t.source = "table " + qualified.Quoted()
+	// Text: the base type's category is string (text, varchar, char(n),
+	// name, citext) or enum.
 	rows, err := tx.Query(ctx, `SELECT a.attname, format_type(a.atttypid, a.atttypmod),
-			CASE WHEN t.typtype = 'd' THEN t.typbasetype ELSE a.atttypid END
+			CASE WHEN t.typtype = 'd' THEN t.typbasetype ELSE a.atttypid END,
+			coalesce((SELECT b.typcategory IN ('S', 'E') FROM pg_type b
+				WHERE b.oid = CASE WHEN t.typtype = 'd' THEN t.typbasetype ELSE a.atttypid END), false)
 		FROM pg_attribute a JOIN pg_type t ON t.oid = a.atttypid
 		WHERE a.attrelid = $1 AND a.attnum > 0 AND NOT a.attisdropped
 		ORDER BY a.attnum`, t.oid)
@@ -125,10 +129,14 @@ func (s *Source) describeTable(ctx context.Context, tx pgx.Tx, table string) (*t
 	for rows.Next() {
 		var c connectors.Column
 		var base uint32
-		if err := rows.Scan(&c.Name, &c.Type, &base); err != nil {
+		var text bool
+		if err := rows.Scan(&c.Name, &c.Type, &base, &text); err != nil {
 			return nil, s.wrap(err, t.source)
 		}
 		c.Kind = kindOf(base)
+		if text {
+			c.Kind = connectors.KindText
+		}
 		t.base[c.Name] = base
 		t.cols = append(t.cols, c)
 	}
@@ -193,12 +201,19 @@ func (s *Source) describeQuery(ctx context.Context, tx pgx.Tx, query string) (*t
 		oids[i] = f.DataTypeOID
 	}
 	var names []string
-	if err := tx.QueryRow(ctx, `SELECT array_agg(format_type(o, NULL) ORDER BY i) FROM unnest($1::oid[]) WITH ORDINALITY AS u(o, i)`,
-		oids).Scan(&names); err != nil {
+	var text []bool
+	if err := tx.QueryRow(ctx, `SELECT array_agg(format_type(o, NULL) ORDER BY i),
+			array_agg(coalesce((SELECT b.typcategory IN ('S', 'E') FROM pg_type t JOIN pg_type b
+				ON b.oid = CASE WHEN t.typtype = 'd' THEN t.typbasetype ELSE t.oid END WHERE t.oid = o), false) ORDER BY i)
+		FROM unnest($1::oid[]) WITH ORDINALITY AS u(o, i)`,
+		oids).Scan(&names, &text); err != nil {
 		return nil, s.wrap(err, "query")
 	}
 	for i, f := range sd.Fields {
 		c := connectors.Column{Name: f.Name, Type: names[i], Kind: kindOf(f.DataTypeOID)}
+		if text[i] {
+			c.Kind = connectors.KindText
+		}
 		t.base[c.Name] = f.DataTypeOID
 		t.cols = append(t.cols, c)
 	}

@@ -29,6 +29,8 @@ func TestBadInputs(t *testing.T) {
 		`CREATE SCHEMA ops`,
 		`CREATE TABLE ops.pumps (flow numeric(30,20), head float4, running boolean, label text)`,
 		`INSERT INTO ops.pumps VALUES (1.25, 3, true, 'a'), (2.123456789012345678, 4, false, 'b'), (3, 5, true, 'c')`,
+		`ANALYZE ops.pumps`,
+		`CREATE TABLE blobs (a float8, raw bytea)`,
 	)
 	for _, pd := range []bool{false, true} {
 		src := openPG(t, u, connectors.Options{Pushdown: pd})
@@ -44,8 +46,10 @@ func TestBadInputs(t *testing.T) {
 			{"missing schema-qualified table", connectors.Request{Table: "ops.pump"}, connectors.ErrNotFound, []string{`"ops"."pump"`, "pumps"}, false},
 			{"missing column", connectors.Request{Table: "district_daily", Columns: []string{"temperature", "humidity"}},
 				connectors.ErrNotFound, []string{`"humidity"`, "rainfall", "billed_volume"}, false},
-			{"text column", connectors.Request{Table: "district_daily", Columns: []string{"temperature", "district"}},
-				connectors.ErrColumnType, []string{`"district"`, "type text"}, false},
+			{"bytea column", connectors.Request{Table: "blobs", Columns: []string{"a", "raw"}},
+				connectors.ErrColumnType, []string{`"raw"`, "bytea"}, false},
+			{"too many levels", connectors.Request{Table: "district_daily", Columns: []string{"temperature", "district"}, MaxLevels: 2},
+				connectors.ErrTooManyLevels, []string{`"district"`, "more than 2", "3 levels had been seen", "district_daily"}, false},
 			{"date column as a value", connectors.Request{Table: "district_daily", Columns: []string{"day"}},
 				connectors.ErrColumnType, []string{`"day"`, "date", "--time-column"}, false},
 			{"quotes and semicolons in a missing name", connectors.Request{Table: `"x""; DROP TABLE few; --"`},
@@ -58,6 +62,10 @@ func TestBadInputs(t *testing.T) {
 			{"all-NULL column", connectors.Request{Table: "blank"}, connectors.ErrInsufficient, []string{`"b"`, "every row"}, true},
 			{"fewer rows than columns + 1", connectors.Request{Table: "few"}, connectors.ErrInsufficient, []string{"3 complete rows", "at least 4"}, true},
 			{"sample of a query", connectors.Request{Query: "SELECT a FROM few", SamplePct: 10}, connectors.ErrUnsupported, []string{"TABLESAMPLE"}, false},
+		}
+		if pd {
+			// Factors are not pushed down (yet): a clear refusal.
+			cases[4].is, cases[4].words = connectors.ErrUnsupported, []string{`"district"`, "not pushed down", "without --pushdown"}
 		}
 		for _, c := range cases {
 			t.Run(fmt.Sprintf("pushdown=%v/%s", pd, c.name), func(t *testing.T) {
@@ -89,21 +97,36 @@ func TestBadInputs(t *testing.T) {
 			t.Errorf("odd table: n=%d columns %v", m.N(), m.Names())
 		}
 		// numeric, float4 and boolean columns; the numeric with 19
-		// significant digits is counted as inexact; text is skipped.
+		// significant digits is counted as inexact; text is skipped, with
+		// its levels counted from the statistics; the boolean is a
+		// factor, which pushdown refuses.
 		res, err = src.Scan(context.Background(), connectors.Request{Table: "ops.pumps"})
+		if pd {
+			if !errors.Is(err, connectors.ErrUnsupported) || !strings.Contains(fmt.Sprint(err), `"running"`) {
+				t.Errorf("pumps with pushdown: %v, want the boolean factor refused", err)
+			}
+			continue
+		}
 		if err != nil {
 			t.Fatal(err)
 		}
 		m := res.Merged().Moments
-		if strings.Join(res.Columns, ",") != "flow,head,running" || len(res.Skipped) != 1 || res.Skipped[0].Name != "label" {
+		if strings.Join(res.Columns, ",") != "flow,head,running[false],running[true]" || len(res.Skipped) != 1 || res.Skipped[0].Name != "label" {
 			t.Errorf("pumps: columns %v skipped %v", res.Columns, res.Skipped)
 		}
-		if res.Inexact[0] != 1 || res.Inexact[1] != 0 {
-			t.Errorf("pumps: inexact %v, want [1 0 0]", res.Inexact)
+		if res.Skipped[0].Levels != 3 || res.Skipped[0].LevelsMore {
+			t.Errorf("pumps: label has %d levels (more %v), want 3", res.Skipped[0].Levels, res.Skipped[0].LevelsMore)
 		}
-		// Worked by hand: running is 1, 0, 1 → mean 2/3; head 3, 4, 5 → mean 4.
-		if math := m.Mean(2); math < 0.6666666666666665 || math > 0.6666666666666668 || m.Mean(1) != 4 {
-			t.Errorf("pumps: means %v %v", m.Mean(1), m.Mean(2))
+		if len(res.Factors) != 1 || res.Factors[0].Name != "running" || strings.Join(res.Factors[0].Levels, ",") != "false,true" {
+			t.Errorf("pumps: factors %+v", res.Factors)
+		}
+		if len(res.Inexact) != 4 || res.Inexact[0] != 1 || res.Inexact[1] != 0 {
+			t.Errorf("pumps: inexact %v, want [1 0 0 0]", res.Inexact)
+		}
+		// Worked by hand: running is true, false, true → the true
+		// indicator's mean is 2/3; head 3, 4, 5 → mean 4.
+		if math := m.Mean(3); math < 0.6666666666666665 || math > 0.6666666666666668 || m.Mean(1) != 4 {
+			t.Errorf("pumps: means %v %v", m.Mean(1), m.Mean(3))
 		}
 	}
 	ctx := context.Background()

@@ -89,20 +89,34 @@ func (s *Source) Scan(ctx context.Context, req connectors.Request) (*connectors.
 	}
 	prog.flush()
 	res := &connectors.Result{
-		Columns:    plan.Names(),
 		Sampled:    req.SamplePct > 0 && req.SamplePct < 100,
-		Inexact:    make([]int64, len(plan.Values)),
 		Skipped:    plan.Skipped,
 		Partitions: len(decs),
 	}
-	parts := make([][]connectors.Group, len(decs))
+	// Partitions may have seen different levels: every group is widened to
+	// the union.
+	facs := make([][]connectors.Factor, len(decs))
+	inexact := make([]int64, len(plan.Values))
 	for i, d := range decs {
-		parts[i] = d.g.Groups()
+		facs[i] = d.g.Factors()
 		res.Read += d.read
 		res.NoTime += d.noTime
 		for j, n := range d.inexact {
-			res.Inexact[j] += n
+			inexact[j] += n
 		}
+	}
+	res.Factors = connectors.UnionFactors(facs...)
+	res.Columns = connectors.ExpandNames(plan.Names(), res.Factors)
+	res.Inexact = connectors.SpreadCounts(plan, res.Factors, inexact)
+	if err := connectors.CheckLevels(t.source, res); err != nil {
+		return nil, err
+	}
+	parts := make([][]connectors.Group, len(decs))
+	for i, d := range decs {
+		parts[i] = d.g.GroupsOver(res.Columns)
+	}
+	if err := s.countLevels(ctx, tx, t, plan); err != nil {
+		return nil, err
 	}
 	if len(parts) == 1 {
 		res.Groups = parts[0]
@@ -122,6 +136,11 @@ func (s *Source) prepare(ctx context.Context, tx pgx.Tx, req connectors.Request)
 	plan, err := connectors.Resolve(t.source, t.cols, req, connectors.KindTime)
 	if err != nil {
 		return nil, nil, stmt{}, err
+	}
+	if f := plan.Factors(); s.opts.Pushdown && len(f) > 0 {
+		c := plan.Values[f[0]]
+		return nil, nil, stmt{}, fmt.Errorf("%s: column %q is categorical (type %s): factor columns are not pushed down yet; scan without --pushdown: %w",
+			t.source, c.Name, c.Type, connectors.ErrUnsupported)
 	}
 	where, err := connectors.CheckWhere(req.Where, connectors.Postgres)
 	if err != nil {
@@ -338,4 +357,49 @@ func (s *Source) estimate(ctx context.Context, tx pgx.Tx, t *target, req connect
 		est *= req.SamplePct / 100
 	}
 	return int64(est), nil
+}
+
+// countLevels fills in the number of distinct values of the text columns
+// left out of the scan from the planner's statistics (pg_stats.n_distinct,
+// scaled by the row estimate when it is a fraction), up to one more than
+// the limit on levels; columns without statistics, and queries, keep 0.
+func (s *Source) countLevels(ctx context.Context, tx pgx.Tx, t *target, plan *connectors.Plan) error {
+	if t.table == nil {
+		return nil
+	}
+	var names []string
+	for _, c := range plan.Skipped {
+		if c.Kind == connectors.KindText {
+			names = append(names, c.Name)
+		}
+	}
+	if len(names) == 0 {
+		return nil
+	}
+	rows, err := tx.Query(ctx, `SELECT s.attname::text, CASE WHEN s.n_distinct >= 0 THEN s.n_distinct
+			ELSE -s.n_distinct * greatest(c.reltuples, 0) END
+		FROM pg_stats s JOIN pg_class c ON c.oid = $1
+		WHERE s.schemaname = $2 AND s.tablename = $3 AND s.attname::text = ANY($4) AND NOT s.inherited`,
+		t.oid, t.table.Schema, t.table.Table, names)
+	if err != nil {
+		return s.wrap(err, t.source)
+	}
+	defer rows.Close()
+	for rows.Next() {
+		var name string
+		var n float64
+		if err := rows.Scan(&name, &n); err != nil {
+			return s.wrap(err, t.source)
+		}
+		for i := range plan.Skipped {
+			if c := &plan.Skipped[i]; c.Name == name && n > 0 {
+				c.Levels = int(min(math.Round(n), float64(plan.MaxLevels+1)))
+				c.LevelsMore = n > float64(plan.MaxLevels)
+			}
+		}
+	}
+	if err := rows.Err(); err != nil {
+		return s.wrap(err, t.source)
+	}
+	return nil
 }

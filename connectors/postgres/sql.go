@@ -14,9 +14,10 @@ import (
 type layout struct {
 	iTime, iSeg, iWeight int // -1 when absent
 	iVal0                int
-	p                    int   // value columns
-	flags                []int // value index of each inexact flag, after the values
-	n                    int   // fields in a row
+	p                    int    // value columns
+	factor               []bool // per value column: a factor, read as text; nil without factors
+	flags                []int  // value index of each inexact flag, after the values
+	n                    int    // fields in a row
 }
 
 func quoteLiteral(s string) string { return "'" + strings.ReplaceAll(s, "'", "''") + "'" }
@@ -163,10 +164,25 @@ func streamList(t *target, plan *connectors.Plan) ([]string, layout, error) {
 	}
 	lay.iVal0 = len(list)
 	for _, c := range plan.Values {
+		if c.IsFactor() {
+			// Levels as text: an enum's label, a boolean's true or false,
+			// char(n) without its padding.
+			list = append(list, connectors.QuoteIdent(c.Name)+"::text")
+			continue
+		}
 		list = append(list, valueExpr(c.Name, t.base[c.Name]))
 	}
 	lay.p = len(plan.Values)
+	for _, j := range plan.Factors() {
+		if lay.factor == nil {
+			lay.factor = make([]bool, lay.p)
+		}
+		lay.factor[j] = true
+	}
 	for j, c := range plan.Values {
+		if c.IsFactor() {
+			continue
+		}
 		if e := inexactExpr(c.Name, t.base[c.Name]); e != "" {
 			lay.flags = append(lay.flags, j)
 			list = append(list, e)

@@ -184,6 +184,8 @@ func classKind(class string) connectors.Kind {
 	switch class {
 	case "integer", "real":
 		return connectors.KindNumeric
+	case "text":
+		return connectors.KindText
 	}
 	return connectors.KindOther
 }
@@ -204,7 +206,9 @@ func kindOf(decl string) (k connectors.Kind, known bool) {
 		return connectors.KindTime, true
 	case strings.Contains(u, "INT"):
 		return connectors.KindNumeric, true
-	case strings.Contains(u, "CHAR"), strings.Contains(u, "CLOB"), strings.Contains(u, "TEXT"), strings.Contains(u, "BLOB"):
+	case strings.Contains(u, "CHAR"), strings.Contains(u, "CLOB"), strings.Contains(u, "TEXT"):
+		return connectors.KindText, true
+	case strings.Contains(u, "BLOB"):
 		return connectors.KindOther, true
 	case strings.Contains(u, "REAL"), strings.Contains(u, "FLOA"), strings.Contains(u, "DOUB"),
 		strings.Contains(u, "NUM"), strings.Contains(u, "DEC"):
@@ -281,6 +285,8 @@ func (s *Source) describeQuery(ctx context.Context, query string) (*target, erro
 			switch v.(type) {
 			case int64, float64:
 				t.cols[i].Kind = connectors.KindNumeric
+			case string:
+				t.cols[i].Kind = connectors.KindText
 			default:
 				t.cols[i].Kind = connectors.KindOther
 			}

@@ -32,7 +32,7 @@ func (s *Source) Scan(ctx context.Context, req connectors.Request) (*connectors.
 	if err != nil {
 		return nil, err
 	}
-	plan, err := connectors.Resolve(t.source, t.cols, req, connectors.KindTime, connectors.KindNumeric, connectors.KindOther)
+	plan, err := connectors.Resolve(t.source, t.cols, req, connectors.KindTime, connectors.KindNumeric, connectors.KindOther, connectors.KindText)
 	if err != nil {
 		return nil, err
 	}
@@ -95,16 +95,44 @@ func (s *Source) Scan(ctx context.Context, req connectors.Request) (*connectors.
 		req.Progress(sc.read, total)
 	}
 	res := &connectors.Result{
-		Columns:    plan.Names(),
+		Columns:    sc.g.Columns(),
+		Factors:    sc.g.Factors(),
 		Groups:     sc.g.Groups(),
 		Read:       sc.read,
 		Sampled:    sampled,
-		Inexact:    sc.inexact,
+		Inexact:    sc.g.Spread(sc.inexact),
 		Skipped:    plan.Skipped,
 		NoTime:     sc.noTime,
 		Partitions: 1,
 	}
+	if err := connectors.CheckLevels(t.source, res); err != nil {
+		return nil, err
+	}
+	if err := s.countLevels(ctx, t, plan); err != nil {
+		return nil, err
+	}
 	return res, nil
+}
+
+// countLevels counts the distinct values of the text columns left out of
+// the scan, up to one more than the limit on levels, for the hint that
+// naming them uses them as factors.
+func (s *Source) countLevels(ctx context.Context, t *target, plan *connectors.Plan) error {
+	for i := range plan.Skipped {
+		c := &plan.Skipped[i]
+		if c.Kind != connectors.KindText {
+			continue
+		}
+		q := connectors.QuoteIdent(c.Name)
+		var n int
+		err := s.db.QueryRowContext(ctx, "SELECT count(*) FROM (SELECT DISTINCT "+q+" FROM "+t.from+" WHERE "+q+
+			" IS NOT NULL LIMIT "+strconv.Itoa(plan.MaxLevels+1)+")").Scan(&n)
+		if err != nil {
+			return s.wrap(err)
+		}
+		c.Levels, c.LevelsMore = n, n > plan.MaxLevels
+	}
+	return nil
 }
 
 // scanner decodes rows of the scan statement into the grouper.
@@ -124,6 +152,8 @@ type scanner struct {
 	bucket  *connectors.Bucketer
 	tp      connectors.TimeParser
 	segBuf  []byte
+	factor  []bool // per value column: a factor (text or boolean)
+	lvBuf   []byte
 	read    int64
 	noTime  int64
 	inexact []int64
@@ -155,6 +185,12 @@ func newScanner(t *target, plan *connectors.Plan, req connectors.Request, sample
 	sc.iVal0 = len(sc.exprs)
 	for _, c := range plan.Values {
 		add(connectors.QuoteIdent(c.Name))
+	}
+	for _, j := range plan.Factors() {
+		if sc.factor == nil {
+			sc.factor = make([]bool, len(plan.Values))
+		}
+		sc.factor[j] = true
 	}
 	if sampled {
 		sc.sample = true
@@ -259,6 +295,12 @@ func (sc *scanner) row(row []driver.Value) error {
 		sc.g.SetWeight(w)
 	}
 	for j, v := range row[sc.iVal0:] {
+		if sc.factor != nil && sc.factor[j] {
+			if err := sc.level(row, j, v, vals, nulls); err != nil {
+				return err
+			}
+			continue
+		}
 		switch x := v.(type) {
 		case float64:
 			vals[j] = x
@@ -274,6 +316,62 @@ func (sc *scanner) row(row []driver.Value) error {
 			return sc.badValue(row, &sc.plan.Values[j], err)
 		}
 	}
+	return nil
+}
+
+// level codes the value of factor column j.
+func (sc *scanner) level(row []driver.Value, j int, v driver.Value, vals []float64, nulls []bool) error {
+	c := &sc.plan.Values[j]
+	var code float64
+	var err error
+	if c.Kind == connectors.KindBool {
+		// Booleans are stored as integers 0 and 1 (TRUE and FALSE are
+		// those integers), or as the text true and false.
+		lv := ""
+		switch x := v.(type) {
+		case nil:
+			nulls[j] = true
+			return nil
+		case int64:
+			if x == 0 || x == 1 {
+				lv = strconv.FormatBool(x == 1)
+			}
+		case float64:
+			if x == 0 || x == 1 {
+				lv = strconv.FormatBool(x == 1)
+			}
+		case string:
+			if x == "true" || x == "false" {
+				lv = x
+			}
+		}
+		if lv == "" {
+			return sc.badValue(row, c, fmt.Errorf("%v, which is not a boolean (0, 1, true or false)", v))
+		}
+		code, err = sc.g.LevelString(j, lv)
+	} else {
+		switch x := v.(type) {
+		case nil:
+			nulls[j] = true
+			return nil
+		case string:
+			code, err = sc.g.LevelString(j, x)
+		case []byte:
+			code, err = sc.g.Level(j, x)
+		case int64:
+			sc.lvBuf = strconv.AppendInt(sc.lvBuf[:0], x, 10)
+			code, err = sc.g.Level(j, sc.lvBuf)
+		case float64:
+			sc.lvBuf = strconv.AppendFloat(sc.lvBuf[:0], x, 'g', -1, 64)
+			code, err = sc.g.Level(j, sc.lvBuf)
+		default:
+			return sc.badValue(row, c, fmt.Errorf("a %T", v))
+		}
+	}
+	if err != nil {
+		return fmt.Errorf("%s: %w", sc.t.source, err)
+	}
+	vals[j] = code
 	return nil
 }
 

@@ -102,9 +102,10 @@ func TestDescribe(t *testing.T) {
 	}
 	want := map[string]connectors.Kind{
 		"a": connectors.KindNumeric, "b": connectors.KindNumeric, "c": connectors.KindNumeric,
-		"d": connectors.KindBool, "e": connectors.KindOther, "f": connectors.KindOther,
-		"g": connectors.KindTime, "h": connectors.KindOther, "i": connectors.KindNumeric,
-		"j": connectors.KindNumeric, "k": connectors.KindOther,
+		"d": connectors.KindBool, "e": connectors.KindText, "f": connectors.KindOther,
+		"g": connectors.KindTime, "h": connectors.KindText, "i": connectors.KindNumeric,
+		// JSON has numeric affinity by SQLite's rules, but holds text.
+		"j": connectors.KindNumeric, "k": connectors.KindText,
 	}
 	if len(cols) != len(want) {
 		t.Fatalf("%d columns, want %d", len(cols), len(want))
@@ -118,15 +119,22 @@ func TestDescribe(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if got := strings.Join(res.Columns, ","); got != "a,b,c,d,i,j" {
-		t.Errorf("discovered %s, want a,b,c,d,i,j", got)
+	// The boolean is a factor; its one level seen is true.
+	if got := strings.Join(res.Columns, ","); got != "a,b,c,d[true],i,j" {
+		t.Errorf("discovered %s, want a,b,c,d[true],i,j", got)
+	}
+	// The text columns left out are listed with their levels counted.
+	for _, c := range res.Skipped {
+		if c.Kind == connectors.KindText && (c.Levels != 1 || c.LevelsMore) {
+			t.Errorf("skipped %s: %d levels (more %v), want 1", c.Name, c.Levels, c.LevelsMore)
+		}
 	}
 	qcols, err := src.Describe(context.Background(), connectors.Request{Query: "SELECT a + b AS s, e || 'z' AS t FROM kinds"})
 	if err != nil {
 		t.Fatal(err)
 	}
-	if qcols[0].Kind != connectors.KindNumeric || qcols[1].Kind != connectors.KindOther {
-		t.Errorf("query columns %+v: want s numeric and t other", qcols)
+	if qcols[0].Kind != connectors.KindNumeric || qcols[1].Kind != connectors.KindText {
+		t.Errorf("query columns %+v: want s numeric and t text", qcols)
 	}
 }
 
@@ -139,8 +147,8 @@ func mustExec(t *testing.T, db *sql.DB, q string, args ...any) {
 
 func TestBadInputs(t *testing.T) {
 	path, _, w := newDB(t, 50)
-	mustExec(t, w, `CREATE TABLE gauges (reading REAL, note TEXT, station INTEGER)`)
-	mustExec(t, w, `INSERT INTO gauges VALUES (1.5, 'ok', 1), (2.5, 'ok', 2), ('n/a', 'broken', 3), (3.5, 'ok', 4)`)
+	mustExec(t, w, `CREATE TABLE gauges (reading REAL, note TEXT, station INTEGER, raw BLOB)`)
+	mustExec(t, w, `INSERT INTO gauges VALUES (1.5, 'ok', 1, x'01'), (2.5, 'ok', 2, x'02'), ('n/a', 'broken', 3, x'03'), (3.5, 'ok', 4, x'04')`)
 	mustExec(t, w, `CREATE TABLE empty (a REAL, b REAL)`)
 	mustExec(t, w, `CREATE TABLE blank (a REAL, b REAL)`)
 	mustExec(t, w, `INSERT INTO blank VALUES (1, NULL), (2, NULL), (3, NULL)`)
@@ -163,8 +171,10 @@ func TestBadInputs(t *testing.T) {
 		{"missing schema", connectors.Request{Table: "aux.district_daily"}, connectors.ErrNotFound, []string{`"aux"`, "main"}, false},
 		{"missing column", connectors.Request{Table: "district_daily", Columns: []string{"temperature", "humidity"}},
 			connectors.ErrNotFound, []string{`"humidity"`, "rainfall", "billed_volume"}, false},
-		{"text column", connectors.Request{Table: "district_daily", Columns: []string{"temperature", "district"}},
-			connectors.ErrColumnType, []string{`"district"`, "TEXT"}, false},
+		{"blob column", connectors.Request{Table: "gauges", Columns: []string{"reading", "raw"}},
+			connectors.ErrColumnType, []string{`"raw"`, "BLOB"}, false},
+		{"too many levels", connectors.Request{Table: "district_daily", Columns: []string{"temperature", "district"}, MaxLevels: 3},
+			connectors.ErrTooManyLevels, []string{`"district"`, "more than 3", "4 levels had been seen", "district_daily"}, false},
 		{"time column as value", connectors.Request{Table: "district_daily", Columns: []string{"day"}},
 			connectors.ErrColumnType, []string{`"day"`, "DATE", "--time-column"}, false},
 		{"text in a numeric column", connectors.Request{Table: "gauges", Columns: []string{"reading", "station"}},
