@@ -52,9 +52,11 @@ type Column struct {
 	Type string // the database's own type name, e.g. "double precision", "INTEGER"
 	Kind Kind
 	// Levels is, for a text column left out of a scan (Result.Skipped),
-	// its number of distinct non-NULL values where a source could count
-	// them cheaply, up to Request.MaxLevels+1 (LevelsMore: the count
-	// stopped there); 0 when not counted.
+	// its number of distinct non-NULL values where a source can tell
+	// cheaply (PostgreSQL: the planner's statistics; SQLite: among the
+	// first 100000 rows), up to Request.MaxLevels+1 (LevelsMore: the count
+	// stopped there, more levels than a factor may have); 0 when not
+	// counted.
 	Levels     int
 	LevelsMore bool
 }

@@ -141,6 +141,20 @@ func TestFactorLevelsAndNulls(t *testing.T) {
 	if !errors.Is(err, connectors.ErrTooManyLevels) || !strings.Contains(err.Error(), "3 levels had been seen") {
 		t.Errorf("limit of 2 levels: %v", err)
 	}
+	// Left out, the text column is listed with its levels counted, the
+	// count stopping one past the limit.
+	for _, c := range []struct {
+		max, levels int
+		more        bool
+	}{{0, 3, false}, {2, 3, true}} {
+		res, err := src.Scan(context.Background(), connectors.Request{Table: "supply", MaxLevels: c.max})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(res.Skipped) != 1 || res.Skipped[0].Name != "supply_source" || res.Skipped[0].Levels != c.levels || res.Skipped[0].LevelsMore != c.more {
+			t.Errorf("max levels %d: skipped %+v, want supply_source with %d levels (more %v)", c.max, res.Skipped, c.levels, c.more)
+		}
+	}
 	// A factor cannot be the target.
 	cols, err := src.Describe(context.Background(), connectors.Request{Table: "supply"})
 	if err != nil {

@@ -114,9 +114,13 @@ func (s *Source) Scan(ctx context.Context, req connectors.Request) (*connectors.
 	return res, nil
 }
 
+// levelRows bounds the rows countLevels reads per column, so that the hint
+// costs little beside the scan whatever the table's size.
+const levelRows = 100000
+
 // countLevels counts the distinct values of the text columns left out of
-// the scan, up to one more than the limit on levels, for the hint that
-// naming them uses them as factors.
+// the scan among the first levelRows rows, up to one more than the limit
+// on levels, for the hint that naming them uses them as factors.
 func (s *Source) countLevels(ctx context.Context, t *target, plan *connectors.Plan) error {
 	for i := range plan.Skipped {
 		c := &plan.Skipped[i]
@@ -125,8 +129,8 @@ func (s *Source) countLevels(ctx context.Context, t *target, plan *connectors.Pl
 		}
 		q := connectors.QuoteIdent(c.Name)
 		var n int
-		err := s.db.QueryRowContext(ctx, "SELECT count(*) FROM (SELECT DISTINCT "+q+" FROM "+t.from+" WHERE "+q+
-			" IS NOT NULL LIMIT "+strconv.Itoa(plan.MaxLevels+1)+")").Scan(&n)
+		err := s.db.QueryRowContext(ctx, "SELECT count(*) FROM (SELECT DISTINCT "+q+" FROM (SELECT "+q+" FROM "+t.from+
+			" LIMIT "+strconv.Itoa(levelRows)+") WHERE "+q+" IS NOT NULL LIMIT "+strconv.Itoa(plan.MaxLevels+1)+")").Scan(&n)
 		if err != nil {
 			return s.wrap(err)
 		}
