@@ -20,6 +20,7 @@ type supplyRow struct {
 	tempNull    bool
 	source      string // "" for NULL
 	tariff      string
+	weight      float64
 }
 
 // supplyRows generates rows in which the supply sources appear one after
@@ -43,6 +44,7 @@ func supplyRows(n int, seed uint64, nullEvery int) []supplyRow {
 			tempNull:    r.IntN(60) == 0,
 			source:      src[r.IntN(len(src))],
 			tariff:      []string{"standard", "off_peak", "business"}[r.IntN(3)],
+			weight:      0.5 + r.Float64(),
 		}
 		if nullEvery > 0 && i%nullEvery == 3 {
 			rows[i].source = ""
@@ -87,6 +89,9 @@ func feedFactors(t testing.TB, g *Grouper, rows []supplyRow) {
 		if vals[2], err = g.Level(2, []byte(r.tariff)); err != nil {
 			t.Fatal(err)
 		}
+		if g.weighted {
+			g.SetWeight(r.weight)
+		}
 	}
 }
 
@@ -104,6 +109,9 @@ func feedDummies(t testing.TB, g *Grouper, rows []supplyRow) {
 		vals[slices.Index(supplyLevels, r.source)] = 1
 		vals[3], nulls[3] = r.temperature, r.tempNull
 		vals[4+slices.Index(tariffLevels, r.tariff)] = 1
+		if g.weighted {
+			g.SetWeight(r.weight)
+		}
 	}
 }
 
@@ -148,7 +156,7 @@ func TestGrouperFactorsEqualDummies(t *testing.T) {
 	cols := []string{"supply_source", "temperature", "tariff_band"}
 	for _, keyed := range []bool{false, true} {
 		for _, qr := range []bool{false, true} {
-			o := GroupOptions{Columns: cols, QR: qr, Bucketed: keyed, Segmented: keyed, Weighted: false}
+			o := GroupOptions{Columns: cols, QR: qr, Bucketed: keyed, Segmented: keyed, Weighted: qr}
 			fo := o
 			fo.Factors = []int{0, 2}
 			g := NewGrouper(fo)
