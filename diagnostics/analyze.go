@@ -22,12 +22,12 @@ var (
 	ErrBadOptions    = errors.New("bad options")
 )
 
-// Factor is what Analyze needs of a QR accumulator: the upper triangular
+// QRFactor is what Analyze needs of a QR accumulator: the upper triangular
 // factor R of the design [1 (X−c)/s] over its columns (column 0 the
 // intercept, column j+1 data column j shifted by Origin(j) and divided by
 // Scale(j), a power of two), the column names and the number of rows.
 // *stream.QR implements it.
-type Factor interface {
+type QRFactor interface {
 	R(dst *mat.TriDense) *mat.TriDense
 	Origin(j int) float64
 	Scale(j int) float64
@@ -35,13 +35,13 @@ type Factor interface {
 	N() int64
 }
 
-// PreciseFactor is a Factor that may keep R in double-double: when
+// PreciseFactor is a QRFactor that may keep R in double-double: when
 // Extended reports true, R(i,j) + RLo(i,j) is the double-double entry, and
 // Analyze takes the precise path (PathQRPrecise): the re-factoring of the
 // chosen columns, the VIFs and the regression run in double-double.
 // *stream.QR implements it; NewQRExtended makes an extended one.
 type PreciseFactor interface {
-	Factor
+	QRFactor
 	Extended() bool
 	RLo(dst *mat.TriDense) *mat.TriDense
 }
@@ -61,7 +61,7 @@ var _ PreciseFactor = (*stream.QR)(nil)
 // escalates cross-product → QR → precise QR until it is trustworthy (or,
 // when it needs more digits than RequiredDigits, until
 // Trust.ExpectedDigits reaches what it needs).
-func Analyze(m *stream.Moments, q Factor, opt Options) (*Report, error) {
+func Analyze(m *stream.Moments, q QRFactor, opt Options) (*Report, error) {
 	if m == nil {
 		panic("diagnostics: Analyze with a nil Moments")
 	}
@@ -71,6 +71,10 @@ func Analyze(m *stream.Moments, q Factor, opt Options) (*Report, error) {
 		checkSame(m, q)
 	}
 	opt = withDefaults(opt)
+	opt, plans, err := resolveFactors(m, opt)
+	if err != nil {
+		return nil, err
+	}
 	idx, names, k, err := resolve(m, opt)
 	if err != nil {
 		return nil, err
@@ -85,12 +89,12 @@ func Analyze(m *stream.Moments, q Factor, opt Options) (*Report, error) {
 	} else {
 		d = designFromMoments(m, idx, names, k, hasY)
 	}
-	return analyzeDesign(d, m, opt)
+	return analyzeDesign(d, m, opt, plans)
 }
 
 // isNil reports whether q is nil or holds a nil pointer (a nil *stream.QR
-// passed as a Factor is not a nil interface).
-func isNil(q Factor) bool {
+// passed as a QRFactor is not a nil interface).
+func isNil(q QRFactor) bool {
 	if q == nil {
 		return true
 	}
@@ -102,7 +106,7 @@ func isNil(q Factor) bool {
 	return false
 }
 
-func checkSame(m *stream.Moments, q Factor) {
+func checkSame(m *stream.Moments, q QRFactor) {
 	mn, qn := m.Names(), q.Names()
 	if len(mn) != len(qn) {
 		panic(fmt.Sprintf("diagnostics: Moments has %d columns, QR %d", len(mn), len(qn)))
@@ -247,7 +251,7 @@ func checkRows(m *stream.Moments, idx []int, names []string, k int, opt Options)
 
 func fptr(v float64) *float64 { return &v }
 
-func analyzeDesign(d *design, m *stream.Moments, opt Options) (*Report, error) {
+func analyzeDesign(d *design, m *stream.Moments, opt Options, plans []*factorPlan) (*Report, error) {
 	c := m.Counts()
 	rep := &Report{
 		RowsUsed:    c.Used,
@@ -294,8 +298,9 @@ func analyzeDesign(d *design, m *stream.Moments, opt Options) (*Report, error) {
 	rep.Rank = 1 + col.rank
 	rep.RankTolerance = col.tol
 	rep.exactDependencies(d, col)
+	rep.dependencyWords(m, plans)
 	rep.nearDependencies(d, col, opt)
-	rep.groups(d, col, opt)
+	rep.groups(d, col, opt, plans)
 	rep.whatIf(d, col, opt)
 	rep.condition(d, col)
 	if opt.Target != "" {
@@ -508,12 +513,10 @@ func (rep *Report) nearDependencies(d *design, c *collin, opt Options) {
 	}
 }
 
-// groups computes the generalized VIF of each declared group (Fox & Monette
-// 1992): GVIF = det(R₁₁)·det(R₂₂)/det(R), R the correlation matrix of the
-// independent columns, R₁₁ the group's block, R₂₂ the others'. The
-// determinants come from R factors of column subsets of the scaled centered
-// factor, never from R itself.
-func (rep *Report) groups(d *design, c *collin, opt Options) {
+// groups computes the generalized VIF of each factor (in the order of
+// Options.Factors) and each declared group (by name).
+func (rep *Report) groups(d *design, c *collin, opt Options, plans []*factorPlan) {
+	rep.factorGroups(d, c, plans)
 	if len(opt.Groups) == 0 {
 		return
 	}
@@ -527,31 +530,44 @@ func (rep *Report) groups(d *design, c *collin, opt Options) {
 	}
 	sort.Strings(gnames)
 	for _, g := range gnames {
-		gr := GroupReport{Name: g, Columns: append([]string(nil), opt.Groups[g]...), DF: len(opt.Groups[g])}
-		in := map[int]bool{}
-		for _, n := range opt.Groups[g] {
-			j := byName[n]
-			in[j] = true
-			if _, why := c.vifOf(j); why != "" && gr.Undefined == "" {
-				gr.Undefined = fmt.Sprintf("column %q: %s", n, why)
-			}
+		gr := GroupReport{Name: g, Kind: GroupDeclared, Columns: append([]string(nil), opt.Groups[g]...), DF: len(opt.Groups[g])}
+		idx := make([]int, len(gr.Columns))
+		for i, n := range gr.Columns {
+			idx[i] = byName[n]
 		}
-		if gr.Undefined == "" {
-			var gpos, opos, allpos []int
-			for _, j := range c.indep {
-				p := c.vpos(j)
-				if in[j] {
-					gpos = append(gpos, p)
-				} else {
-					opos = append(opos, p)
-				}
-				allpos = append(allpos, p)
-			}
-			ld := logDetGram(c.s.cols(gpos, nil)) + logDetGram(c.s.cols(opos, nil)) - logDetGram(c.s.cols(allpos, nil))
-			v := math.Exp(ld)
-			gr.GVIF = fptr(v)
-			gr.GVIFAdjusted = fptr(math.Pow(v, 1/(2*float64(gr.DF))))
-		}
+		gr.GVIF, gr.GVIFAdjusted, gr.Undefined = gvif(c, idx, gr.Columns)
 		rep.GVIF = append(rep.GVIF, gr)
 	}
+}
+
+// gvif is the generalized VIF of the design columns idx (named names)
+// after Fox & Monette (1992): GVIF = det(R₁₁)·det(R₂₂)/det(R), R the
+// correlation matrix of the independent columns, R₁₁ the group's block,
+// R₂₂ the others'. The determinants come from R factors of column subsets
+// of the scaled centered factor, never from R itself. It is undefined,
+// with the reason, when a column's VIF is.
+func gvif(c *collin, idx []int, names []string) (v, adjusted *float64, undefined string) {
+	in := map[int]bool{}
+	for i, j := range idx {
+		in[j] = true
+		if _, why := c.vifOf(j); why != "" && undefined == "" {
+			undefined = fmt.Sprintf("column %q: %s", names[i], why)
+		}
+	}
+	if undefined != "" {
+		return nil, nil, undefined
+	}
+	var gpos, opos, allpos []int
+	for _, j := range c.indep {
+		p := c.vpos(j)
+		if in[j] {
+			gpos = append(gpos, p)
+		} else {
+			opos = append(opos, p)
+		}
+		allpos = append(allpos, p)
+	}
+	ld := logDetGram(c.s.cols(gpos, nil)) + logDetGram(c.s.cols(opos, nil)) - logDetGram(c.s.cols(allpos, nil))
+	g := math.Exp(ld)
+	return fptr(g), fptr(math.Pow(g, 1/(2*float64(len(idx))))), ""
 }

@@ -135,7 +135,7 @@ func newDesign(m *stream.Moments, scale func(int) float64, idx []int, names []st
 // [1 (X−c)/s (y−c)/s] for exactly those columns, s the factor's scales. With low parts (an extended
 // factor) the re-factoring runs in double-double and the design keeps them:
 // the precise path.
-func designFromQR(m *stream.Moments, q Factor, idx []int, names []string, k int, hasY bool) *design {
+func designFromQR(m *stream.Moments, q QRFactor, idx []int, names []string, k int, hasY bool) *design {
 	full := q.R(nil)
 	P := len(q.Names())
 	r := newDense(P+1, P+1)

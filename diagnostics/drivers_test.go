@@ -33,7 +33,7 @@ const refDriverTol = 1e-9
 // collinFor runs Analyze's preparation and collinearity core and returns
 // the analysis, so that a test can read every partner's share (the report
 // keeps only the largest).
-func collinFor(t *testing.T, m *stream.Moments, q Factor, opt Options) *collin {
+func collinFor(t *testing.T, m *stream.Moments, q QRFactor, opt Options) *collin {
 	t.Helper()
 	opt = withDefaults(opt)
 	idx, names, k, err := resolve(m, opt)
@@ -100,7 +100,7 @@ func TestDriversReference(t *testing.T) {
 		opt := Options{Columns: spec.Regressors}
 		for _, f := range []struct {
 			path string
-			q    Factor
+			q    QRFactor
 		}{{PathCrossProduct, nil}, {PathQR, q}, {PathQRPrecise, x}} {
 			t.Run(ds+"/"+f.path, func(t *testing.T) {
 				rep, err := Analyze(m, f.q, opt)
@@ -193,7 +193,7 @@ func TestDriversSumToOne(t *testing.T) {
 			rows = append(rows, row)
 		}
 		m, q := feedRows(names, rows, 64)
-		for _, f := range []Factor{nil, q} {
+		for _, f := range []QRFactor{nil, q} {
 			c := collinFor(t, m, f, Options{})
 			for j := range names {
 				v, why := c.vifOf(j)
@@ -220,7 +220,7 @@ func TestDriversSumToOne(t *testing.T) {
 	wn, wrows := waterTable(303, 400)
 	m, q := feedRows(wn, wrows, 100)
 	cols := []string{"temperature", "population_served", "residential_connections", "commercial_connections", "total_connections", "pressure_z3", "metered_volume", "billed_volume"}
-	for _, f := range []Factor{nil, q} {
+	for _, f := range []QRFactor{nil, q} {
 		rep, err := Analyze(m, f, Options{Columns: cols})
 		if err != nil {
 			t.Fatal(err)

@@ -255,7 +255,7 @@ func TestNISTLinear(t *testing.T) {
 				opt := Options{Target: "y", NoIntercept: d.noInt}
 				r := row{name: tc.name, block: block, end: -1}
 				var wheres [3]string
-				for i, f := range []Factor{nil, q, x} {
+				for i, f := range []QRFactor{nil, q, x} {
 					rep, err := Analyze(m, f, opt)
 					if err != nil {
 						t.Fatalf("%s path: %v", pathNames[i], err)

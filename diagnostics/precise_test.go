@@ -25,7 +25,7 @@ func TestAnalyzeNilQR(t *testing.T) {
 	m, _ := feedRows(names, rows, 128)
 	opt := Options{Columns: []string{"temperature", "rainfall", "pipe_age"}, Target: "metered_volume"}
 	var q *stream.QR
-	for _, f := range []Factor{q, nil} {
+	for _, f := range []QRFactor{q, nil} {
 		rep, err := Analyze(m, f, opt)
 		if err != nil {
 			t.Fatal(err)

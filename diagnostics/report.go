@@ -1,5 +1,7 @@
 package diagnostics
 
+import "encoding/json"
+
 // Options selects the columns to analyze and the limits used to flag them.
 type Options struct {
 	// Target is the name of the target column ("" = none). It must be a
@@ -11,6 +13,14 @@ type Options struct {
 	// Groups are declared column groups for the generalized VIF
 	// (group name -> columns).
 	Groups map[string][]string
+	// Factors are the categorical columns among the accumulator's
+	// columns, each held as its full set of indicator columns (see
+	// Factor). Each enters the design as treatment dummies (its base
+	// level's indicator and those of absent levels left out) and gets a
+	// generalized VIF of its own (Report.GVIF, kind "factor"). In Columns
+	// a factor may be named by its own name, which stands for all its
+	// indicators.
+	Factors []Factor
 	// VIFLimit flags a VIF at or above it (default 10, common practice).
 	VIFLimit float64
 	// CondLimit flags a condition index above it (default 30, common
@@ -181,6 +191,11 @@ type Dependency struct {
 	Coefficients map[string]float64 `json:"coefficients,omitempty"`
 	Intercept    *float64           `json:"intercept,omitempty"`
 	Equation     string             `json:"equation,omitempty"`
+	// Words says an exact dependency in plain words, e.g. "district_code
+	// determines district: each district_code level lies in one district
+	// level (…)" or "pipe_material determines roughness: roughness is
+	// fixed within each pipe_material level (…)".
+	Words string `json:"words,omitempty"`
 
 	// Near: a condition index of convention (a) above the limit and the
 	// proportions above PropLimit.
@@ -197,15 +212,58 @@ const (
 	KindNear  = "near"
 )
 
-// GroupReport is the generalized VIF of a declared group of columns.
+// GroupReport is the generalized VIF of a declared group of columns or of
+// a factor's treatment dummies.
 type GroupReport struct {
-	Name    string   `json:"name"`
+	Name string `json:"name"`
+	// Kind is "factor" for a factor (Options.Factors), "declared" for a
+	// declared group (Options.Groups).
+	Kind string `json:"kind"`
+	// Columns are the group's columns in the design; for a factor its
+	// dummies (the indicators of the levels present but the base).
 	Columns []string `json:"columns"`
-	DF      int      `json:"df"`
-	GVIF    *float64 `json:"gvif"`
+	// DF is the number of columns; for a factor, levels present − 1.
+	DF   int      `json:"df"`
+	GVIF *float64 `json:"gvif"`
 	// GVIFAdjusted is GVIF^(1/(2·df)), comparable with √VIF.
 	GVIFAdjusted *float64 `json:"gvif_adjusted"`
 	Undefined    string   `json:"gvif_undefined,omitempty"`
+
+	// For a factor: the levels present in the rows (the base among them)
+	// with their row counts (sums of weights), the base level and how it
+	// was chosen ("most frequent" or "named"), and the levels known but
+	// absent from these rows.
+	Levels   []string  `json:"levels,omitempty"`
+	Counts   []float64 `json:"level_counts,omitempty"`
+	Base     string    `json:"base,omitempty"`
+	BaseRule string    `json:"base_rule,omitempty"`
+	Absent   []string  `json:"absent,omitempty"`
+}
+
+// MarshalJSON writes a factor's levels, level_counts and absent as arrays
+// even when empty, and leaves the factor keys out of a declared group's.
+func (g GroupReport) MarshalJSON() ([]byte, error) {
+	type plain GroupReport
+	if g.Kind != GroupFactor {
+		return json.Marshal(plain(g))
+	}
+	nz := func(s []string) []string {
+		if s == nil {
+			return []string{}
+		}
+		return s
+	}
+	counts := g.Counts
+	if counts == nil {
+		counts = []float64{}
+	}
+	return json.Marshal(struct {
+		plain
+		Levels []string  `json:"levels"`
+		Counts []float64 `json:"level_counts"`
+		Base   string    `json:"base"`
+		Absent []string  `json:"absent"`
+	}{plain(g), nz(g.Levels), counts, g.Base, nz(g.Absent)})
 }
 
 // DropReport gives the VIFs of the other columns after one column is
