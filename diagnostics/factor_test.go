@@ -16,7 +16,8 @@ import (
 // expandRows turns rows of text cells (header names the cells) into the
 // accumulator's columns for the model columns use, in order: a numeric
 // column by its own name, a factor (levels given, in byte order) in place
-// as one indicator column per level, the full set.
+// as one indicator column per level, the full set. A cell "NA" is
+// missing (NaN in every column it expands to).
 func expandRows(t *testing.T, header []string, factors map[string][]string, cells [][]string, use []string) ([]string, [][]float64) {
 	t.Helper()
 	at := map[string]int{}
@@ -41,6 +42,17 @@ func expandRows(t *testing.T, header []string, factors map[string][]string, cell
 		row := make([]float64, 0, len(names))
 		for _, u := range use {
 			s := c[at[u]]
+			if s == "NA" {
+				// Missing, as R writes it: the accumulator drops the row.
+				n := 1
+				if lv, ok := factors[u]; ok {
+					n = len(lv)
+				}
+				for range n {
+					row = append(row, math.NaN())
+				}
+				continue
+			}
 			if lv, ok := factors[u]; ok {
 				k := slices.Index(lv, s)
 				if k < 0 {
@@ -62,12 +74,13 @@ func expandRows(t *testing.T, header []string, factors map[string][]string, cell
 	return names, rows
 }
 
-// levelsOf returns the distinct values of a column in byte order.
+// levelsOf returns the distinct values of a column in byte order, NA left
+// out.
 func levelsOf(header []string, cells [][]string, col string) []string {
 	j := slices.Index(header, col)
 	var lv []string
 	for _, c := range cells {
-		if !slices.Contains(lv, c[j]) {
+		if c[j] != "NA" && !slices.Contains(lv, c[j]) {
 			lv = append(lv, c[j])
 		}
 	}
