@@ -3,7 +3,8 @@
 // √VIF per column; eigenvalues and principal components of the
 // correlation matrix; Belsley–Kuh–Welsch condition indices and
 // variance-decomposition proportions in two conventions; exact and near
-// dependencies; generalized VIFs for column groups (Fox & Monette 1992);
+// dependencies, in equations and words; generalized VIFs for column groups
+// and for categorical factors' dummies (Fox & Monette 1992);
 // OLS with the split of each coefficient's variance into its three
 // factors; what-if drops; and a numerical-trust verdict.
 //
@@ -95,6 +96,29 @@
 // get a null VIF ("exact dependency"); the other columns' VIFs are
 // computed on the maximal independent subset (the columns that are not
 // dependents), which spans the same space.
+//
+// # Factors
+//
+// A categorical column (Options.Factors) is accumulated as one indicator
+// column per level, the full set, named IndicatorName(factor, level).
+// Analyze turns it into treatment dummies: it leaves out the base level's
+// indicator (a named base, else the most frequent level by row count =
+// mean·n, ties to the first level in byte order) and those of levels with
+// no row here (reported as absent, never as constant columns), so that a
+// full set beside the intercept cannot make the design singular. The
+// dummies keep their own rows among the columns (VIF per dummy), and the
+// factor gets one generalized-VIF entry (Report.GVIF, kind "factor") with
+// df = levels present − 1 and GVIF^(1/(2·df)), comparable with √VIF. By
+// Fox & Monette (1992) GVIF = det(R₁₁)·det(R₂₂)/det(R) does not depend on
+// the base; tests check it for every base of R's datasets against car::vif.
+// A factor with one level present has no dummies: its entry has df 0 and
+// says so instead of a GVIF.
+//
+// Exact dependencies carry Words: two factors of which one determines the
+// other (district_code within district) are recognised from the cross
+// counts of their indicators, which the co-moments hold exactly (rows with
+// both set = M_ab + W·x̄_a·x̄_b); a numeric column fixed within each level
+// of a factor is given with its value per level, read off the same way.
 //
 // # Condition indices
 //
