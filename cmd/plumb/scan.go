@@ -3,8 +3,10 @@ package main
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
+	"sort"
 	"strings"
 	"time"
 
@@ -20,6 +22,8 @@ type scanFlags struct {
 	columns                 []string
 	target, weight          string
 	groups                  []string
+	bases                   []string
+	maxLevels               int
 	format                  string
 	precision               string
 	vifLimit, condLimit     float64
@@ -45,13 +49,22 @@ report: per column VIF, tolerance, R² against the other columns and the factor
 by which its standard error is inflated; condition indices with
 variance-decomposition proportions (Belsley-Kuh-Welsch) in two conventions;
 near and exact linear dependencies, the exact ones as equations in the
-columns' own units; generalized VIFs of declared groups; what dropping each
-column would do. With --target it also fits OLS and splits each coefficient's
-variance into its three causes (poor fit, too little variation, redundancy).
+columns' own units and in words; generalized VIFs of declared groups and of
+categorical columns; what dropping each column would do. With --target it
+also fits OLS and splits each coefficient's variance into its three causes
+(poor fit, too little variation, redundancy).
 
-Without --columns every numeric column (integers, floats, numeric, booleans
-as 0/1) except the target is used; the others are listed as skipped.
-Rows with NULL, NaN or ±Inf in any used column are dropped and counted.
+Without --columns every numeric column (integers, floats, numeric) and every
+boolean column except the target is used; text columns are listed as skipped
+with their number of distinct values. A text column named in --columns, and
+any boolean column used, is a categorical factor: it enters as treatment
+dummies (one 0/1 column per level but the base level, the most frequent one
+unless --base names another) and gets a generalized VIF of its own (Fox &
+Monette 1992) with df = levels - 1; GVIF^(1/(2·df)) compares with √VIF and
+does not depend on the base. A factor cannot be the --target: plumb fits
+ordinary least squares, whose response is numeric.
+Rows with NULL, NaN or ±Inf in any used column, or NULL in a factor, are
+dropped and counted.
 
 Without --db, scan reads plumb's built-in sample: a water utility's daily
 demand features per supply district, generated from a fixed seed.
@@ -63,7 +76,9 @@ serious; a condition index above 30 marks a strong near dependency.`,
   plumb scan --db postgres://reader@db/features --table ops.district_daily \
       --columns temperature_c,rainfall_mm,metered_volume_m3,billed_volume_m3 --format json
   plumb scan --db sqlite:districts.db --table district_daily \
-      --group connections=residential_connections,commercial_connections`,
+      --group connections=residential_connections,commercial_connections
+  plumb scan --db sqlite:districts.db --table district_daily \
+      --columns temperature_c,rainfall_mm,supply_source,tariff_band --base supply_source=reservoir`,
 		Args: noArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			return runScan(cmd.Context(), cmd.OutOrStdout(), cmd.ErrOrStderr(), &f)
@@ -78,6 +93,8 @@ serious; a condition index above 30 marks a strong near dependency.`,
 	fl.StringVar(&f.target, "target", "", "response column: fit OLS and attribute each coefficient's variance")
 	fl.StringVar(&f.weight, "weight", "", "column of non-negative row weights")
 	fl.StringArrayVar(&f.groups, "group", nil, "column group for generalized VIF, NAME=a,b,c (repeatable)")
+	fl.StringArrayVar(&f.bases, "base", nil, "base level of a categorical column, COLUMN=LEVEL (repeatable; default: its most frequent level)")
+	fl.IntVar(&f.maxLevels, "max-levels", connectors.DefaultMaxLevels, "most distinct values a categorical column may have")
 	fl.StringVar(&f.format, "format", "text", "output format: text or json")
 	fl.StringVar(&f.precision, "precision", "auto", "auto (cross-products, then a QR factor, then a double-double QR factor, each only when the one before cannot be trusted), fast (cross-products only), exact (start at the QR factor) or precise (double-double QR from the start)")
 	fl.Float64Var(&f.vifLimit, "vif-limit", 10, "VIF above which a column counts as redundant")
@@ -121,6 +138,13 @@ type limits struct {
 type skippedColumn struct {
 	Name string `json:"name"`
 	Type string `json:"type"`
+	// Levels is a text column's number of distinct values where the
+	// source counted them (at most --max-levels + 1; LevelsMore: counting
+	// stopped there). Factor marks a column that --columns can name as a
+	// categorical factor.
+	Levels     int  `json:"levels,omitempty"`
+	LevelsMore bool `json:"levels_more,omitempty"`
+	Factor     bool `json:"usable_as_factor,omitempty"`
 }
 
 type groupOutput struct {
@@ -174,7 +198,70 @@ func (f *scanFlags) validate() error {
 	if !(f.condLimit > 1) {
 		return usagef("--condition-limit %v: want a number above 1", f.condLimit)
 	}
+	if f.maxLevels < 2 {
+		return usagef("--max-levels %d: want 2 or more", f.maxLevels)
+	}
 	return nil
+}
+
+// parseBases reads --base COLUMN=LEVEL specs. A level is taken as given
+// (spaces included); only the column name is trimmed.
+func parseBases(specs []string) (map[string]string, error) {
+	if len(specs) == 0 {
+		return nil, nil
+	}
+	b := make(map[string]string, len(specs))
+	for _, s := range specs {
+		col, level, ok := strings.Cut(s, "=")
+		col = strings.TrimSpace(col)
+		if !ok || col == "" {
+			return nil, usagef("--base %q: want COLUMN=LEVEL, e.g. --base supply_source=reservoir", s)
+		}
+		if _, dup := b[col]; dup {
+			return nil, usagef("--base names column %q twice", col)
+		}
+		b[col] = level
+	}
+	return b, nil
+}
+
+// checkBases makes sure every --base names a categorical column of the
+// plan.
+func checkBases(bases map[string]string, plan *connectors.Plan) error {
+	var facs []string
+	isFac := map[string]bool{}
+	for _, c := range plan.Values {
+		if c.IsFactor() {
+			facs = append(facs, c.Name)
+			isFac[c.Name] = true
+		}
+	}
+	names := make([]string, 0, len(bases))
+	for c := range bases {
+		names = append(names, c)
+	}
+	sort.Strings(names)
+	for _, c := range names {
+		if isFac[c] {
+			continue
+		}
+		have := "none; name a text column in --columns to use it as one"
+		if len(facs) > 0 {
+			have = strings.Join(facs, ", ")
+		}
+		return usagef("--base %s=%s: column %q is not a categorical column of this scan (categorical here: %s)", c, bases[c], c, have)
+	}
+	return nil
+}
+
+// factorOptions turns the scan's factors into the analysis's, with the
+// bases the user named.
+func factorOptions(fs []connectors.Factor, bases map[string]string) []diagnostics.Factor {
+	out := make([]diagnostics.Factor, 0, len(fs))
+	for _, f := range fs {
+		out = append(out, diagnostics.Factor{Name: f.Name, Levels: f.Levels, Base: bases[f.Name]})
+	}
+	return out
 }
 
 func parseGroups(specs []string) (map[string][]string, error) {
@@ -211,6 +298,10 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 	if err != nil {
 		return err
 	}
+	bases, err := parseBases(f.bases)
+	if err != nil {
+		return err
+	}
 	if f.db == "" {
 		path, cleanup, err := writeBuiltinSample()
 		if err != nil {
@@ -240,6 +331,7 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 		Weight:     f.weight,
 		TimeColumn: f.timeColumn, Bucket: f.bucket, Location: loc,
 		Segment: f.segment, MaxSegments: f.maxSegments,
+		MaxLevels: f.maxLevels,
 		SamplePct: f.samplePct, Seed: f.seed,
 	}
 	what := f.table
@@ -250,11 +342,20 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 	if err != nil {
 		return err
 	}
-	cols, skipped, err := chooseColumns(what, described, req, f)
+	cols, skipped, plan, err := chooseColumns(what, described, req, f)
 	if err != nil {
 		return err
 	}
+	if err := checkBases(bases, plan); err != nil {
+		return err
+	}
 	req.Columns = cols
+	if len(f.columns) == 0 {
+		// Without --columns the source picks the same columns itself (the
+		// target among them, found by name), and then also counts the
+		// distinct values of the text columns it leaves out.
+		req.Columns = nil
+	}
 	req.QR = f.precision == "exact"
 	req.Extended = f.precision == "precise"
 
@@ -262,13 +363,14 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 		Target: f.target, Columns: cols[:len(cols)-boolInt(f.target != "")], Groups: groups,
 		VIFLimit: f.vifLimit, CondLimit: f.condLimit,
 	}
-	res, rep, err := scanAndAnalyze(ctx, what, src, req, opt, f, stderr)
+	res, rep, err := scanAndAnalyze(ctx, what, src, req, opt, bases, f, stderr)
 	if err != nil {
 		return err
 	}
+	opt.Factors = factorOptions(res.Factors, bases)
 	out := scanOutput{
 		Source: connectors.Redact(f.db), Table: f.table, Query: f.query, Target: f.target,
-		Sampled: res.Sampled, Read: res.Read, Report: rep, Skipped: skipped, Caution: caution,
+		Sampled: res.Sampled, Read: res.Read, Report: rep, Skipped: withLevels(skipped, res.Skipped), Caution: caution,
 		Limits: limits{VIF: f.vifLimit, Condition: f.condLimit},
 	}
 	for j, n := range res.Inexact {
@@ -310,12 +412,15 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 // numerical verdict is "not trustworthy" is redone one level up the ladder
 // cross-products → QR factor → double-double QR factor (from the level the
 // precision flag starts at; never with --precision fast).
-func scanAndAnalyze(ctx context.Context, what string, src connectors.Source, req connectors.Request, opt diagnostics.Options, f *scanFlags, stderr io.Writer) (*connectors.Result, *diagnostics.Report, error) {
+func scanAndAnalyze(ctx context.Context, what string, src connectors.Source, req connectors.Request, opt diagnostics.Options, bases map[string]string, f *scanFlags, stderr io.Writer) (*connectors.Result, *diagnostics.Report, error) {
 	for {
 		bar := newProgress(stderr, f.quiet, what, req.QR || req.Extended)
 		req.Progress = bar.update
 		res, err := src.Scan(ctx, req)
 		bar.finish()
+		if errors.Is(err, connectors.ErrTooManyLevels) {
+			return nil, nil, fmt.Errorf("%s: %w (the limit is --max-levels, now %d)", what, err, req.MaxLevels)
+		}
 		if err != nil {
 			return nil, nil, fmt.Errorf("%s: %w", what, err)
 		}
@@ -323,9 +428,15 @@ func scanAndAnalyze(ctx context.Context, what string, src connectors.Source, req
 		if err := connectors.CheckMerged(what, res, all); err != nil {
 			return nil, nil, err
 		}
+		opt.Factors = factorOptions(res.Factors, bases)
 		rep, err := diagnostics.Analyze(all.Moments, all.QR, opt)
 		if err != nil {
 			return nil, nil, fmt.Errorf("%s: %w", what, err)
+		}
+		// A row with a NULL factor never reached the accumulator: its
+		// count is the connector's.
+		for _, fc := range res.Factors {
+			rep.DroppedBy[fc.Name] = fc.Null
 		}
 		if rep.Trust.Trustworthy || req.Extended || f.precision == "fast" {
 			return res, rep, nil
@@ -354,9 +465,10 @@ func boolInt(b bool) int {
 }
 
 // chooseColumns returns the columns to accumulate (regressors, then the
-// target) and the non-numeric columns that were skipped. Mistakes in
-// --columns itself are usage errors; the rest is connectors.Choose's.
-func chooseColumns(what string, described []connectors.Column, req connectors.Request, f *scanFlags) ([]string, []skippedColumn, error) {
+// target; a categorical column by its own name), the columns that were
+// skipped and the plan. Mistakes in --columns itself are usage errors; the
+// rest is connectors.Choose's.
+func chooseColumns(what string, described []connectors.Column, req connectors.Request, f *scanFlags) ([]string, []skippedColumn, *connectors.Plan, error) {
 	seen := map[string]bool{}
 	req.Columns = nil
 	for _, name := range f.columns {
@@ -365,21 +477,34 @@ func chooseColumns(what string, described []connectors.Column, req connectors.Re
 			continue
 		}
 		if seen[name] {
-			return nil, nil, usagef("--columns names %q twice", name)
+			return nil, nil, nil, usagef("--columns names %q twice", name)
 		}
 		seen[name] = true
 		if name == f.target {
-			return nil, nil, usagef("column %q is the target; leave it out of --columns", name)
+			return nil, nil, nil, usagef("column %q is the target; leave it out of --columns", name)
 		}
 		req.Columns = append(req.Columns, name)
 	}
 	p, err := connectors.Choose(what, described, req, f.target)
 	if err != nil {
-		return nil, nil, err
+		return nil, nil, nil, err
 	}
 	var skipped []skippedColumn
 	for _, c := range p.Skipped {
-		skipped = append(skipped, skippedColumn{Name: c.Name, Type: c.Type})
+		skipped = append(skipped, skippedColumn{Name: c.Name, Type: c.Type, Levels: c.Levels, LevelsMore: c.LevelsMore, Factor: c.Kind == connectors.KindText})
 	}
-	return p.Names(), skipped, nil
+	return p.Names(), skipped, p, nil
+}
+
+// withLevels copies the level counts a scan made of the skipped text
+// columns into the list.
+func withLevels(skipped []skippedColumn, counted []connectors.Column) []skippedColumn {
+	for i := range skipped {
+		for _, c := range counted {
+			if c.Name == skipped[i].Name && c.Levels > 0 {
+				skipped[i].Levels, skipped[i].LevelsMore = c.Levels, c.LevelsMore
+			}
+		}
+	}
+	return skipped
 }

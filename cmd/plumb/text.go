@@ -34,6 +34,11 @@ func writeText(w io.Writer, out *scanOutput) error {
 				parts = append(parts, fmt.Sprintf("%s %d", c.Name, n))
 			}
 		}
+		for _, g := range r.GVIF {
+			if n := r.DroppedBy[g.Name]; g.Kind == diagnostics.GroupFactor && n > 0 {
+				parts = append(parts, fmt.Sprintf("%s %d", g.Name, n))
+			}
+		}
 		if n := r.DroppedBy[out.Target]; out.Target != "" && n > 0 {
 			parts = append(parts, fmt.Sprintf("%s %d", out.Target, n))
 		}
@@ -42,11 +47,7 @@ func writeText(w io.Writer, out *scanOutput) error {
 		}
 	}
 	if len(out.Skipped) > 0 {
-		var parts []string
-		for _, s := range out.Skipped {
-			parts = append(parts, fmt.Sprintf("%s (%s)", s.Name, s.Type))
-		}
-		fmt.Fprintf(&b, "skipped non-numeric columns: %s\n", strings.Join(parts, ", "))
+		writeSkipped(&b, out.Skipped)
 	}
 	for name, n := range out.Inexact {
 		fmt.Fprintf(&b, "warning: %d values of %s have more digits than float64 holds; they were rounded\n", n, name)
@@ -95,8 +96,14 @@ func writeText(w io.Writer, out *scanOutput) error {
 	}
 	if len(exact) > 0 {
 		b.WriteString("\nExact linear dependencies (X'X is singular: OLS cannot separate these columns)\n")
+		said := map[string]bool{}
 		for _, d := range exact {
 			fmt.Fprintf(&b, "  %s\n", d.Equation)
+			// Two dummies of one factor may carry the same sentence.
+			if d.Words != "" && !said[d.Words] {
+				fmt.Fprintf(&b, "    %s\n", d.Words)
+				said[d.Words] = true
+			}
 		}
 	}
 	if len(near) > 0 {
@@ -109,11 +116,22 @@ func writeText(w io.Writer, out *scanOutput) error {
 			fmt.Fprintf(&b, "  index %.4g: %s\n", d.ConditionIndex, strings.Join(parts, ", "))
 		}
 	}
-	if len(r.GVIF) > 0 {
+	var facs, declared []diagnostics.GroupReport
+	for _, g := range r.GVIF {
+		if g.Kind == diagnostics.GroupFactor {
+			facs = append(facs, g)
+		} else {
+			declared = append(declared, g)
+		}
+	}
+	if len(facs) > 0 {
+		writeFactors(&b, facs)
+	}
+	if len(declared) > 0 {
 		b.WriteString("\nGroups (generalized VIF)\n")
 		tw = tabwriter.NewWriter(&b, 2, 4, 2, ' ', tabwriter.AlignRight)
 		fmt.Fprintln(tw, "group\tcolumns\tGVIF\tGVIF^(1/2df)\t")
-		for _, g := range r.GVIF {
+		for _, g := range declared {
 			fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t\n", g.Name, len(g.Columns), num(g.GVIF, "%.4g"), num(g.GVIFAdjusted, "%.4g"))
 		}
 		tw.Flush()
@@ -141,6 +159,69 @@ func writeText(w io.Writer, out *scanOutput) error {
 	fmt.Fprintf(&b, "\n%s\n", out.Caution)
 	_, err := io.WriteString(w, termSafeLines(b.String()))
 	return err
+}
+
+// writeSkipped lists the columns left out of the scan, a text column with
+// its number of distinct values, and says how to use text columns.
+func writeSkipped(b *strings.Builder, skipped []skippedColumn) {
+	var parts []string
+	text := false
+	for _, s := range skipped {
+		switch {
+		case s.Factor && s.LevelsMore:
+			parts = append(parts, fmt.Sprintf("%s (%s, more than %d values)", s.Name, s.Type, s.Levels-1))
+		case s.Factor && s.Levels > 0:
+			parts = append(parts, fmt.Sprintf("%s (%s, %d %s)", s.Name, s.Type, s.Levels, plural(s.Levels, "value", "values")))
+		default:
+			parts = append(parts, fmt.Sprintf("%s (%s)", s.Name, s.Type))
+		}
+		text = text || s.Factor
+	}
+	fmt.Fprintf(b, "skipped columns: %s\n", strings.Join(parts, ", "))
+	if text {
+		b.WriteString("  a text column named in --columns joins as a categorical factor (treatment dummies and a generalized VIF)\n")
+	}
+}
+
+func plural(n int, one, many string) string {
+	if n == 1 {
+		return one
+	}
+	return many
+}
+
+// writeFactors prints one line per categorical column: its levels, the
+// base level and why, df, GVIF and GVIF^(1/(2·df)); then the levels known
+// but absent and the factors without a GVIF.
+func writeFactors(b *strings.Builder, facs []diagnostics.GroupReport) {
+	b.WriteString("\nCategorical columns (treatment dummies against a base level; generalized VIF, Fox & Monette 1992)\n")
+	tw := tabwriter.NewWriter(b, 2, 4, 2, ' ', 0)
+	fmt.Fprintln(tw, "  column\tlevels\tbase level (rows)\tdf\tGVIF\tGVIF^(1/(2·df))\t")
+	var notes []string
+	for _, g := range facs {
+		base := "—"
+		if g.Base != "" {
+			rows := ""
+			for i, l := range g.Levels {
+				if l == g.Base && i < len(g.Counts) {
+					rows = fmt.Sprintf("%.10g, ", g.Counts[i])
+				}
+			}
+			base = fmt.Sprintf("%s (%s%s)", g.Base, rows, g.BaseRule)
+		}
+		fmt.Fprintf(tw, "  %s\t%d\t%s\t%d\t%s\t%s\t\n", g.Name, len(g.Levels), base, g.DF, num(g.GVIF, "%.4g"), num(g.GVIFAdjusted, "%.4g"))
+		if len(g.Absent) > 0 {
+			notes = append(notes, fmt.Sprintf("  %s: %s known but absent from these rows", g.Name, strings.Join(g.Absent, ", ")))
+		}
+		if g.Undefined != "" {
+			notes = append(notes, fmt.Sprintf("  %s: no GVIF: %s", g.Name, g.Undefined))
+		}
+	}
+	tw.Flush()
+	for _, n := range notes {
+		b.WriteString(n + "\n")
+	}
+	b.WriteString("  GVIF^(1/(2·df)) compares with √VIF (the SE × column); it does not depend on the base level.\n")
 }
 
 // writeRegression prints the least-squares fit: one line with R² and the
