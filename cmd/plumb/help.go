@@ -242,6 +242,8 @@ func valueName(f *pflag.Flag) string {
 		return "COLUMN"
 	case "group":
 		return "NAME=A,B,…"
+	case "base":
+		return "COLUMN=LEVEL"
 	case "precision":
 		return "auto|fast|exact|precise"
 	case "bucket":

@@ -103,11 +103,12 @@ func newRoot() *cobra.Command {
 	root := &cobra.Command{
 		Use:   "plumb COMMAND [flags]",
 		Short: "watch feature tables for multicollinearity and drift toward it",
-		Long: `plumb reads the numeric feature columns of PostgreSQL and SQLite tables without
-loading them into memory and reports how redundant they are: variance inflation
-factors (VIF), condition indices with variance-decomposition proportions, exact
-linear dependencies written as equations, and, with a target, how much each
-coefficient's variance is inflated and why.
+		Long: `plumb reads the numeric and categorical feature columns of PostgreSQL and
+SQLite tables without loading them into memory and reports how redundant they
+are: variance inflation factors (VIF, and generalized VIFs for categorical
+columns), condition indices with variance-decomposition proportions, exact
+linear dependencies written as equations and in words, and, with a target, how
+much each coefficient's variance is inflated and why.
 
 It only reads: every statement runs in a read-only transaction.
 

@@ -44,7 +44,7 @@ func newScanCmd() *cobra.Command {
 	cmd := &cobra.Command{
 		Use:   "scan [--db URL] (--table NAME | --query SQL) [flags]",
 		Short: "read a table once and report its multicollinearity diagnostics",
-		Long: `scan streams the chosen numeric columns of one table or query and prints a
+		Long: `scan streams the chosen columns of one table or query and prints a
 report: per column VIF, tolerance, R² against the other columns and the factor
 by which its standard error is inflated; condition indices with
 variance-decomposition proportions (Belsley-Kuh-Welsch) in two conventions;
@@ -89,11 +89,11 @@ serious; a condition index above 30 marks a strong near dependency.`,
 	fl.StringVar(&f.table, "table", "", "table to read, NAME or SCHEMA.NAME")
 	fl.StringVar(&f.query, "query", "", "one SELECT (or WITH … SELECT, VALUES) to read instead of a table; runs read-only")
 	fl.StringVar(&f.where, "where", "", "filter rows with this SQL condition")
-	fl.StringSliceVar(&f.columns, "columns", nil, "regressor columns, comma-separated (default: every numeric column but the target)")
+	fl.StringSliceVar(&f.columns, "columns", nil, "regressor columns, comma-separated; a text column named here is a categorical factor (default: every numeric and boolean column but the target)")
 	fl.StringVar(&f.target, "target", "", "response column: fit OLS and attribute each coefficient's variance")
 	fl.StringVar(&f.weight, "weight", "", "column of non-negative row weights")
 	fl.StringArrayVar(&f.groups, "group", nil, "column group for generalized VIF, NAME=a,b,c (repeatable)")
-	fl.StringArrayVar(&f.bases, "base", nil, "base level of a categorical column, COLUMN=LEVEL (repeatable; default: its most frequent level)")
+	fl.StringArrayVar(&f.bases, "base", nil, "base level of a categorical column (repeatable; default: its most frequent level)")
 	fl.IntVar(&f.maxLevels, "max-levels", connectors.DefaultMaxLevels, "most distinct values a categorical column may have")
 	fl.StringVar(&f.format, "format", "text", "output format: text or json")
 	fl.StringVar(&f.precision, "precision", "auto", "auto (cross-products, then a QR factor, then a double-double QR factor, each only when the one before cannot be trusted), fast (cross-products only), exact (start at the QR factor) or precise (double-double QR from the start)")

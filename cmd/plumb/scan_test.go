@@ -234,6 +234,8 @@ func TestScanErrors(t *testing.T) {
 	nulls := sqliteTable(t, "CREATE TABLE district_daily (temperature_c REAL, rainfall_mm REAL)",
 		[][]any{{14.2, nil}, {15.1, nil}, {13.0, nil}, {12.0, nil}})
 	empty := sqliteTable(t, "CREATE TABLE district_daily (temperature_c REAL, rainfall_mm REAL)", nil)
+	blob := sqliteTable(t, "CREATE TABLE district_daily (temperature_c REAL, meter_image BLOB)",
+		[][]any{{14.2, []byte{1}}, {15.1, []byte{2}}, {13.0, []byte{3}}})
 	for _, tc := range []struct {
 		name string
 		args []string
@@ -242,7 +244,7 @@ func TestScanErrors(t *testing.T) {
 	}{
 		{"missing table", []string{"--db", "sqlite:" + good, "--table", "no_such_table"}, exitError, []string{"no_such_table"}},
 		{"missing column", []string{"--db", "sqlite:" + good, "--table", "district_daily", "--columns", "temperature_c,flow"}, exitError, []string{"district_daily", `"flow"`}},
-		{"text column", []string{"--db", "sqlite:" + good, "--table", "district_daily", "--columns", "temperature_c,day"}, exitError, []string{"district_daily", `"day"`, "TEXT"}},
+		{"blob column", []string{"--db", "sqlite:" + blob, "--table", "district_daily", "--columns", "temperature_c,meter_image"}, exitError, []string{"district_daily", `"meter_image"`, "BLOB"}},
 		{"too few rows", []string{"--db", "sqlite:" + good, "--table", "district_daily"}, exitError, []string{"district_daily", "rows"}},
 		{"all rows dropped", []string{"--db", "sqlite:" + nulls, "--table", "district_daily"}, exitError, []string{"district_daily", "rainfall_mm"}},
 		{"zero rows", []string{"--db", "sqlite:" + empty, "--table", "district_daily"}, exitError, []string{"district_daily", "rows"}},
