@@ -17,7 +17,7 @@ func feedExtended(names []string, rows [][]float64, blockRows int) *stream.QR {
 	return x
 }
 
-// A nil *stream.QR passed as the Factor is no factor at all: the
+// A nil *stream.QR passed as the QRFactor is no factor at all: the
 // cross-product path, not a nil-pointer panic (the interface holding a nil
 // pointer is not nil).
 func TestAnalyzeNilQR(t *testing.T) {
