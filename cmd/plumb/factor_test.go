@@ -1,6 +1,7 @@
 package main
 
 import (
+	"errors"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -255,4 +256,49 @@ func TestScanFactorErrors(t *testing.T) {
 			t.Errorf("%v: exit %d, %s; want exit %d and %q", tc.args, code, errs, tc.code, tc.msg)
 		}
 	}
+}
+
+// A factor with one level in the rows read has no dummies: the report says
+// so in words and has no GVIF, never a NaN.
+func TestScanFactorOneLevel(t *testing.T) {
+	path, _ := factorTable(t, 200)
+	db := "sqlite:" + path
+	args := []string{"--db", db, "--table", "district_daily", "--where", "supply_source = 'river'", "--columns", "temperature_c,supply_source,population_served"}
+	j := factorScan(t, args...)
+	if len(j.Groups) != 1 || j.Groups[0].DF != 0 || j.Groups[0].GVIF != nil || j.Groups[0].Base != "river" || len(j.Columns) != 2 {
+		t.Fatalf("groups %+v columns %+v", j.Groups, j.Columns)
+	}
+	code, out, errs := runCLI(t, append([]string{"scan", "--quiet"}, args...)...)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	if !strings.Contains(out, `supply_source: no GVIF: only level "river" occurs in these rows`) {
+		t.Errorf("output:\n%s", out)
+	}
+}
+
+// FuzzParseBases: any --base text either parses into trimmed, non-empty
+// column names with the level as given after the first "=", or is a usage
+// error; never a panic.
+func FuzzParseBases(f *testing.F) {
+	for _, s := range []string{"supply_source=river", " tariff_band =B", "=x", "district", "a=b=c", "day_type=", "x=y\x00z"} {
+		f.Add(s, "tariff_band=A")
+	}
+	f.Fuzz(func(t *testing.T, a, b string) {
+		got, err := parseBases([]string{a, b})
+		if err != nil {
+			var u usageError
+			if !errors.As(err, &u) {
+				t.Fatalf("%q, %q: error %v is not a usage error", a, b, err)
+			}
+			return
+		}
+		for _, s := range []string{a, b} {
+			col, level, _ := strings.Cut(s, "=")
+			col = strings.TrimSpace(col)
+			if col == "" || got[col] != level {
+				t.Fatalf("%q: parsed %v", s, got)
+			}
+		}
+	})
 }
