@@ -139,9 +139,10 @@ type skippedColumn struct {
 	Name string `json:"name"`
 	Type string `json:"type"`
 	// Levels is a text column's number of distinct values where the
-	// source counted them (at most --max-levels + 1; LevelsMore: counting
-	// stopped there). Factor marks a column that --columns can name as a
-	// categorical factor.
+	// source could tell cheaply (PostgreSQL: its planner statistics, an
+	// estimate; SQLite: among the first 100000 rows), at most
+	// --max-levels + 1 (LevelsMore: counting stopped there). Factor marks
+	// a column that --columns can name as a categorical factor.
 	Levels     int  `json:"levels,omitempty"`
 	LevelsMore bool `json:"levels_more,omitempty"`
 	Factor     bool `json:"usable_as_factor,omitempty"`

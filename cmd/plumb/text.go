@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"slices"
 	"sort"
 	"strings"
 	"text/tabwriter"
@@ -148,7 +149,7 @@ func writeText(w io.Writer, out *scanOutput) error {
 		}
 	}
 	if len(r.SuggestedDrops) > 0 {
-		fmt.Fprintf(&b, "\nDropping %s would bring every VIF under %g.\n", strings.Join(r.SuggestedDrops, ", "), out.Limits.VIF)
+		fmt.Fprintf(&b, "\nDropping %s would bring every VIF under %g.\n", strings.Join(dropNames(r.SuggestedDrops, facs), ", "), out.Limits.VIF)
 		if r.DropCaution != "" {
 			fmt.Fprintf(&b, "  %s\n", r.DropCaution)
 		}
@@ -159,6 +160,39 @@ func writeText(w io.Writer, out *scanOutput) error {
 	fmt.Fprintf(&b, "\n%s\n", out.Caution)
 	_, err := io.WriteString(w, termSafeLines(b.String()))
 	return err
+}
+
+// dropNames says suggested drops for a person: all the dummies of a factor
+// as the factor, one dummy as the merging of its level into the base.
+func dropNames(drops []string, facs []diagnostics.GroupReport) []string {
+	var out []string
+	done := map[string]bool{}
+	for _, d := range drops {
+		if done[d] {
+			continue
+		}
+		name := d
+		for _, f := range facs {
+			if !slices.Contains(f.Columns, d) {
+				continue
+			}
+			all := true
+			for _, c := range f.Columns {
+				all = all && slices.Contains(drops, c)
+			}
+			if all {
+				for _, c := range f.Columns {
+					done[c] = true
+				}
+				name = fmt.Sprintf("the categorical column %s (all its dummies)", f.Name)
+			} else {
+				name = fmt.Sprintf("%s (counting its level with the base level %s)", d, f.Base)
+			}
+		}
+		done[d] = true
+		out = append(out, name)
+	}
+	return out
 }
 
 // writeSkipped lists the columns left out of the scan, a text column with
