@@ -18,6 +18,15 @@ import (
 // free-text note, and demand. It returns the path and the rows per source.
 func factorTable(t *testing.T, n int) (string, map[string]int) {
 	t.Helper()
+	rows, count := factorRows(n)
+	path := sqliteTable(t, `CREATE TABLE district_daily (temperature_c REAL, population_served INTEGER,
+		supply_source TEXT, src_groundwater INTEGER, src_reservoir INTEGER, src_river INTEGER,
+		district_code TEXT, district TEXT, note TEXT, demand_m3 REAL)`, rows)
+	return path, count
+}
+
+// factorRows generates factorTable's rows.
+func factorRows(n int) ([][]any, map[string]int) {
 	r := rand.New(rand.NewPCG(11, 0xfac))
 	codes := []string{"E1", "N1", "N2", "S1"}
 	district := map[string]string{"E1": "east", "N1": "north", "N2": "north", "S1": "south"}
@@ -45,10 +54,7 @@ func factorTable(t *testing.T, n int) (string, map[string]int) {
 		demand := 0.004*pop + 12*temp + 8*r.NormFloat64()
 		rows = append(rows, []any{temp, pop, srcCell, gw, rs, rv, code, district[code], fmt.Sprintf("inspection %d", i%5), demand})
 	}
-	path := sqliteTable(t, `CREATE TABLE district_daily (temperature_c REAL, population_served INTEGER,
-		supply_source TEXT, src_groundwater INTEGER, src_reservoir INTEGER, src_river INTEGER,
-		district_code TEXT, district TEXT, note TEXT, demand_m3 REAL)`, rows)
-	return path, count
+	return rows, count
 }
 
 type factorScanJSON struct {
