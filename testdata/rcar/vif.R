@@ -3,7 +3,7 @@
 # Source: R's own `datasets` package and car::vif (Fox & Monette 1992), both
 # from Debian's packages r-base-core and r-cran-car. Run from this folder:
 #
-#   Rscript vif.R > vif.out
+#   Rscript vif.R > vif.txt
 #
 # It writes, for each model, the rows it used as <model>.csv (NA where R had
 # NA; factors as their level text) and appends car::vif's table to vif.tsv:
