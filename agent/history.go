@@ -153,19 +153,21 @@ func equationHolds(d diagnostics.Dependency, a acc) bool {
 	for j, n := range m.Names() {
 		idx[n] = j
 	}
-	dep, ok := idx[d.Dependent]
-	if !ok || d.Intercept == nil {
+	if d.Intercept == nil {
 		return false
 	}
-	terms := []int{dep}
-	coef := []float64{1}
+	// A column the bucket does not hold is the indicator of a level
+	// absent from it: zero in every row, so its term drops out.
+	var terms []int
+	var coef []float64
+	if dep, ok := idx[d.Dependent]; ok {
+		terms, coef = append(terms, dep), append(coef, 1)
+	}
 	for name, b := range d.Coefficients {
-		j, ok := idx[name]
-		if !ok {
-			return false
+		if j, ok := idx[name]; ok {
+			terms = append(terms, j)
+			coef = append(coef, -b)
 		}
-		terms = append(terms, j)
-		coef = append(coef, -b)
 	}
 	var resid, scale, meanRes, meanMag float64
 	for x, i := range terms {

@@ -66,7 +66,10 @@ type ExactDependency struct {
 	Dependent string
 	Columns   []string
 	Equation  string
-	Onset     time.Time // first bucket of the unbroken run in which it holds
+	// Words says it in plain words where categorical columns take part
+	// ("supply_source determines chlorine_mg_l: …"); "" otherwise.
+	Words string
+	Onset time.Time // first bucket of the unbroken run in which it holds
 }
 
 // ConstantColumn is a column that does not vary in the window.
@@ -198,8 +201,26 @@ func judgedNumbers(rep *diagnostics.Report, basis string) (cond, maxVIF float64,
 	}
 	cond = finiteOrInf(cond)
 	maxVIF = math.Inf(-1)
+	// A categorical column is judged by its GVIF^(1/df) (the square of
+	// GVIF^(1/(2·df)), on the VIF's scale; Fox & Monette 1992), which
+	// does not depend on its base level; its dummies' own VIFs do, and
+	// are left out.
+	dummy := map[string]bool{}
+	for _, g := range rep.GVIF {
+		if g.Kind != diagnostics.GroupFactor {
+			continue
+		}
+		for _, c := range g.Columns {
+			dummy[c] = true
+		}
+		if g.GVIFAdjusted != nil {
+			if v := *g.GVIFAdjusted * *g.GVIFAdjusted; v > maxVIF {
+				maxVIF, maxCol = v, g.Name
+			}
+		}
+	}
 	for _, c := range rep.Columns {
-		if c.VIF != nil && *c.VIF > maxVIF {
+		if c.VIF != nil && *c.VIF > maxVIF && !dummy[c.Name] {
 			maxVIF, maxCol = *c.VIF, c.Name
 		}
 	}
@@ -274,7 +295,7 @@ func Observe(at time.Time, rep *diagnostics.Report, x *pointExtra, basis string)
 		if d.Kind != diagnostics.KindExact || len(d.Columns) == 1 {
 			continue // a constant column is reported by its own rule
 		}
-		e := ExactDependency{Dependent: d.Dependent, Columns: d.Columns, Equation: d.Equation}
+		e := ExactDependency{Dependent: d.Dependent, Columns: d.Columns, Equation: d.Equation, Words: d.Words}
 		e.Onset = x.Onsets[e.subjectKey()]
 		o.Exact = append(o.Exact, e)
 	}
@@ -312,10 +333,20 @@ func deref(p *float64) float64 {
 
 // subjectKey is the identity of an exact dependency across points: its
 // columns, sorted.
+//
+// A categorical column's dummies count as the column itself: which of
+// them an equation names depends on the window's base level and on the
+// levels present, not on the cause.
 func (d ExactDependency) subjectKey() string {
-	cols := slices.Clone(d.Columns)
+	var cols []string
+	for _, c := range d.Columns {
+		if i := strings.LastIndex(c, "["); i > 0 && strings.HasSuffix(c, "]") {
+			c = c[:i]
+		}
+		cols = append(cols, c)
+	}
 	slices.Sort(cols)
-	return strings.Join(cols, "+")
+	return strings.Join(slices.Compact(cols), "+")
 }
 
 // constantKey is the onset key of a constant column (apart from the

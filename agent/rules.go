@@ -627,12 +627,16 @@ func (r *Rules) findings(st *RuleState, open map[string]*Alert, o Observation) m
 			onset = o.Day
 		}
 		others := slices.DeleteFunc(slices.Clone(d.Columns), func(c string) bool { return c == d.Dependent })
+		msg := fmt.Sprintf("%s holds in %s since %s", eq, r.every(), r.day(onset))
+		if d.Words != "" {
+			// Categorical columns take part: the words first, the
+			// equation among their dummies after.
+			msg = fmt.Sprintf("%s, in %s since %s (%s)", d.Words, r.every(), r.day(onset), eq)
+		}
 		add(finding{rule: RuleExact, subject: d.subjectKey(), severity: Critical, onset: onset, columns: d.Columns,
-			message: fmt.Sprintf("%s holds in %s since %s", eq, r.every(), r.day(onset)),
-			detail: AlertDetail{Values: values, Columns: d.Columns, Equation: d.Equation,
-				Remedy: fmt.Sprintf("%s is an exact combination of %s, so OLS cannot estimate their coefficients together: "+
-					"drop %s from the model (it is the derived column) or restore the upstream definition that made it so; %s",
-					d.Dependent, strings.Join(others, ", "), d.Dependent, dropCaution(o))}})
+			message: msg,
+			detail: AlertDetail{Values: values, Columns: d.Columns, Equation: d.Equation, Words: d.Words,
+				Remedy: exactRemedy(d, others, dropCaution(o))}})
 	}
 	for _, c := range o.Constant {
 		onset := c.Onset
@@ -1023,6 +1027,28 @@ func (r *Rules) day(t time.Time) string {
 		return t.In(loc).Format("2006-01")
 	}
 	return t.In(loc).Format("2006-01-02")
+}
+
+// exactRemedy says what to do about an exact dependency. Where
+// categorical columns take part, their dummies are named by their column.
+func exactRemedy(d ExactDependency, others []string, caution string) string {
+	if d.Words == "" {
+		return fmt.Sprintf("%s is an exact combination of %s, so OLS cannot estimate their coefficients together: "+
+			"drop %s from the model (it is the derived column) or restore the upstream definition that made it so; %s",
+			d.Dependent, strings.Join(others, ", "), d.Dependent, caution)
+	}
+	var cols []string
+	for _, c := range d.Columns {
+		if i := strings.LastIndex(c, "["); i > 0 && strings.HasSuffix(c, "]") {
+			c = c[:i]
+		}
+		if !slices.Contains(cols, c) {
+			cols = append(cols, c)
+		}
+	}
+	return fmt.Sprintf("%s carry the same information, so OLS cannot estimate their coefficients together: "+
+		"keep one of them in the model (a categorical column counts as one), or restore the upstream definition that made it so; %s",
+		strings.Join(cols, " and "), caution)
 }
 
 // every names the stretch an exact or constant finding covers.

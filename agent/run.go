@@ -2,6 +2,7 @@ package agent
 
 import (
 	"context"
+	"encoding/json"
 	"fmt"
 	"log/slog"
 	"runtime/debug"
@@ -88,6 +89,9 @@ type collected struct {
 	skipped      []string // points that could not be analyzed, with why
 	latest       time.Time
 	segmentOrder []string
+	// known are the accumulated columns of every level of the watch's
+	// categorical columns the run knows of (knownColumns); nil without any.
+	known []string
 }
 
 // Run runs one watch once. A failed run is recorded (and counted towards
@@ -260,7 +264,7 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 	defer src.Close()
 	req := connectors.Request{Table: w.Table, Query: w.Query, Where: w.Where,
 		TimeColumn: w.TimeColumn, Bucket: w.Bucket, Location: w.Location,
-		Segment: w.SegmentBy, MaxSegments: w.MaxSegments, QR: w.Precision != "fast", Extended: w.Precision == "precise"}
+		Segment: w.SegmentBy, MaxSegments: w.MaxSegments, MaxLevels: w.MaxLevels, QR: w.Precision != "fast", Extended: w.Precision == "precise"}
 	described, err := src.Describe(ctx, req)
 	if err != nil {
 		return nil, fmt.Errorf("watch %q: %w", w.Name, err)
@@ -285,6 +289,9 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 			bySeg[g.Key.Segment] = append(bySeg[g.Key.Segment], acc{g.Moments, g.QR})
 		}
 		col.latest = at
+		if col.known, err = r.knownColumns(ctx, w, cols, res.Groups, nil); err != nil {
+			return nil, err
+		}
 		if err := r.points(w, regressors, cols, at, bySeg, col, nil); err != nil {
 			return nil, err
 		}
@@ -374,6 +381,9 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 	if err != nil {
 		return nil, err
 	}
+	if col.known, err = r.knownColumns(ctx, w, cols, nil, accs); err != nil {
+		return nil, err
+	}
 	// One point per scanned bucket: the window ending at its end.
 	for _, s := range starts {
 		end := calendar(w).End(s)
@@ -384,6 +394,34 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 		col.latest = end
 	}
 	return col, nil
+}
+
+// knownColumns gathers the columns of the levels a run knows of: those of
+// the groups it scanned or the buckets it holds, and those of the watch's
+// latest stored point (see knownColumns in scan.go).
+func (r *Runner) knownColumns(ctx context.Context, w *config.Watch, cols []string, groups []connectors.Group, accs map[bucketKey]acc) ([]string, error) {
+	var lists [][]string
+	for _, g := range groups {
+		lists = append(lists, g.Moments.Names())
+	}
+	for _, a := range accs {
+		lists = append(lists, a.m.Names())
+	}
+	if len(factorsIn(cols, lists...)) == 0 {
+		return nil, nil
+	}
+	var prev *diagnostics.Report
+	ps, err := r.Store.Points(ctx, w.Name, PointQuery{Limit: 1})
+	if err != nil {
+		return nil, err
+	}
+	if len(ps) == 1 && len(ps[0].Report) > 0 {
+		var rep diagnostics.Report
+		if json.Unmarshal(ps[0].Report, &rep) == nil {
+			prev = &rep
+		}
+	}
+	return knownColumns(cols, lists, prev), nil
 }
 
 // history wraps a run's bucket accumulators for onsets and warm-up: the
@@ -469,7 +507,7 @@ func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time
 		if seg != "" {
 			parts = bySeg[seg]
 		}
-		a := merge(cols, parts)
+		a := widenKnown(cols, col.known, merge(cols, parts))
 		if a.m == nil || a.m.N() == 0 {
 			continue
 		}
@@ -490,7 +528,12 @@ func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time
 		judgedCols := regressors
 		if out := leftOut(rep, x.Recent...); len(out) > 0 {
 			x.LeftOut = out
-			judgedCols = slices.DeleteFunc(slices.Clone(regressors), func(c string) bool { return slices.Contains(out, c) })
+			// A categorical column leaves with any of its indicators.
+			gone := map[string]bool{}
+			for _, c := range out {
+				gone[factorOfColumn(regressors, c)] = true
+			}
+			judgedCols = slices.DeleteFunc(slices.Clone(regressors), func(c string) bool { return gone[c] })
 			if len(judgedCols) >= 2 {
 				if x.Judged, err = analyze(w, judgedCols, a); err != nil {
 					x.Judged = nil

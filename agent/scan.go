@@ -30,7 +30,7 @@ func chooseColumns(w *config.Watch, described []connectors.Column, req connector
 		regressors = slices.Clone(all[:len(all)-1])
 	}
 	if len(regressors) < 2 {
-		return nil, nil, nil, fmt.Errorf("watch %q: %d numeric column(s) to watch; multicollinearity needs two or more", w.Name, len(regressors))
+		return nil, nil, nil, fmt.Errorf("watch %q: %d column(s) to watch besides the target; multicollinearity needs two or more", w.Name, len(regressors))
 	}
 	return regressors, all, p.Time, nil
 }
@@ -122,12 +122,21 @@ func encodeGroup(watch string, g connectors.Group, cols []string) (Bucket, error
 	return b, nil
 }
 
-// merge folds accumulators into one (nil when there are none).
+// merge folds accumulators into one (nil when there are none). cols are
+// the watch's accumulated columns as configured; a categorical column among
+// them is held by each accumulator as indicator columns, one per level seen
+// (connectors.IndicatorName), and accumulators that saw different levels
+// are widened to the union of their columns before they merge.
 func merge(cols []string, parts []acc) acc {
 	if len(parts) == 0 {
 		return acc{}
 	}
-	out := acc{m: stream.NewMoments(cols)}
+	lists := make([][]string, len(parts))
+	for i, p := range parts {
+		lists[i] = p.m.Names()
+	}
+	names := connectors.UnionColumns(factorsIn(cols, lists...), lists...)
+	out := acc{m: stream.NewMoments(names)}
 	withQR, extended := true, false
 	for _, p := range parts {
 		if p.q == nil {
@@ -139,17 +148,79 @@ func merge(cols []string, parts []acc) acc {
 	switch {
 	case withQR && extended:
 		// Keep the low parts: float64 buckets merge into it as exact.
-		out.q = stream.NewQRExtended(cols)
+		out.q = stream.NewQRExtended(names)
 	case withQR:
-		out.q = stream.NewQR(cols)
+		out.q = stream.NewQR(names)
 	}
 	for _, p := range parts {
-		out.m.Merge(p.m)
+		out.m.Merge(p.m.Widen(names))
 		if withQR {
-			out.q.Merge(p.q)
+			out.q.Merge(p.q.Widen(names))
 		}
 	}
 	return out
+}
+
+// factorsIn returns the columns of cols that the accumulators with the
+// given columns hold as indicator columns: the categorical ones, which no
+// accumulator holds under their own name.
+func factorsIn(cols []string, lists ...[]string) []string {
+	var out []string
+	for _, c := range cols {
+		plain := false
+		for _, l := range lists {
+			if slices.Contains(l, c) {
+				plain = true
+				break
+			}
+		}
+		if !plain {
+			out = append(out, c)
+		}
+	}
+	return out
+}
+
+// factorsOf describes the categorical columns among regressors for the
+// diagnostics: each with the levels whose indicator columns the
+// accumulator holds (in its order, which is the levels' byte order) and
+// the base the watch names for it, if any.
+func factorsOf(w *config.Watch, regressors []string, m *stream.Moments) []diagnostics.Factor {
+	names := m.Names()
+	var out []diagnostics.Factor
+	for _, f := range factorsIn(regressors, names) {
+		fac := diagnostics.Factor{Name: f, Base: w.BaseLevels[f]}
+		for _, n := range names {
+			if level, ok := indicatorLevel(f, n); ok {
+				fac.Levels = append(fac.Levels, level)
+			}
+		}
+		out = append(out, fac)
+	}
+	return out
+}
+
+// indicatorLevel returns the level of factor f that indicator column name stands
+// for; ok is false when name is not one of f's indicators.
+func indicatorLevel(f, name string) (string, bool) {
+	if len(name) < len(f)+2 || !strings.HasPrefix(name, f+"[") || !strings.HasSuffix(name, "]") {
+		return "", false
+	}
+	return name[len(f)+1 : len(name)-1], true
+}
+
+// factorOfColumn maps an accumulator column to the regressor it belongs
+// to: an indicator column to its factor, any other column to itself.
+func factorOfColumn(regressors []string, name string) string {
+	if slices.Contains(regressors, name) {
+		return name
+	}
+	for _, f := range regressors {
+		if _, ok := indicatorLevel(f, name); ok {
+			return f
+		}
+	}
+	return name
 }
 
 // analyze runs the diagnostics on one accumulator with the watch's
@@ -162,7 +233,7 @@ func merge(cols []string, parts []acc) acc {
 // with them.
 func analyze(w *config.Watch, regressors []string, a acc, ref ...map[string]float64) (*diagnostics.Report, error) {
 	opt := diagnostics.Options{
-		Target: w.Target, Columns: regressors, Groups: w.Groups,
+		Target: w.Target, Columns: regressors, Groups: w.Groups, Factors: factorsOf(w, regressors, a.m),
 		VIFLimit: w.Limits.VIF.Critical, CondLimit: w.Limits.Condition.Critical,
 	}
 	if len(ref) > 0 {
@@ -179,4 +250,46 @@ func analyze(w *config.Watch, regressors []string, a acc, ref ...map[string]floa
 		return rep, err
 	}
 	return diagnostics.Analyze(a.m, a.q, opt)
+}
+
+// knownColumns returns the accumulated columns of every level a run knows
+// of, in canonical order: the columns of the accumulators it holds (lists)
+// and the levels, present or absent, of the watch's previous point (prev,
+// nil for none). A level once seen stays known, so a window without it
+// reports it absent rather than forgetting it. It returns nil when the
+// watch has no categorical columns.
+func knownColumns(cols []string, lists [][]string, prev *diagnostics.Report) []string {
+	if len(lists) == 0 {
+		return nil
+	}
+	factors := factorsIn(cols, lists...)
+	if len(factors) == 0 {
+		return nil
+	}
+	if prev != nil {
+		var fs []connectors.Factor
+		for _, g := range prev.GVIF {
+			if g.Kind == diagnostics.GroupFactor && slices.Contains(factors, g.Name) {
+				levels := slices.Concat(g.Levels, g.Absent)
+				slices.Sort(levels)
+				fs = append(fs, connectors.Factor{Name: g.Name, Levels: slices.Compact(levels)})
+			}
+		}
+		lists = append(lists, connectors.ExpandNames(cols, fs))
+	}
+	return connectors.UnionColumns(factors, lists...)
+}
+
+// widenKnown widens an accumulator to the known columns (knownColumns),
+// so that a level missing from its rows shows as absent.
+func widenKnown(cols, known []string, a acc) acc {
+	if known == nil || a.m == nil {
+		return a
+	}
+	names := connectors.UnionColumns(factorsIn(cols, a.m.Names(), known), a.m.Names(), known)
+	out := acc{m: a.m.Widen(names)}
+	if a.q != nil {
+		out.q = a.q.Widen(names)
+	}
+	return out
 }

@@ -196,14 +196,17 @@ type AlertDetail struct {
 	Since  time.Time `json:"since,omitzero"`
 	// R2Onset and R2Now are the R² of the column with the largest VIF on
 	// the other columns, at the onset and now (VIF alerts).
-	R2Onset   *float64           `json:"r2_onset,omitempty"`
-	R2Now     *float64           `json:"r2_now,omitempty"`
-	Values    map[string]float64 `json:"values,omitempty"`
-	Columns   []string           `json:"columns,omitempty"`
-	Equation  string             `json:"equation,omitempty"`
-	Remedy    string             `json:"remedy,omitempty"`
-	Forecast  *Forecast          `json:"forecast,omitempty"`
-	LastError string             `json:"last_error,omitempty"`
+	R2Onset  *float64           `json:"r2_onset,omitempty"`
+	R2Now    *float64           `json:"r2_now,omitempty"`
+	Values   map[string]float64 `json:"values,omitempty"`
+	Columns  []string           `json:"columns,omitempty"`
+	Equation string             `json:"equation,omitempty"`
+	// Words says an exact dependency among categorical columns in plain
+	// words ("supply_source determines chlorine_mg_l: …").
+	Words     string    `json:"words,omitempty"`
+	Remedy    string    `json:"remedy,omitempty"`
+	Forecast  *Forecast `json:"forecast,omitempty"`
+	LastError string    `json:"last_error,omitempty"`
 }
 
 // Forecast is a trend rule's projection.

@@ -82,13 +82,15 @@ const (
 	DefaultWindow      = 30 // buckets
 	DefaultRescan      = 2  // buckets
 	DefaultMaxSegments = 1000
-	DefaultVIFWarn     = 5.0  // common practice: worth a look
-	DefaultVIFCrit     = 10.0 // common practice: serious
-	DefaultCondWarn    = 15.0 // Belsley-Kuh-Welsch: moderate
-	DefaultCondCrit    = 30.0 // Belsley-Kuh-Welsch: strong
-	DefaultHorizon     = 14 * 24 * time.Hour
-	DefaultClearAfter  = 3
-	DefaultBlindAfter  = 3
+	// DefaultMaxLevels bounds a categorical column's distinct values.
+	DefaultMaxLevels  = 50
+	DefaultVIFWarn    = 5.0  // common practice: worth a look
+	DefaultVIFCrit    = 10.0 // common practice: serious
+	DefaultCondWarn   = 15.0 // Belsley-Kuh-Welsch: moderate
+	DefaultCondCrit   = 30.0 // Belsley-Kuh-Welsch: strong
+	DefaultHorizon    = 14 * 24 * time.Hour
+	DefaultClearAfter = 3
+	DefaultBlindAfter = 3
 	// DefaultJump is the modified z-score above which a value counts as
 	// an outlier (Iglewicz & Hoaglin 1993 recommend 3.5).
 	DefaultJump        = 3.5
@@ -203,10 +205,15 @@ type Watch struct {
 	TimeZone    string              `yaml:"time_zone"`
 	SegmentBy   string              `yaml:"segment_by"`
 	MaxSegments int                 `yaml:"max_segments"`
-	Schedule    string              `yaml:"schedule"`
-	Precision   string              `yaml:"precision"`
-	Limits      Limits              `yaml:"limits"`
-	Notify      []string            `yaml:"notify"`
+	// MaxLevels bounds the distinct values of each categorical column
+	// (0 = DefaultMaxLevels); BaseLevels names a factor's base level
+	// (column → level) where the most frequent one should not be.
+	MaxLevels  int               `yaml:"max_levels"`
+	BaseLevels map[string]string `yaml:"base_levels"`
+	Schedule   string            `yaml:"schedule"`
+	Precision  string            `yaml:"precision"`
+	Limits     Limits            `yaml:"limits"`
+	Notify     []string          `yaml:"notify"`
 
 	// ExpectedDependencies are sets of columns among which an exact
 	// dependency is by design (a total and its parts): one whose columns

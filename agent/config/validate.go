@@ -2,6 +2,7 @@ package config
 
 import (
 	"fmt"
+	"maps"
 	"math"
 	"net/mail"
 	"net/url"
@@ -358,6 +359,23 @@ func (v *validator) watch(c *Config, i int, w *Watch) {
 		w.MaxSegments = DefaultMaxSegments
 	} else if w.MaxSegments < 0 || w.SegmentBy == "" {
 		v.addf(p("max_segments"), "%s: max_segments wants segment_by and a positive count", label)
+	}
+
+	if w.MaxLevels == 0 {
+		w.MaxLevels = DefaultMaxLevels
+	} else if w.MaxLevels < 2 {
+		v.addf(p("max_levels"), "%s: max_levels wants a count of 2 or more (a factor needs two levels to vary)", label)
+	}
+	for _, col := range slices.Sorted(maps.Keys(w.BaseLevels)) {
+		level := w.BaseLevels[col]
+		switch {
+		case col == w.Target:
+			v.addf(p("base_levels"), "%s: base_levels names the target %q; the target is numeric, not a factor", label, col)
+		case len(w.Columns) > 0 && !slices.Contains(w.Columns, col):
+			v.addf(p("base_levels"), "%s: base_levels names %q, which is not among the watch's columns (%s)", label, col, strings.Join(w.Columns, ", "))
+		case level == "":
+			v.addf(p("base_levels"), "%s: base_levels: give %q a level", label, col)
+		}
 	}
 
 	if w.Schedule == "" {
