@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -10,6 +11,7 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"slices"
 	"sort"
 	"strings"
 	"text/tabwriter"
@@ -22,6 +24,7 @@ import (
 	"plumb/agent/demo"
 	"plumb/agent/web"
 	"plumb/connectors"
+	"plumb/diagnostics"
 )
 
 // demoConfigYAML is the configuration `plumb demo` writes: one watch per
@@ -82,6 +85,21 @@ watches:
     segment_by: district
     schedule: "15 6 * * *"
     notify: [log]
+  # Water treatment, all districts pooled: supply_source is a text column,
+  # so plumb uses it as a factor (treatment dummies, one generalized VIF).
+  # The works come to set the chlorine dose by source alone, and the dose
+  # becomes a function of the source: an exact dependency, said in words.
+  # A new source that appears later is noted, not alerted.
+  - name: district_treatment
+    source: districts
+    table: district_daily
+    columns: [supply_source, chlorine_mg_l, temperature_c, rainfall_mm]
+    time_column: day
+    bucket: day
+    window: 28 buckets
+    rescan: 3 buckets
+    schedule: "15 6 * * *"
+    notify: [log]
 `
 
 // demoFiles are the files plumb demo owns in its folder.
@@ -99,7 +117,7 @@ func newDemoCmd() *cobra.Command {
 districts.db, a water utility's daily demand features for four supply districts
 over 120 days (generated from a fixed seed, nothing is downloaded), a state
 store state.db and plumb.yaml pointing at both. Then it backfills the history
-of three watches as the agent would have recorded it day by day, prints what
+of four watches as the agent would have recorded it day by day, prints what
 plumb found and when it would have alerted, and serves the dashboard until
 interrupted.
 
@@ -430,7 +448,54 @@ func demoStories(c *config.Config, sc demo.Scenario, points map[string][]agent.P
 	} else {
 		s += ": not noticed."
 	}
+	out = append(out, s)
+
+	// The dose fixed by the source.
+	s = fmt.Sprintf("chlorine by source: from day %d the dose is set by supply_source alone; district_treatment", sc.DoseDay)
+	if a, ok := firstAlert("district_treatment", "", agent.RuleExact, ""); ok {
+		s += fmt.Sprintf(" reports it on day %d, once the last week of the window holds it, dated to day %d", day(a.AsOf), day(a.Onset)+1)
+		if wd := a.Detail.Words; wd != "" {
+			s += ": " + wd
+		}
+		s += "."
+	} else {
+		s += ": not noticed."
+	}
+	out = append(out, s)
+	first := -1
+	for _, r := range sc.Rows() {
+		if r.SupplySource == sc.NewSource {
+			first = day(r.Day) + 1 // day() counts window ends; a row's day is its bucket's start
+			break
+		}
+	}
+	s = fmt.Sprintf("new source: %s first receives %s water on day %d; district_treatment", sc.NewSourceIn, sc.NewSource, first)
+	if d, ok := firstLevel(points["district_treatment"], "supply_source", sc.NewSource, day); ok {
+		s += fmt.Sprintf(" counts it as a level of supply_source from day %d, with no alert.", d)
+	} else {
+		s += ": not seen."
+	}
 	return append(out, s)
+}
+
+// firstLevel returns the day of the first whole-table point whose report
+// lists level among factor's levels present.
+func firstLevel(points []agent.Point, factor, level string, day func(time.Time) int) (int, bool) {
+	for _, p := range points {
+		if p.Segment != "" || len(p.Report) == 0 {
+			continue
+		}
+		var rep diagnostics.Report
+		if json.Unmarshal(p.Report, &rep) != nil {
+			continue
+		}
+		for _, g := range rep.GVIF {
+			if g.Kind == diagnostics.GroupFactor && g.Name == factor && slices.Contains(g.Levels, level) {
+				return day(p.At), true
+			}
+		}
+	}
+	return 0, false
 }
 
 func demoConfigArgs(statePath, dbPath, cfgPath string) []any {

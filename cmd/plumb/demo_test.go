@@ -38,6 +38,10 @@ func TestDemoThenServe(t *testing.T) {
 		"district_connections reports the exact dependency on day 76, once the last week of the window holds it, dated to day 70",
 		"total_connections = 1·residential_connections + 1·commercial_connections + 0",
 		"district_daily/hillside reports pressure_bar constant on day 112, the first 28-day window wholly after it (day 85+27), dated to day 85",
+		// The dose fixed by the supply source from day 96, said in
+		// words; the new source is a level, not an alert.
+		"district_treatment reports it on day 102, once the last week of the window holds it, dated to day 96: supply_source determines chlorine_mg_l",
+		"district_treatment counts it as a level of supply_source from day 109, with no alert",
 		"omitted-variable bias",
 	} {
 		if !strings.Contains(out, want) {
@@ -54,6 +58,7 @@ func TestDemoThenServe(t *testing.T) {
 	stories := map[string]bool{
 		"district_volumes trend": true, "district_volumes level": true,
 		"district_connections exact": true, "district_daily/hillside constant": true,
+		"district_treatment exact": true,
 	}
 	_, section, _ := strings.Cut(out, "What plumb noticed")
 	section, _, _ = strings.Cut(section, "The stories in the data")
@@ -67,8 +72,8 @@ func TestDemoThenServe(t *testing.T) {
 			t.Errorf("report line outside the stories: %q", l)
 		}
 	}
-	if len(lines) != 3 {
-		t.Errorf("%d report lines, want one per story (3):\n%s", len(lines), section)
+	if len(lines) != 4 {
+		t.Errorf("%d report lines, want one per story that alerts (4):\n%s", len(lines), section)
 	}
 	// Running it again replaces its own files.
 	if code, _, errs := runCLI(t, "demo", "--dir", dir, "--no-serve", "--start", "2026-06-01"); code != 0 {
