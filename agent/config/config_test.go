@@ -100,7 +100,7 @@ watches:
 	}
 	w := c.Watches[0]
 	if c.Store != DefaultStore || w.Bucket != "day" || w.Window != (Span{Buckets: DefaultWindow}) ||
-		w.Rescan != (Span{Buckets: DefaultRescan}) || w.TimeZone != "UTC" || w.MaxSegments != DefaultMaxSegments {
+		w.Rescan != (Span{Buckets: DefaultRescan}) || w.TimeZone != "UTC" || w.MaxSegments != DefaultMaxSegments || w.MaxLevels != DefaultMaxLevels {
 		t.Errorf("defaults: store %q, %+v", c.Store, w)
 	}
 }
@@ -138,6 +138,10 @@ func TestParseErrors(t *testing.T) {
 		{"duplicate watch", base + "  - {name: w, source: d, table: u}\n", []string{"line 7", "used twice"}},
 		{"duplicate key", base + "    table: u\n", []string{"line 7", "already defined"}},
 		{"target in columns", base + "    columns: [a, b]\n    target: b\n", []string{`target "b"`}},
+		{"max_levels of one", base + "    max_levels: 1\n", []string{"line 7", "max_levels wants a count of 2 or more"}},
+		{"base level of the target", base + "    target: y\n    base_levels: {y: high}\n", []string{"line 8", `base_levels names the target "y"`}},
+		{"base level of another column", base + "    columns: [a, b]\n    base_levels: {c: x}\n", []string{"line 8", `base_levels names "c", which is not among the watch's columns (a, b)`}},
+		{"base level empty", base + "    base_levels: {a: \"\"}\n", []string{"line 7", `give "a" a level`}},
 		{"warn above critical", base + "    limits: {condition: {warn: 40, critical: 30}}\n", []string{"below warn"}},
 		{"warn not above 1", base + "    limits: {vif: {warn: 0.5, critical: 3}}\n", []string{"above 1"}},
 		{"bad zone", base + "    time_zone: Mars/Olympus\n", []string{"line 7", "IANA"}},

@@ -70,6 +70,17 @@ func (c *Config) Describe(w io.Writer, now time.Time, env Env) {
 		for _, g := range sortedKeys(wa.Groups) {
 			p("    group       %s = %s\n", g, strings.Join(wa.Groups[g], ", "))
 		}
+		p("    categorical text, enum and boolean columns among them as treatment dummies, at most %d levels each", wa.MaxLevels)
+		if len(wa.BaseLevels) > 0 {
+			var bs []string
+			for _, c := range sortedKeys(wa.BaseLevels) {
+				bs = append(bs, c+" = "+wa.BaseLevels[c])
+			}
+			p("; base %s", strings.Join(bs, ", "))
+		} else {
+			p("; base: the most frequent level")
+		}
+		p("\n")
 		if wa.Bucket != "" {
 			p("    buckets     %s by column %s (%s); window %s; rescan %s for late data\n",
 				bucketAdverb[wa.Bucket], wa.TimeColumn, wa.TimeZone, wa.Window, wa.Rescan)
