@@ -78,7 +78,7 @@ func factorOf(fs []Factor, name string) *Factor {
 }
 
 // NewLevel is a level of a factor that first occurs in a series' rows
-// after the first point of its timeline. It is noted, not alerted: a new
+// after the first full window of its timeline. It is noted, not alerted: a new
 // level gets its own dummy from then on.
 type NewLevel struct {
 	Factor string `json:"factor"`
@@ -94,27 +94,36 @@ func (n NewLevel) Note(through func(time.Time) string) string {
 	return fmt.Sprintf("new level “%s” of %s since %s", n.Level, n.Factor, through(n.Since))
 }
 
-// newLevels finds, in a timeline (oldest first), the levels that are not
-// present at its first point and are present at a later one, with the
-// first such point: for the factors the first point has (a factor added
-// to the watch later has no "before" to compare with). Levels known at
-// the first point but absent from its rows count as new when they occur
-// later, since this series' rows had not held them. Ordered by date,
-// factor and level.
+// newLevels finds, in a timeline (oldest first), the levels that first
+// occur in the rows after its first full window: the levels present in
+// any point up to and including that window (the windows still filling
+// before it hold the first rows of the history) are the series' own; a
+// level present at a later point is new, dated to the first point that
+// holds it. A level known to the watch but absent from the series' rows
+// until then counts as new too, since these rows had not held it; a
+// factor the baseline lacks (added to the watch later) has no "before"
+// to compare with and is skipped. A timeline with no full window has no
+// new levels. Ordered by date, factor and level.
 func newLevels(tl []Point) []NewLevel {
 	out := []NewLevel{}
-	if len(tl) < 2 {
+	full := slices.IndexFunc(tl, func(p Point) bool { return !p.Filling })
+	if full < 0 {
 		return out
 	}
 	before := map[string]map[string]bool{}
-	for _, f := range tl[0].Factors {
-		m := map[string]bool{}
-		for _, l := range f.Levels {
-			m[l] = true
+	for _, p := range tl[:full+1] {
+		for _, f := range p.Factors {
+			m := before[f.Name]
+			if m == nil {
+				m = map[string]bool{}
+				before[f.Name] = m
+			}
+			for _, l := range f.Levels {
+				m[l] = true
+			}
 		}
-		before[f.Name] = m
 	}
-	for _, p := range tl[1:] {
+	for _, p := range tl[full+1:] {
 		for _, f := range p.Factors {
 			seen, ok := before[f.Name]
 			if !ok {

@@ -93,26 +93,31 @@ func TestFactorSeries(t *testing.T) {
 	}
 }
 
-// TestNewLevels: a level is new when the first point's rows lack it and
-// a later one's hold it; a factor the first point lacks has none.
+// TestNewLevels: a level is new when the rows up to the first full
+// window lack it and a later window's hold it; levels seen while the
+// first window fills are not new; a factor the baseline lacks has none.
 func TestNewLevels(t *testing.T) {
 	day := func(d int) time.Time { return time.Date(2026, 3, d, 0, 0, 0, 0, time.UTC) }
 	fs := func(levels, absent []string) []Factor {
 		return []Factor{{Name: "tariff_band", Levels: levels, Absent: absent}}
 	}
 	tl := []Point{
-		{At: day(1), Factors: fs([]string{"A", "B"}, []string{"C"})},
-		{At: day(2), Factors: append(fs([]string{"A"}, []string{"B", "C"}), Factor{Name: "day_type", Levels: []string{"weekday", "weekend"}})},
-		{At: day(3), Factors: fs([]string{"A", "B", "C"}, nil)},
-		{At: day(4), Factors: fs([]string{"A", "D"}, []string{"B", "C"})},
-		{At: day(5), Factors: fs([]string{"A", "C", "D"}, []string{"B"})},
+		{At: day(1), Filling: true, Factors: fs([]string{"A"}, []string{"C"})},
+		{At: day(2), Filling: true, Factors: fs([]string{"A", "B"}, []string{"C"})},
+		{At: day(3), Factors: fs([]string{"A"}, []string{"B", "C"})},
+		{At: day(4), Factors: append(fs([]string{"A", "B", "C"}, nil), Factor{Name: "day_type", Levels: []string{"weekday", "weekend"}})},
+		{At: day(5), Factors: fs([]string{"A", "D"}, []string{"B", "C"})},
+		{At: day(6), Factors: fs([]string{"A", "C", "D"}, []string{"B"})},
 	}
 	got := newLevels(tl)
-	want := []NewLevel{{"tariff_band", "C", day(3)}, {"tariff_band", "D", day(4)}}
+	want := []NewLevel{{"tariff_band", "C", day(4)}, {"tariff_band", "D", day(5)}}
 	if !slices.Equal(got, want) {
 		t.Errorf("new levels %+v, want %+v", got, want)
 	}
-	if got := newLevels(tl[:1]); len(got) != 0 {
+	if got := newLevels(tl[:2]); len(got) != 0 {
+		t.Errorf("no full window yet: %+v", got)
+	}
+	if got := newLevels(tl[2:3]); len(got) != 0 {
 		t.Errorf("one point: %+v", got)
 	}
 }

@@ -178,7 +178,8 @@ type SegmentDetail struct {
 	Report *diagnostics.Report `json:"report"`
 	// Factors are the categorical columns of the latest point (the
 	// timeline's last), and NewLevels the levels that first occur in
-	// the rows after the timeline's first point. Summarize fills both.
+	// the rows after the timeline's first full window. Summarize fills
+	// both.
 	Factors   []Factor   `json:"factors"`
 	NewLevels []NewLevel `json:"new_levels"`
 }
