@@ -262,6 +262,16 @@ func TestBrowserFactors(t *testing.T) {
 		b.Screenshot("supply-" + seg + ".png")
 		p := webtest.FactorPanel(b)
 		g := reportFactor(t, d.Segment(key).Report, "supply_source")
+		// The chart: one line, a vertex per point where the GVIF is defined.
+		defined := 0
+		for _, pt := range d.Segment(key).Timeline {
+			if f := factorOf(pt.Factors, "supply_source"); f != nil && f.GVIFAdjusted != nil {
+				defined++
+			}
+		}
+		if wp := webtest.WatchPage(b); wp.Series["factor:supply_source"] != 1 || p.Vertices["supply_source"] != defined || defined == 0 {
+			t.Errorf("%s: factor chart series %v, vertices %v; want 1 line of %d points", u, wp.Series, p.Vertices, defined)
+		}
 		if len(p.Rows) != 1 {
 			t.Fatalf("%s: factor rows %+v", u, p.Rows)
 		}

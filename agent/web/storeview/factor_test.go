@@ -200,7 +200,7 @@ func TestFactorDashboard(t *testing.T) {
 		b.Visit(u)
 		b.Screenshot("supply-" + seg + ".png")
 		p := webtest.FactorPanel(b)
-		if !p.Shown || len(p.Rows) != 1 || p.Rows[0].Factor != "supply_source" || p.Rows[0].GVIFAdjusted == "" {
+		if !p.Shown || len(p.Rows) != 1 || p.Rows[0].Factor != "supply_source" || p.Rows[0].GVIFAdjusted == "" || p.Vertices["supply_source"] == 0 {
 			t.Errorf("%s: panel %+v", u, p)
 		}
 		wantNotes := []string{}

@@ -111,6 +111,9 @@ type Factors struct {
 	Rows  []FactorRow `json:"rows"`
 	// Notes are the new-level lines.
 	Notes []string `json:"notes"`
+	// Vertices counts the points of each factor's line in the panel's
+	// chart of GVIF^(1/(2·df)), by factor.
+	Vertices map[string]int `json:"vertices"`
 }
 
 // FactorPanel reads the categorical-columns panel of the watch page
@@ -118,7 +121,11 @@ type Factors struct {
 func FactorPanel(b *Browser) Factors {
 	return Eval[Factors](b, `(() => {
 		const sec = document.querySelector("section[data-panel=factors]");
-		if (!sec) return {shown: false, rows: [], notes: []};
+		if (!sec) return {shown: false, rows: [], notes: [], vertices: {}};
+		const vertices = {};
+		for (const p of sec.querySelectorAll("svg[data-chart=timeline] path[data-series^='factor:']")) {
+			vertices[p.dataset.series.slice(7)] = (p.getAttribute("d").match(/[ML]/g) || []).length;
+		}
 		const txt = e => e ? e.textContent.trim() : "";
 		return {
 			shown: true,
@@ -132,6 +139,7 @@ func FactorPanel(b *Browser) Factors {
 				gvifAdjusted: txt(r.querySelector("[data-value=gvif_adjusted]")),
 			})),
 			notes: [...sec.querySelectorAll("li[data-new-level]")].map(txt),
+			vertices,
 		};
 	})()`)
 }
