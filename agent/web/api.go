@@ -14,8 +14,10 @@ import (
 // {"error": "..."} with a 4xx or 5xx status.
 //
 //	GET /api/watches                         []WatchSummary
-//	GET /api/watches/{name}                  WatchDetail without reports
-//	GET /api/watches/{name}/history?segment= []Point, oldest first
+//	GET /api/watches/{name}                  WatchDetail without reports (each
+//	    segment with its factors and new_levels)
+//	GET /api/watches/{name}/history?segment= []Point, oldest first (each
+//	    with its factors)
 //	    (segment: a value, "NULL" for NULL, a quoted value such as ""
 //	    for the empty string; none for the whole table)
 //	GET /api/watches/{name}/runs             []Run, newest first

@@ -35,7 +35,7 @@ func TestAPI(t *testing.T) {
 
 	var ws []map[string]any
 	getJSON(t, ts.URL+"/api/watches", 200, &ws)
-	if len(ws) != 3 || ws[0]["name"] != "district_daily" || ws[2]["state"] != "blind" {
+	if len(ws) != 4 || ws[0]["name"] != "district_daily" || ws[2]["state"] != "blind" || ws[3]["name"] != "district_supply" {
 		t.Errorf("/api/watches: %v", ws)
 	}
 

@@ -21,7 +21,7 @@ func TestBrowserDashboard(t *testing.T) {
 	b.Visit(ts.URL + "/")
 	b.Screenshot("overview.png")
 	rows := webtest.Overview(b)
-	want := map[string]string{"district_daily": "critical", "district_volumes": "", "zone_pressure": "blind"}
+	want := map[string]string{"district_daily": "critical", "district_volumes": "", "zone_pressure": "blind", "district_supply": ""}
 	if len(rows) != len(want) {
 		t.Fatalf("overview lists %d watches, want %d: %v", len(rows), len(want), rows)
 	}

@@ -30,6 +30,8 @@ var demoRegressors = []string{
 
 func demoValues(r demo.Row) map[string]float64 {
 	return map[string]float64{
+		"chlorine_mg_l": r.ChlorineMgL,
+		diagnostics.IndicatorName("supply_source", r.SupplySource): 1,
 		"temperature_c":           r.TemperatureC,
 		"rainfall_mm":             r.RainfallMM,
 		"population_served":       float64(r.PopulationServed),
@@ -51,6 +53,8 @@ type fixtureWatch struct {
 	segmented    bool
 	window       int // days
 	limits       Limits
+	// factor names the categorical column among columns, "" for none.
+	factor string
 }
 
 // bucketAcc is one day's accumulators of one segment.
@@ -114,14 +118,42 @@ func buildDemoFixture(t testing.TB) *demoFixture {
 		AsOf: opened, OpenedAt: opened, Message: "3 runs in a row failed: the watch is blind"}}
 	Summarize(&blind, 30)
 	f.view.Put(blind)
+	// The supply source, a categorical column, comes to fix the chlorine
+	// dose on DoseDay; a new source appears in one district on
+	// NewSourceDay.
+	supply := fixtureWatch{name: "district_supply", columns: []string{"supply_source", "chlorine_mg_l", "temperature_c", "rainfall_mm"},
+		window: 28, factor: "supply_source", segmented: true, limits: watches[0].limits}
+	f.view.Put(*buildWatch(t, sc, rows, supply))
 	return f
 }
 
 func buildWatch(t testing.TB, sc demo.Scenario, rows []demo.Row, w fixtureWatch) *WatchDetail {
 	t.Helper()
-	names := append(slices.Clone(w.columns), demo.Target)
-	if w.target == "" {
-		names = slices.Clone(w.columns)
+	// A factor is accumulated as one indicator column per level, every
+	// level of the scenario in byte order: a level without rows in a
+	// window has an all-zero column there and is reported absent.
+	var levels []string
+	for _, r := range rows {
+		levels = append(levels, r.SupplySource)
+	}
+	slices.Sort(levels)
+	levels = slices.Compact(levels)
+	var names []string
+	for _, c := range w.columns {
+		if c != w.factor {
+			names = append(names, c)
+			continue
+		}
+		for _, l := range levels {
+			names = append(names, diagnostics.IndicatorName(c, l))
+		}
+	}
+	if w.target != "" {
+		names = append(names, demo.Target)
+	}
+	var factors []diagnostics.Factor
+	if w.factor != "" {
+		factors = []diagnostics.Factor{{Name: w.factor, Levels: levels}}
 	}
 	segs := []string{connectors.WholeTable}
 	if w.segmented {
@@ -175,7 +207,7 @@ func buildWatch(t testing.TB, sc demo.Scenario, rows []demo.Row, w fixtureWatch)
 				q.Merge(buckets[s][day].q)
 			}
 			start := time.Now()
-			rep, err := diagnostics.Analyze(m, q, diagnostics.Options{Target: w.target, Columns: w.columns, VIFLimit: w.limits.VIFCritical})
+			rep, err := diagnostics.Analyze(m, q, diagnostics.Options{Target: w.target, Columns: w.columns, VIFLimit: w.limits.VIFCritical, Factors: factors})
 			if err != nil {
 				t.Fatalf("fixture %s/%s day %d: %v", w.name, s, end, err)
 			}
@@ -211,7 +243,7 @@ func buildWatch(t testing.TB, sc demo.Scenario, rows []demo.Row, w fixtureWatch)
 // the max VIF +Inf, as the agent stores it.
 func pointOf(at time.Time, rep *diagnostics.Report) Point {
 	p := Point{At: at, ConditionNumber: rep.ConditionNumber, Rank: rep.Rank, Rows: rep.RowsUsed,
-		RowsDropped: rep.RowsDropped, Columns: len(rep.Columns)}
+		RowsDropped: rep.RowsDropped, Columns: len(rep.Columns), Factors: FactorsOf(rep.GVIF)}
 	for _, c := range rep.Columns {
 		v := math.Inf(1)
 		if c.VIF != nil {

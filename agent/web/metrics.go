@@ -19,7 +19,8 @@ type Collector struct {
 
 	up, watchState, condition, centered, judged, maxVIF, rankDef, columnVIF, columnUndefined,
 	rowsUsed, rowsDropped, dataTime, lastRun, lastRunDuration, lastRunOK,
-	failures, consecutive, openAlerts *prometheus.Desc
+	failures, consecutive, openAlerts,
+	factorGVIF, factorAdjusted, factorDF, factorLevels *prometheus.Desc
 }
 
 var _ prometheus.Collector = (*Collector)(nil)
@@ -56,6 +57,14 @@ func NewCollector(v View, timeout time.Duration) *Collector {
 		failures:        d("run_failures_total", "Failed runs of the watch since its history began.", "watch"),
 		consecutive:     d("run_consecutive_failures", "Failed runs of the watch since its last successful run.", "watch"),
 		openAlerts:      d("open_alerts", "Alerts of the watch not yet resolved, by severity.", "watch", "severity"),
+		factorGVIF: d("factor_gvif", "Generalized VIF of a categorical column's treatment dummies in the last run (Fox & Monette 1992); +Inf when undefined (one level only, or a dummy in an exact dependency).",
+			"watch", "segment", "factor"),
+		factorAdjusted: d("factor_gvif_adjusted", "GVIF^(1/(2·df)) of a categorical column in the last run, comparable with the square root of a VIF; +Inf when undefined.",
+			"watch", "segment", "factor"),
+		factorDF: d("factor_df", "Degrees of freedom of a categorical column in the last run: its levels present minus 1.",
+			"watch", "segment", "factor"),
+		factorLevels: d("factor_levels", "Levels of a categorical column in the last run's window: present in its rows, or known to the watch but absent.",
+			"watch", "segment", "factor", "state"),
 	}
 }
 
@@ -63,7 +72,7 @@ func NewCollector(v View, timeout time.Duration) *Collector {
 func (c *Collector) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{c.up, c.watchState, c.condition, c.centered, c.judged, c.maxVIF, c.rankDef, c.columnVIF,
 		c.columnUndefined, c.rowsUsed, c.rowsDropped, c.dataTime, c.lastRun, c.lastRunDuration, c.lastRunOK,
-		c.failures, c.consecutive, c.openAlerts} {
+		c.failures, c.consecutive, c.openAlerts, c.factorGVIF, c.factorAdjusted, c.factorDF, c.factorLevels} {
 		ch <- d
 	}
 }
@@ -113,6 +122,13 @@ func (c *Collector) Collect(ch chan<- prometheus.Metric) {
 				gauge(c.rowsDropped, float64(p.RowsDropped), name, label)
 				gauge(c.dataTime, unix(p.At), name, label)
 			}
+			for _, f := range seg.Factors {
+				gauge(c.factorGVIF, orInf(f.GVIF), name, label, f.Name)
+				gauge(c.factorAdjusted, orInf(f.GVIFAdjusted), name, label, f.Name)
+				gauge(c.factorDF, float64(f.DF), name, label, f.Name)
+				gauge(c.factorLevels, float64(len(f.Levels)), name, label, f.Name, "present")
+				gauge(c.factorLevels, float64(len(f.Absent)), name, label, f.Name, "absent")
+			}
 			if rep := seg.Report; rep != nil {
 				for _, col := range rep.Columns {
 					v := math.Inf(1)
@@ -158,3 +174,11 @@ func b2f(b bool) float64 {
 }
 
 func unix(t time.Time) float64 { return float64(t.UnixNano()) / 1e9 }
+
+// orInf is *v, or +Inf when v is nil (undefined).
+func orInf(v *float64) float64 {
+	if v == nil {
+		return math.Inf(1)
+	}
+	return *v
+}

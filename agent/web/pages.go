@@ -235,6 +235,7 @@ type watchData struct {
 	Report      *diagnostics.Report
 	CondChart   *lineChart
 	VIFChart    *lineChart
+	FactorChart *lineChart // GVIF^(1/(2·df)) of the categorical columns; nil without one
 	Forecasts   []Forecast
 	Bars        *barChart
 	Heat        *heatMap
@@ -320,6 +321,7 @@ func (s *Server) watchPage(w http.ResponseWriter, r *http.Request) {
 		l := d.Summary.Limits
 		data.CondChart = timelineChart("tl-cond", MetricCondition, seg.Timeline, seg.Forecast(MetricCondition), l.CondWarn, l.CondCritical, l.CondBasis)
 		data.VIFChart = timelineChart("tl-vif", MetricMaxVIF, seg.Timeline, seg.Forecast(MetricMaxVIF), l.VIFWarn, l.VIFCritical)
+		data.FactorChart = factorChart("tl-factors", seg.Timeline, l.VIFWarn, l.VIFCritical)
 		data.CondChart.markAlerts(d.Alerts, seg.Segment)
 		data.VIFChart.markAlerts(d.Alerts, seg.Segment)
 		data.Forecasts = seg.Forecasts

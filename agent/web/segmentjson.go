@@ -40,6 +40,8 @@ type segmentDetailFields struct {
 	Timeline  []Point             `json:"timeline"`
 	Forecasts []Forecast          `json:"forecasts"`
 	Report    *diagnostics.Report `json:"report"`
+	Factors   []Factor            `json:"factors"`
+	NewLevels []NewLevel          `json:"new_levels"`
 }
 
 func (d SegmentDetail) MarshalJSON() ([]byte, error) {
@@ -48,7 +50,7 @@ func (d SegmentDetail) MarshalJSON() ([]byte, error) {
 		segmentSummaryFields
 		segmentDetailFields
 	}{connectors.SegmentJSONOf(d.Segment), segmentSummaryFields(d.SegmentSummary),
-		segmentDetailFields{d.Timeline, d.Forecasts, d.Report}})
+		segmentDetailFields{d.Timeline, d.Forecasts, d.Report, nonNil(d.Factors), nonNil(d.NewLevels)}})
 }
 
 func (d *SegmentDetail) UnmarshalJSON(b []byte) error {
@@ -63,6 +65,7 @@ func (d *SegmentDetail) UnmarshalJSON(b []byte) error {
 	}
 	d.Segment = v.SegmentJSON.Key()
 	d.Timeline, d.Forecasts, d.Report = v.Timeline, v.Forecasts, v.Report
+	d.Factors, d.NewLevels = v.Factors, v.NewLevels
 	return nil
 }
 

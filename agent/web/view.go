@@ -176,6 +176,12 @@ type SegmentDetail struct {
 	Forecasts []Forecast `json:"forecasts"`
 	// Report is the last successful run's diagnostics, nil before one.
 	Report *diagnostics.Report `json:"report"`
+	// Factors are the categorical columns of the latest point (the
+	// timeline's last), and NewLevels the levels that first occur in
+	// the rows after the timeline's first full window. Summarize fills
+	// both.
+	Factors   []Factor   `json:"factors"`
+	NewLevels []NewLevel `json:"new_levels"`
 }
 
 // Forecast returns the forecast of metric, or nil.
@@ -214,6 +220,9 @@ type Point struct {
 	// Columns is the number of regressors; the design [1 X] has full
 	// rank Columns+1.
 	Columns int `json:"columns"`
+	// Factors are the categorical columns' generalized VIFs in this
+	// window, in the report's order (empty for a watch without one).
+	Factors []Factor `json:"factors"`
 }
 
 // RankDeficiency is the number of exact dependencies: Columns+1−Rank.
@@ -311,7 +320,8 @@ const (
 
 // Summarize fills d.Summary's derived fields from the rest of d: the
 // segment summaries (with Trend the last trendPoints of each timeline),
-// the open alerts, and the state. A store-backed View can fill the
+// each segment's factors and new levels (from its timeline), the open
+// alerts, and the state. A store-backed View can fill the
 // details and call it, so that every View derives them the same way.
 //
 // A segment's state is critical when its latest point is rank deficient
@@ -333,11 +343,16 @@ func Summarize(d *WatchDetail, trendPoints int) {
 	for i := range d.Segments {
 		seg := &d.Segments[i]
 		seg.Latest = nil
+		seg.Factors = []Factor{}
 		if n := len(seg.Timeline); n > 0 {
 			p := seg.Timeline[n-1]
 			seg.Latest = &p
 			seg.Trend = seg.Timeline[max(0, n-trendPoints):]
+			if p.Factors != nil {
+				seg.Factors = p.Factors
+			}
 		}
+		seg.NewLevels = newLevels(seg.Timeline)
 		seg.State = levelState(seg.Latest, s.Limits)
 		for _, a := range s.OpenAlerts {
 			if a.Segment == seg.Segment {
@@ -408,7 +423,9 @@ func (p Point) MarshalJSON() ([]byte, error) {
 		Judged            *float64 `json:"judged_condition_number"`
 		Singular          bool     `json:"singular"`
 		MaxVIF            *float64 `json:"max_vif"`
-	}{plain(p), finite(p.ConditionNumber), finite(p.CenteredCondition), finite(p.Judged), p.RankDeficiency() > 0, finite(p.MaxVIF)})
+		Factors           []Factor `json:"factors"`
+	}{plain(p), finite(p.ConditionNumber), finite(p.CenteredCondition), finite(p.Judged), p.RankDeficiency() > 0, finite(p.MaxVIF),
+		nonNil(p.Factors)})
 }
 
 // MarshalJSON writes non-finite values as null.

@@ -42,6 +42,10 @@ type historyPoint struct {
 	// each exact dependency and each constant column, which their own
 	// alerts report.
 	LeftOut []string `json:"left_out,omitempty"`
+	// Factors are the categorical columns of the window with their
+	// generalized VIFs (name, df, gvif, gvif_adjusted, levels,
+	// level_counts, base, base_rule, absent); [] when the watch has none.
+	Factors []web.Factor `json:"factors"`
 }
 
 func newHistoryCmd() *cobra.Command {
@@ -54,8 +58,10 @@ func newHistoryCmd() *cobra.Command {
 		Short: "show a watch's timeline of condition number, max VIF, rank and rows",
 		Long: `history prints the watch's points, oldest first: for each window end (or run
 time, without buckets) the condition number, the largest VIF and its column,
-the rank of [1 X] and the rows used. Undefined values (a singular design) are
-null in JSON. On a terminal the text form ends with sparklines.
+the rank of [1 X] and the rows used, and for a watch with categorical columns
+each one's GVIF^(1/(2·df)) (JSON: "factors" per point, with df, GVIF, levels
+present and absent and the base level). Undefined values (a singular design)
+are null in JSON. On a terminal the text form ends with sparklines.
 
 With --plot it writes instead the dashboard's timeline chart of the watch (or
 of --segment) to a file: condition number and max VIF with the warn and
@@ -115,6 +121,9 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 		if o, err := agent.ObservationFromPoint(p, ""); err == nil {
 			hp.LeftOut = o.LeftOut
 		}
+		if hp.Factors, err = storeview.PointFactors(p); err != nil {
+			return fmt.Errorf("watch %q: %w", watch, err)
+		}
 		out = append(out, hp)
 	}
 	if format == "json" {
@@ -126,7 +135,23 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 		fmt.Fprintf(stdout, "watch %s has no history yet\n", termSafe(watch))
 		return nil
 	}
-	fmt.Fprintf(stdout, "%-20s %8s %5s %14s %14s %12s  %s\n", "data through", "rows", "rank", "condition", "centered", "max VIF", "column")
+	// One column per categorical column, in the order they first occur:
+	// its GVIF^(1/(2·df)).
+	var factors []string
+	for _, p := range out {
+		for _, f := range p.Factors {
+			if !slices.Contains(factors, f.Name) {
+				factors = append(factors, f.Name)
+			}
+		}
+	}
+	widths := make([]int, len(factors))
+	var head strings.Builder
+	for i, f := range factors {
+		widths[i] = max(len([]rune(termSafe(f))), 8)
+		fmt.Fprintf(&head, " %*s", widths[i], termSafe(f))
+	}
+	fmt.Fprintf(stdout, "%-20s %8s %5s %14s %14s %12s%s  %s\n", "data through", "rows", "rank", "condition", "centered", "max VIF", head.String(), "column")
 	show := func(v *float64, singular bool) string {
 		switch {
 		case v != nil:
@@ -141,8 +166,16 @@ func runHistory(cmd *cobra.Command, stdout io.Writer, path, watch, segment strin
 		if len(p.LeftOut) > 0 {
 			col += " (left out, reported by their own alerts: " + strings.Join(p.LeftOut, ", ") + ")"
 		}
-		fmt.Fprintf(stdout, "%-20s %8d %5d %14s %14s %12s  %s\n", connectors.DataThrough(p.At), p.Rows, p.Rank,
-			show(p.ConditionNumber, p.Singular), show(p.CenteredCondition, p.Singular), show(p.MaxVIF, false), termSafe(col))
+		var fcols strings.Builder
+		for i, name := range factors {
+			fmt.Fprintf(&fcols, " %*s", widths[i], factorCell(p.Factors, name))
+		}
+		fmt.Fprintf(stdout, "%-20s %8d %5d %14s %14s %12s%s  %s\n", connectors.DataThrough(p.At), p.Rows, p.Rank,
+			show(p.ConditionNumber, p.Singular), show(p.CenteredCondition, p.Singular), show(p.MaxVIF, false), fcols.String(), termSafe(col))
+	}
+	if len(factors) > 0 {
+		fmt.Fprintf(stdout, "\n%s: GVIF^(1/(2·df)) of each categorical column, on the scale of √VIF (∞: undefined, a dummy in an exact dependency; –: one level only, or not in the window)\n",
+			strings.Join(termSafeAll(factors), ", "))
 	}
 	if f, ok := stdout.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
 		cond := make([]*float64, len(out))
@@ -263,4 +296,29 @@ func sparkline(vs []*float64, width int) string {
 		}
 	}
 	return b.String()
+}
+
+// factorCell is a categorical column's GVIF^(1/(2·df)) at a point, as
+// the history's text shows it.
+func factorCell(fs []web.Factor, name string) string {
+	for _, f := range fs {
+		if f.Name != name {
+			continue
+		}
+		switch {
+		case f.GVIFAdjusted != nil:
+			return fmtNum(*f.GVIFAdjusted)
+		case f.DF > 0:
+			return "∞"
+		}
+	}
+	return "–"
+}
+
+func termSafeAll(s []string) []string {
+	out := make([]string, len(s))
+	for i, x := range s {
+		out[i] = termSafe(x)
+	}
+	return out
 }

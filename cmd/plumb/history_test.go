@@ -2,13 +2,23 @@ package main
 
 import (
 	"bytes"
+	"context"
+	"encoding/json"
 	"encoding/xml"
+	"fmt"
 	"image/png"
 	"io"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
+	"time"
+
+	"plumb/agent"
+	"plumb/agent/demo"
+	"plumb/agent/web"
+	"plumb/diagnostics"
 )
 
 // TestHistoryPlot writes the timeline chart of the demo's volumes watch
@@ -116,5 +126,133 @@ func TestHistoryUnknownSegment(t *testing.T) {
 	code, out, errs := runCLI(t, "history", "district_daily", "--segment", "hillside", "--config", cfg, "--limit", "2")
 	if code != 0 || strings.Count(out, "\n") != 3 {
 		t.Errorf("known segment: exit %d\n%s\n%s", code, out, errs)
+	}
+}
+
+// TestHistoryFactors: a watch with a categorical column on the demo
+// scenario, backfilled: `plumb history` shows the factor's GVIF^(1/(2·df))
+// per point as the stored report has it, and --format json carries the
+// factor of each point's report.
+func TestHistoryFactors(t *testing.T) {
+	dir := t.TempDir()
+	sc := demo.Default
+	src := filepath.Join(dir, "districts.db")
+	if err := sc.WriteSQLite(context.Background(), src); err != nil {
+		t.Fatal(err)
+	}
+	cfg := filepath.Join(dir, "plumb.yaml")
+	if err := os.WriteFile(cfg, []byte(fmt.Sprintf(`store: sqlite:%s
+sources: {districts: "sqlite:%s"}
+watches:
+  - name: supply
+    source: districts
+    table: district_daily
+    columns: [supply_source, chlorine_mg_l, temperature_c, rainfall_mm]
+    time_column: day
+    bucket: day
+    window: 28 buckets
+`, filepath.Join(dir, "state.db"), src)), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	if code, out, errs := runCLI(t, "backfill", "supply", "--config", cfg); code != 0 {
+		t.Fatalf("backfill: exit %d\n%s\n%s", code, out, errs)
+	}
+	// The stored reports, read on their own.
+	c, err := loadStoreConfig(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	st, err := openStore(context.Background(), c, false, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ps, err := st.Points(context.Background(), "supply", agent.PointQuery{})
+	st.Close()
+	if err != nil || len(ps) < 28 {
+		t.Fatalf("points: %d, %v", len(ps), err)
+	}
+	stored := make([]diagnostics.GroupReport, len(ps))
+	for i, p := range ps {
+		var rep diagnostics.Report
+		if err := json.Unmarshal(p.Report, &rep); err != nil {
+			t.Fatal(err)
+		}
+		for _, g := range rep.GVIF {
+			if g.Kind == diagnostics.GroupFactor && g.Name == "supply_source" {
+				stored[i] = g
+			}
+		}
+		if stored[i].Name == "" {
+			t.Fatalf("%s: no supply_source in the stored report", p.At)
+		}
+	}
+
+	code, out, errs := runCLI(t, "history", "supply", "--config", cfg, "--format", "json")
+	if code != 0 {
+		t.Fatalf("history json: exit %d: %s", code, errs)
+	}
+	var hist []struct {
+		At      time.Time `json:"at"`
+		Factors []struct {
+			Name         string   `json:"name"`
+			DF           int      `json:"df"`
+			GVIF         *float64 `json:"gvif"`
+			GVIFAdjusted *float64 `json:"gvif_adjusted"`
+			Levels       []string `json:"levels"`
+			Absent       []string `json:"absent"`
+			Base         string   `json:"base"`
+		} `json:"factors"`
+	}
+	if err := json.Unmarshal([]byte(out), &hist); err != nil {
+		t.Fatalf("history json: %v\n%s", err, out)
+	}
+	if len(hist) != len(ps) {
+		t.Fatalf("%d points in JSON, %d stored", len(hist), len(ps))
+	}
+	sawNew := false
+	for i, h := range hist {
+		g := stored[i]
+		if len(h.Factors) != 1 {
+			t.Fatalf("%s: factors %+v", h.At, h.Factors)
+		}
+		f := h.Factors[0]
+		if f.Name != g.Name || f.DF != g.DF || f.Base != g.Base || !slices.Equal(f.Levels, g.Levels) || f.Absent == nil ||
+			(f.GVIF == nil) != (g.GVIF == nil) || g.GVIF != nil && (*f.GVIF != *g.GVIF || *f.GVIFAdjusted != *g.GVIFAdjusted) {
+			t.Errorf("%s: factor %+v, stored %+v", h.At, f, g)
+		}
+		sawNew = sawNew || slices.Contains(f.Levels, sc.NewSource)
+	}
+	if !sawNew {
+		t.Errorf("no point lists the new source %s", sc.NewSource)
+	}
+
+	code, out, errs = runCLI(t, "history", "supply", "--config", cfg)
+	if code != 0 {
+		t.Fatalf("history: exit %d: %s", code, errs)
+	}
+	lines := strings.Split(strings.TrimRight(out, "\n"), "\n")
+	head := strings.Fields(lines[0])
+	col := slices.Index(head, "supply_source")
+	if col < 0 {
+		t.Fatalf("no supply_source column in %q", lines[0])
+	}
+	// "data through" and "max VIF" are two words each in the heading, one
+	// field each in a row.
+	col -= 2
+	for i, g := range stored {
+		fields := strings.Fields(lines[1+i])
+		want := "–"
+		switch {
+		case g.GVIFAdjusted != nil:
+			want = web.FormatNumber(*g.GVIFAdjusted)
+		case g.DF > 0:
+			want = "∞"
+		}
+		if col >= len(fields) || fields[col] != want {
+			t.Errorf("row %d %q: supply_source %q, want %q", i, lines[1+i], fields[min(col, len(fields)-1)], want)
+		}
+	}
+	if !strings.Contains(out, "supply_source: GVIF^(1/(2·df))") {
+		t.Errorf("no legend of the factor column:\n%s", out)
 	}
 }

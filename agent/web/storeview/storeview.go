@@ -4,6 +4,7 @@
 package storeview
 
 import (
+	"bytes"
 	"cmp"
 	"context"
 	"encoding/json"
@@ -199,9 +200,13 @@ func (v *View) detail(ctx context.Context, w *config.Watch, full bool) (*web.Wat
 			if err != nil {
 				return nil, err
 			}
+			fs, err := PointFactors(p)
+			if err != nil {
+				return nil, fmt.Errorf("watch %q segment %s: %w", w.Name, connectors.ParseSegmentKey(s), err)
+			}
 			seg.Timeline = append(seg.Timeline, web.Point{At: p.At, ConditionNumber: p.ConditionNumber,
 				CenteredCondition: p.CenteredCondition, Judged: o.Cond, Filling: !o.Full, MaxVIF: p.MaxVIF,
-				Rank: p.Rank, Rows: p.RowsUsed, RowsDropped: p.RowsDropped, Columns: p.Columns})
+				Rank: p.Rank, Rows: p.RowsUsed, RowsDropped: p.RowsDropped, Columns: p.Columns, Factors: fs})
 		}
 		if full && len(ps) > 0 {
 			if raw := ps[len(ps)-1].Report; len(raw) > 0 {
@@ -276,4 +281,20 @@ func (v *View) detail(ctx context.Context, w *config.Watch, full bool) (*web.Wat
 	slices.SortStableFunc(d.Alerts, func(a, b web.Alert) int { return b.OpenedAt.Compare(a.OpenedAt) })
 	web.Summarize(d, cmp.Or(v.SparkPoints, 30))
 	return d, nil
+}
+
+// PointFactors returns the categorical columns of a stored point: the
+// factor entries of its report's generalized VIFs (groups[]), empty when
+// it has none. Only that part of the report is decoded.
+func PointFactors(p agent.Point) ([]web.Factor, error) {
+	if !bytes.Contains(p.Report, []byte(`"groups"`)) {
+		return []web.Factor{}, nil
+	}
+	var r struct {
+		Groups []diagnostics.GroupReport `json:"groups"`
+	}
+	if err := json.Unmarshal(p.Report, &r); err != nil {
+		return nil, fmt.Errorf("the stored report of %s does not decode: %w", p.At.UTC().Format(time.RFC3339), err)
+	}
+	return web.FactorsOf(r.Groups), nil
 }

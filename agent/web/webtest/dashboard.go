@@ -93,3 +93,53 @@ func (p Page) HasEquation(eq string) bool {
 	}
 	return false
 }
+
+// FactorRow is one categorical column in a watch page's panel, as text.
+type FactorRow struct {
+	Factor       string `json:"factor"`
+	Present      string `json:"present"`
+	Absent       string `json:"absent"`
+	Base         string `json:"base"`
+	DF           string `json:"df"`
+	GVIF         string `json:"gvif"`
+	GVIFAdjusted string `json:"gvifAdjusted"`
+}
+
+// Factors is the categorical-columns panel of a watch page.
+type Factors struct {
+	Shown bool        `json:"shown"`
+	Rows  []FactorRow `json:"rows"`
+	// Notes are the new-level lines.
+	Notes []string `json:"notes"`
+	// Vertices counts the points of each factor's line in the panel's
+	// chart of GVIF^(1/(2·df)), by factor.
+	Vertices map[string]int `json:"vertices"`
+}
+
+// FactorPanel reads the categorical-columns panel of the watch page
+// loaded in b.
+func FactorPanel(b *Browser) Factors {
+	return Eval[Factors](b, `(() => {
+		const sec = document.querySelector("section[data-panel=factors]");
+		if (!sec) return {shown: false, rows: [], notes: [], vertices: {}};
+		const vertices = {};
+		for (const p of sec.querySelectorAll("svg[data-chart=timeline] path[data-series^='factor:']")) {
+			vertices[p.dataset.series.slice(7)] = (p.getAttribute("d").match(/[ML]/g) || []).length;
+		}
+		const txt = e => e ? e.textContent.trim() : "";
+		return {
+			shown: true,
+			rows: [...sec.querySelectorAll("tr[data-factor]")].map(r => ({
+				factor: r.dataset.factor,
+				present: txt(r.querySelector("[data-levels=present]")),
+				absent: txt(r.querySelector("[data-levels=absent]")),
+				base: txt(r.cells[3]),
+				df: txt(r.cells[4]),
+				gvif: txt(r.querySelector("[data-value=gvif]")),
+				gvifAdjusted: txt(r.querySelector("[data-value=gvif_adjusted]")),
+			})),
+			notes: [...sec.querySelectorAll("li[data-new-level]")].map(txt),
+			vertices,
+		};
+	})()`)
+}
