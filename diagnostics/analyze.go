@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"reflect"
+	"slices"
 	"sort"
 	"strings"
 
@@ -252,6 +253,16 @@ func checkRows(m *stream.Moments, idx []int, names []string, k int, opt Options)
 func fptr(v float64) *float64 { return &v }
 
 func analyzeDesign(d *design, m *stream.Moments, opt Options, plans []*factorPlan) (*Report, error) {
+	for _, p := range plans {
+		for _, name := range p.kept {
+			if j := slices.Index(d.names, name); j >= 0 {
+				if d.dummy == nil {
+					d.dummy = make([]bool, len(d.names))
+				}
+				d.dummy[j] = true
+			}
+		}
+	}
 	c := m.Counts()
 	rep := &Report{
 		RowsUsed:    c.Used,

@@ -180,11 +180,20 @@ func (c *collin) reduceNullSpace() {
 				}
 			}
 		}
+		// Among the eligible columns a factor's dummy comes last in
+		// preference: "chlorine is fixed by the source" is written for
+		// chlorine whichever level is the base, so that each window
+		// names the same dependent column.
 		bi, bj := -1, -1
+		plain := false
 		for i := s; i < m; i++ {
 			for j := 0; j < nv; j++ {
-				if !isPiv[j] && math.Abs(a.at(i, j)) >= pivotFloor*best && j > bj {
-					bi, bj = i, j
+				if isPiv[j] || math.Abs(a.at(i, j)) < pivotFloor*best {
+					continue
+				}
+				p := !c.d.isDummy(c.vary[j])
+				if p && !plain || p == plain && j > bj {
+					bi, bj, plain = i, j, p
 				}
 			}
 		}

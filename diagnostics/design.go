@@ -50,6 +50,9 @@ type design struct {
 
 	constant  []bool
 	nearConst []bool
+	// dummy marks a factor's treatment dummies (nil without factors):
+	// an exact dependency is written for another column where it can be.
+	dummy []bool
 	// cpFallback records that the cross-product factor needed the
 	// eigenvalue fallback (the co-moments were not positive definite).
 	cpFallback bool
@@ -296,3 +299,6 @@ func designFromMoments(m *stream.Moments, idx []int, names []string, k int, hasY
 	d.finish()
 	return d
 }
+
+// isDummy reports whether design column j is a factor's treatment dummy.
+func (d *design) isDummy(j int) bool { return d.dummy != nil && d.dummy[j] }

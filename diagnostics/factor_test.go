@@ -419,10 +419,12 @@ func TestFactorWords(t *testing.T) {
 			"district_letter[N]",
 			[]string{"district and district_letter encode the same grouping: each level of one is one level of the other (east = E, north = N and south = S)"},
 			[]string{"district", "district_letter"}, ""},
+		// The numeric column is the dependent one whichever comes first:
+		// a dummy is written as dependent only when no other column can be.
 		{"roughness before material", []string{"roughness", "temperature", "pipe_material"}, nil,
-			"pipe_material[steel]",
+			"roughness",
 			[]string{"pipe_material determines roughness: roughness is fixed within each pipe_material level (cast_iron 0.26, pvc 0.0015, steel 0.045)"},
-			nil, ""},
+			[]string{"pipe_material"}, ""},
 		{"material fixes roughness", []string{"temperature", "pipe_material", "roughness"}, nil,
 			"roughness",
 			[]string{"pipe_material determines roughness: roughness is fixed within each pipe_material level (cast_iron 0.26, pvc 0.0015, steel 0.045)"},
