@@ -105,6 +105,11 @@ type Request struct {
 	SamplePct float64 // 0 or 100 means every row
 	Seed      int64
 
+	// Centres, optional, are provisional centres per column (e.g. a
+	// watch's previous means) that a pushdown shifts the values by where
+	// the database has no statistics.
+	Centres map[string]float64
+
 	QR bool // accumulate the QR factor as well as the moments
 	// Extended keeps the QR factor in double-double (stream.NewQRExtended):
 	// about ten times slower, for data whose float64 factor cannot be

@@ -91,6 +91,10 @@ func OpenConfig(ctx context.Context, cfg *pgxpool.Config, name string, opts conn
 	rp["standard_conforming_strings"] = "on"
 	rp["DateStyle"] = "ISO"
 	cfg.MaxConns = int32(max(opts.Parallel, 1) + 1)
+	if opts.Pushdown {
+		// Partitions are aggregated several at once.
+		cfg.MaxConns = int32(max(opts.Parallel, DefaultPushParallel) + 1)
+	}
 	cfg.MinConns = 0
 	pool, err := pgxpool.NewWithConfig(ctx, cfg)
 	if err != nil {

@@ -1,11 +1,15 @@
 package postgres
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"fmt"
 	"math"
+	"slices"
+	"strconv"
 	"strings"
+	"sync"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -23,41 +27,43 @@ const (
 	// without the updating aggregates), pushRegr for buckets and segments
 	// on PostgreSQL 12+.
 	pushAuto pushStrategy = iota
-	// pushRegr: regr_sxy and avg, which PostgreSQL 12 and later compute by
-	// the Youngs–Cramer updating algorithm per group and combine across
-	// parallel workers pairwise (float8_regr_accum, float8_regr_combine).
-	// Its error grows with a column's |mean|/spread, so columns whose
-	// provisional mean is large against their spread are shifted by it
-	// first. Each group is centred on its own mean, which a shift taken
-	// from the whole table is not, so buckets and segments use it.
+	// pushRegr: regr_sxy and avg of the shifted values, which PostgreSQL
+	// 12 and later compute by the Youngs–Cramer updating algorithm per
+	// group and combine across parallel workers pairwise
+	// (float8_regr_accum, float8_regr_combine). Each group is centred on
+	// its own mean, which a shift taken from the whole table is not, so
+	// buckets and segments use it.
 	pushRegr
 	// pushShifted: plain float8 sums of values and of products all
-	// shifted by provisional means, Σ(x−c) and Σ(x−c)(y−c′). The shifted
-	// values are computed once per row (see fence), so the aggregate costs
-	// little more than the bare sums of products; the updating aggregates
-	// cost half as much again.
+	// shifted by provisional centres, Σ(x−c) and Σ(x−c)(y−c′): little
+	// more than the bare sums of products; the updating aggregates cost
+	// half as much again.
 	pushShifted
 )
 
-// shiftRatio: under pushRegr, a column is shifted when its provisional
-// |mean| exceeds this many standard deviations (the Youngs–Cramer error is
-// about ε·√n·|mean|/sd, so at most ~1e-10 relative for 10⁸ rows).
-const shiftRatio = 100
+// DefaultPushParallel is how many partitions a pushdown aggregates at once
+// when Options.Parallel does not say.
+const DefaultPushParallel = 4
 
-// pushdownShiftRows is how many complete rows the shift query averages.
-const pushdownShiftRows = 1000
+// probeRows is how many complete rows a partition without statistics is
+// read for its provisional centres (see centres).
+const probeRows = 64
 
-// pushdown computes the accumulators inside PostgreSQL: a small count query
-// (rows, rows without a time, inexact values), one aggregate per bucket and
-// segment over the complete rows, and the per-column missing counts only
-// when rows were dropped. The server returns O(p²) numbers per group
-// whatever the number of rows.
+// pushdown computes the accumulators inside PostgreSQL. A partitioned
+// table is aggregated partition by partition (every leaf of
+// pg_partition_tree), several at once on their own connections, and the
+// partial moments are merged pairwise; anything else is one leaf.
 //
-// The aggregate first keeps the rows without NULLs, a test far cheaper than
-// two range comparisons per value. NaN and ±Infinity are rare in a table
-// and show in each group's min and max (PostgreSQL orders NaN above
-// +Infinity); only when one of them does is the aggregate run again over
-// the finite rows.
+// Each leaf costs one statement: per bucket, segment and completeness (all
+// values finite, a usable weight) the rows, the inexact values, and the
+// count, shifted sums, co-moments, min and max of the values. Its select
+// list holds nothing volatile and, for a foreign partition, nothing
+// postgres_fdw cannot send, so the shard computes its own part and returns
+// O(p²) numbers per group. The provisional centres and scales come from
+// the planner's statistics (pg_stats) at no scan's cost. A second
+// statement runs only when rows were dropped (their per-column missing
+// counts), and a third only when a product overflows float8 under scales
+// the statistics underestimated.
 func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connectors.Result, error) {
 	if req.QR || req.Extended {
 		return nil, fmt.Errorf("--pushdown returns cross-products, not the QR factor; scan without --pushdown for QR accuracy: %w", connectors.ErrUnsupported)
@@ -77,7 +83,15 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 	if _, err := tx.Exec(ctx, "SET LOCAL jit = off"); err != nil {
 		return nil, s.wrap(err, "SET jit")
 	}
-	t, plan, st, err := s.prepare(ctx, tx, req)
+	t, err := s.describe(ctx, tx, req)
+	if err != nil {
+		return nil, err
+	}
+	plan, err := connectors.Resolve(t.source, t.cols, req, connectors.KindTime)
+	if err != nil {
+		return nil, err
+	}
+	where, err := connectors.CheckWhere(req.Where, connectors.Postgres)
 	if err != nil {
 		return nil, err
 	}
@@ -91,155 +105,342 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 	if strategy == pushRegr && plan.Weight != nil {
 		return nil, fmt.Errorf("%s: weighted pushdown needs the shifted sums: %w", t.source, connectors.ErrUnsupported)
 	}
-	pd, err := newPush(t, plan, st)
+	leaves, err := s.leaves(ctx, tx, t)
 	if err != nil {
 		return nil, err
+	}
+	cs, err := s.centres(ctx, tx, t, leaves, plan)
+	if err != nil {
+		return nil, err
+	}
+	pds := make([]*push, len(leaves))
+	for i, l := range leaves {
+		if pds[i], err = s.newPush(t, l, plan, where, req, strategy); err != nil {
+			return nil, err
+		}
+		pds[i].setCentres(cs.forLeaf(i, plan, req.Centres))
 	}
 	res := &connectors.Result{
 		Columns:    plan.Names(),
 		Sampled:    req.SamplePct > 0 && req.SamplePct < 100,
 		Inexact:    make([]int64, len(plan.Values)),
 		Skipped:    plan.Skipped,
-		Partitions: 1,
+		Partitions: len(leaves),
 		Pushdown:   true,
 	}
-	rowsIn := map[gkey]int64{}
-	var order []gkey
-
-	// 1. Rows per group, rows without a time, inexact values.
-	rows, err := tx.Query(ctx, pd.countSQL())
+	outs, err := s.runLeaves(ctx, tx, pds)
 	if err != nil {
-		return nil, s.wrap(err, t.source)
+		return nil, err
 	}
+	parts := make([][]connectors.Group, len(outs))
+	for i, o := range outs {
+		res.Read += o.read
+		res.NoTime += o.noTime
+		for j, n := range o.inexact {
+			res.Inexact[j] += n
+		}
+		parts[i] = o.groups
+	}
+	if res.Groups, err = connectors.MergeGroups(parts, plan.MaxSegments); err != nil {
+		return nil, fmt.Errorf("%s: segment column %q: %w", t.source, plan.Segment.Name, err)
+	}
+	return res, nil
+}
+
+// leaf is one relation a pushdown aggregates: a leaf partition, or the
+// target itself.
+type leaf struct {
+	name    connectors.Name
+	relkind string // "f" for a foreign table
+	self    bool   // the target itself, not one of its partitions
+}
+
+// leaves lists the leaf partitions of a partitioned table, at any depth,
+// in pg_partition_tree's order; any other target is its own leaf.
+func (s *Source) leaves(ctx context.Context, tx pgx.Tx, t *target) ([]leaf, error) {
+	if t.table == nil || t.relkind != "p" {
+		l := leaf{self: true, relkind: t.relkind}
+		if t.table != nil {
+			l.name = *t.table
+		}
+		return []leaf{l}, nil
+	}
+	rows, err := tx.Query(ctx, `SELECT n.nspname, c.relname, c.relkind::text
+		FROM pg_partition_tree($1::regclass) p
+			JOIN pg_class c ON c.oid = p.relid JOIN pg_namespace n ON n.oid = c.relnamespace
+		WHERE p.isleaf ORDER BY p.level, c.oid`, t.oid)
+	if err != nil {
+		return nil, s.wrap(err, t.source+": listing partitions")
+	}
+	var out []leaf
 	err = forRows(rows, func(v []any) error {
-		k, ok := pd.key(v)
-		n := v[2].(int64)
-		res.Read += n
-		for i, j := range pd.lay.flags {
-			res.Inexact[j] += v[3+i].(int64)
-		}
-		if !ok {
-			res.NoTime += n
-			return nil
-		}
-		rowsIn[k] = n
-		order = append(order, k)
+		out = append(out, leaf{name: connectors.Name{Schema: v[0].(string), Table: v[1].(string)}, relkind: v[2].(string)})
 		return nil
 	})
 	if err != nil {
-		return nil, s.wrap(err, t.source)
+		return nil, s.wrap(err, t.source+": listing partitions")
 	}
-	if err := pd.checkSegments(order, plan.MaxSegments); err != nil {
-		return nil, err
-	}
+	return out, nil
+}
 
-	// 2. The aggregate over complete rows, on values shifted and scaled
-	// by figures from the first rows. Should the first rows be far
-	// smaller than the rest (a product then overflows, which PostgreSQL
-	// reports as an error), the scales are taken from the whole table and
-	// the aggregate runs again.
-	if err := pd.shift(ctx, tx, s, strategy == pushShifted); err != nil {
-		return nil, err
-	}
-	groups, err := pd.aggregateOnce(ctx, tx, strategy, order, rowsIn)
-	if outOfRange(err) {
-		if err = pd.tableScales(ctx, tx); err == nil {
-			groups, err = pd.aggregateOnce(ctx, tx, strategy, order, rowsIn)
+// leafOut is what the aggregate of one leaf returned.
+type leafOut struct {
+	groups  []connectors.Group
+	read    int64
+	noTime  int64
+	inexact []int64
+}
+
+// runLeaves aggregates the leaves, at most Options.Parallel (or
+// DefaultPushParallel) at once: the first on tx, the others on their own
+// connections in transactions that import tx's snapshot, so that every
+// local partition is read as of one moment. (A foreign partition is read
+// in its own server's snapshot, which postgres_fdw opens per connection.)
+// Nothing is returned unless every leaf succeeded.
+func (s *Source) runLeaves(ctx context.Context, tx pgx.Tx, pds []*push) ([]leafOut, error) {
+	outs := make([]leafOut, len(pds))
+	if len(pds) == 1 {
+		o, err := pds[0].run(ctx, tx, s)
+		if err != nil {
+			return nil, err
 		}
+		outs[0] = o
+		return outs, nil
+	}
+	var snap string
+	if err := tx.QueryRow(ctx, "SELECT pg_export_snapshot()").Scan(&snap); err != nil {
+		return nil, s.wrap(err, "exporting the snapshot for the partitions")
+	}
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	k := s.opts.Parallel
+	if k <= 1 {
+		k = DefaultPushParallel
+	}
+	errs := make([]error, len(pds))
+	next := make(chan int, len(pds))
+	for i := 1; i < len(pds); i++ {
+		next <- i
+	}
+	close(next)
+	var wg sync.WaitGroup
+	work := func(i int, tx pgx.Tx) {
+		defer func() {
+			if p := recover(); p != nil {
+				errs[i] = fmt.Errorf("%s: aggregating panicked: %v (a bug in plumb; please report it)", pds[i].source, p)
+				cancel()
+			}
+		}()
+		o, err := pds[i].run(ctx, tx, s)
+		if err != nil {
+			errs[i] = err
+			cancel()
+			return
+		}
+		outs[i] = o
+	}
+	// The first leaf on tx, then whatever is left.
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		work(0, tx)
+		for i := range next {
+			work(i, tx)
+		}
+	}()
+	for w := 1; w < min(k, len(pds)); w++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			conn, err := s.pool.Acquire(ctx)
+			if err != nil {
+				for i := range next {
+					errs[i] = s.wrap(err, "cannot connect")
+					cancel()
+				}
+				return
+			}
+			defer conn.Release()
+			wtx, err := conn.BeginTx(ctx, pgx.TxOptions{AccessMode: pgx.ReadOnly, IsoLevel: pgx.RepeatableRead})
+			if err == nil {
+				defer wtx.Rollback(context.Background())
+				_, err = wtx.Exec(ctx, "SET TRANSACTION SNAPSHOT "+quoteLiteral(snap))
+			}
+			if err == nil {
+				_, err = wtx.Exec(ctx, "SET LOCAL jit = off")
+			}
+			if err != nil {
+				for i := range next {
+					errs[i] = s.wrap(err, "importing the snapshot for the partitions")
+					cancel()
+				}
+				return
+			}
+			for i := range next {
+				work(i, wtx)
+			}
+		}()
+	}
+	wg.Wait()
+	var first error
+	for _, err := range errs {
+		if err != nil && (first == nil || (isCancel(first) && !isCancel(err))) {
+			first = err
+		}
+	}
+	if first != nil {
+		return nil, first
+	}
+	return outs, nil
+}
+
+// run aggregates one leaf on tx: one group per complete fine group the
+// statement returned, and one without rows per key that dropped rows,
+// carrying their counts; MergeGroups folds them by key.
+func (pd *push) run(ctx context.Context, tx pgx.Tx, s *Source) (leafOut, error) {
+	if pd.needProbe {
+		if err := pd.probe(ctx, tx); err != nil {
+			return leafOut{}, s.wrap(err, pd.source)
+		}
+	}
+	out, drop, err := pd.aggregateOnce(ctx, tx)
+	if outOfRange(err) {
+		// The statistics underestimated a column's magnitude and a
+		// product overflowed: take the scales from the leaf's extremes.
+		if err = pd.tableScales(ctx, tx); err == nil {
+			out, drop, err = pd.aggregateOnce(ctx, tx)
+		}
+	}
+	if errors.Is(err, connectors.ErrTooManySegments) {
+		return out, err
 	}
 	if err != nil {
-		return nil, s.wrap(err, t.source)
+		return out, s.wrap(err, pd.source)
 	}
-
-	// 3. Missing counts, only when rows were dropped.
-	dropped := false
-	for _, st := range groups {
-		st.Dropped -= st.Used
-		dropped = dropped || st.Dropped > 0
-	}
-	if dropped {
-		rows, err = tx.Query(ctx, pd.missingSQL())
+	if len(drop) > 0 {
+		rows, err := tx.Query(ctx, pd.missingSQL())
 		if err != nil {
-			return nil, s.wrap(err, t.source)
+			return out, s.wrap(err, pd.source)
 		}
+		miss := map[gkey][]int64{}
 		err = forRows(rows, func(v []any) error {
 			k, ok := pd.key(v)
-			if st := groups[k]; ok && st != nil {
-				pd.fillMissing(st, v[2:])
+			if !ok {
+				return nil
+			}
+			m := miss[k]
+			if m == nil {
+				m = make([]int64, 1+3*pd.p)
+				miss[k] = m
+			}
+			for i, x := range v[pd.nkeys:] {
+				m[i] += x.(int64)
 			}
 			return nil
 		})
 		if err != nil {
-			return nil, s.wrap(err, t.source)
+			return out, s.wrap(err, pd.source)
+		}
+		for _, k := range sortedKeys(drop) {
+			st := pd.newStats()
+			st.Dropped = drop[k]
+			if m := miss[k]; m != nil {
+				pd.fillMissing(st, m)
+			}
+			m, err := st.Moments()
+			if err != nil {
+				return out, err
+			}
+			out.groups = append(out.groups, connectors.Group{Key: pd.groupKey(k), Moments: m})
 		}
 	}
-	for _, k := range order {
-		m, err := groups[k].Moments()
-		if err != nil {
-			return nil, err
-		}
-		var key connectors.Key
-		if plan.Time != nil {
-			key.Bucket = time.UnixMicro(k.bucket).In(plan.Location)
-		}
-		key.Segment = k.seg
-		res.Groups = append(res.Groups, connectors.Group{Key: key, Moments: m})
+	return out, nil
+}
+
+func sortedKeys(m map[gkey]int64) []gkey {
+	out := make([]gkey, 0, len(m))
+	for k := range m {
+		out = append(out, k)
 	}
-	connectors.SortGroups(res.Groups)
-	return res, nil
+	slices.SortFunc(out, func(a, b gkey) int {
+		if a.bucket != b.bucket {
+			return cmp.Compare(a.bucket, b.bucket)
+		}
+		return strings.Compare(a.seg, b.seg)
+	})
+	return out
+}
+
+func (pd *push) groupKey(k gkey) connectors.Key {
+	var key connectors.Key
+	if pd.plan.Time != nil {
+		key.Bucket = time.UnixMicro(k.bucket).In(pd.plan.Location)
+	}
+	key.Segment = k.seg
+	return key
 }
 
 // aggregateOnce runs the aggregate inside a savepoint, so that an error
 // (a value out of range) leaves the transaction usable for a retry.
-func (pd *push) aggregateOnce(ctx context.Context, tx pgx.Tx, strategy pushStrategy, order []gkey, rowsIn map[gkey]int64) (map[gkey]*connectors.Stats, error) {
+func (pd *push) aggregateOnce(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int64, error) {
 	sp, err := tx.Begin(ctx)
 	if err != nil {
-		return nil, err
+		return leafOut{}, nil, err
 	}
-	groups, err := pd.aggregate(ctx, sp, strategy, order, rowsIn)
+	out, drop, err := pd.aggregate(ctx, sp)
 	if err != nil {
 		sp.Rollback(context.Background())
-		return nil, err
+		return leafOut{}, nil, err
 	}
-	return groups, sp.Commit(ctx)
+	return out, drop, sp.Commit(ctx)
 }
 
-// aggregate runs the aggregate over complete rows: first over the rows
-// without NULLs, again over the finite ones if a NaN or an infinity showed.
-func (pd *push) aggregate(ctx context.Context, tx pgx.Tx, strategy pushStrategy, order []gkey, rowsIn map[gkey]int64) (map[gkey]*connectors.Stats, error) {
-	var groups map[gkey]*connectors.Stats
-	for _, cond := range []string{pd.notNull(), pd.ok()} {
-		groups = make(map[gkey]*connectors.Stats, len(order))
-		for _, k := range order {
-			st := pd.newStats()
-			st.Dropped = rowsIn[k] // until the aggregate says how many were used
-			groups[k] = st
-		}
-		rows, err := tx.Query(ctx, pd.aggSQL(strategy, cond), pgx.QueryResultFormats{pgx.BinaryFormatCode})
-		if err != nil {
-			return nil, err
-		}
-		err = forRows(rows, func(v []any) error {
-			k, _ := pd.key(v)
-			if v[2].(int64) == 0 {
-				return nil // an ungrouped aggregate over no rows
-			}
-			st := groups[k]
-			if st == nil {
-				return fmt.Errorf("aggregate returned a group the count did not: %v", k)
-			}
-			return pd.fill(st, v[2:], strategy)
-		})
-		if err != nil {
-			return nil, err
-		}
-		if allFinite(groups) {
-			break
-		}
+// aggregate runs the leaf's one statement: a group per complete fine
+// group (a bucket's rows may come in several, see binExpr), and the rows
+// dropped per key.
+func (pd *push) aggregate(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int64, error) {
+	out := leafOut{inexact: make([]int64, pd.p)}
+	drop := map[gkey]int64{}
+	segs := map[string]bool{}
+	rows, err := tx.Query(ctx, pd.aggSQL(), pgx.QueryResultFormats{pgx.BinaryFormatCode})
+	if err != nil {
+		return out, nil, err
 	}
-	return groups, nil
+	err = forRows(rows, func(v []any) error {
+		k, valid := pd.key(v)
+		i := pd.nkeys
+		complete, _ := v[i].(bool)
+		n := v[i+1].(int64)
+		out.read += n
+		for f, j := range pd.lay.flags {
+			out.inexact[j] += v[i+2+f].(int64)
+		}
+		if !valid {
+			out.noTime += n
+			return nil
+		}
+		if pd.plan.Segment != nil && !segs[k.seg] {
+			segs[k.seg] = true
+			if len(segs) > pd.plan.MaxSegments {
+				return fmt.Errorf("%s: segment column %q: more than %d distinct segments (raise the limit or pick a coarser segment column): %w",
+					pd.source, pd.plan.Segment.Name, pd.plan.MaxSegments, connectors.ErrTooManySegments)
+			}
+		}
+		if !complete {
+			drop[k] += n
+			return nil
+		}
+		st := pd.newStats()
+		pd.fill(st, n, v[i+2+len(pd.lay.flags):])
+		m, err := st.Moments()
+		if err != nil {
+			return err
+		}
+		out.groups = append(out.groups, connectors.Group{Key: pd.groupKey(k), Moments: m})
+		return nil
+	})
+	return out, drop, err
 }
-
 // outOfRange reports whether err is PostgreSQL's "value out of range"
 // (float8 overflow or underflow, SQLSTATE 22003).
 func outOfRange(err error) bool {
@@ -266,33 +467,82 @@ func forRows(rows pgx.Rows, fn func([]any) error) error {
 	return rows.Err()
 }
 
-// push builds the pushdown statements over one inner SELECT whose columns
-// are bk (bucket), sk (segment), w (weight), x1…xp and f1… (inexact flags).
+
+// push builds the statements of one leaf over its inner SELECT, whose
+// columns are the keys (bk bucket, sk segment; only those the plan has),
+// w (weight), x0… (values) and f0… (inexact flags).
 type push struct {
-	t       *target
-	plan    *connectors.Plan
-	lay     layout
-	inner   string
-	p       int
-	shiftBy []float64 // c, per column (0: not shifted)
-	scaleBy []float64 // s, per column: powers of two (stream.ScaleFor)
+	source   string // the leaf, for messages
+	plan     *connectors.Plan
+	strategy pushStrategy
+	lay      layout
+	inner    string
+	p        int
+	nkeys    int
+	// ship: the leaf is a foreign table. Its statement keeps every
+	// expression inline over the foreign columns, and only immutable
+	// built-in functions and operators free of collations, which
+	// postgres_fdw sends to the shard with the aggregate; the keys are
+	// the raw segment value and a fine time bin (binExpr), turned into
+	// bucket and segment keys here.
+	ship     bool
+	timeBase uint32 // base type of the time column
+	segRaw   bool   // sk is the raw segment value (ship), not its key
+
+	shiftBy   []float64 // c, per column (0: not shifted)
+	scaleBy   []float64 // s, per column: powers of two (stream.ScaleFor)
+	needProbe bool      // no statistics: take the centres from a few rows
 }
 
-func newPush(t *target, plan *connectors.Plan, st stmt) (*push, error) {
-	pd := &push{t: t, plan: plan, p: len(plan.Values)}
-	list := []string{"NULL::timestamptz AS bk", "NULL::text AS sk"}
+func (s *Source) newPush(t *target, l leaf, plan *connectors.Plan, where string, req connectors.Request, strategy pushStrategy) (*push, error) {
+	pd := &push{source: t.source, plan: plan, strategy: strategy, p: len(plan.Values), ship: l.relkind == "f"}
+	lt := *t
+	if !l.self {
+		lt.table = &l.name
+		lt.relkind = l.relkind
+		pd.source = t.source + " partition " + l.name.Quoted()
+	}
+	var hashSample float64
+	if pd.ship && req.SamplePct > 0 && req.SamplePct < 100 {
+		// TABLESAMPLE cannot be applied to a foreign table: a shippable
+		// filter on a hash of the row's values takes its place.
+		hashSample = req.SamplePct
+		req.SamplePct = 0
+	}
+	st, err := s.baseStmt(&lt, where, req)
+	if err != nil {
+		return nil, err
+	}
+	var list []string
 	if plan.Time != nil {
-		zone, err := zoneLiteral(plan.Location)
-		if err != nil {
-			return nil, err
+		pd.timeBase = t.base[plan.Time.Name]
+		if pd.ship {
+			list = append(list, binExpr(plan.Time.Name, pd.timeBase, plan.Bucket, plan.Location)+" AS bk")
+		} else {
+			zone, err := zoneLiteral(plan.Location)
+			if err != nil {
+				return nil, err
+			}
+			list = append(list, bucketExpr(plan.Time.Name, pd.timeBase, plan.Bucket, zone)+" AS bk")
 		}
-		list[0] = bucketExpr(plan.Time.Name, t.base[plan.Time.Name], plan.Bucket, zone) + " AS bk"
 	}
 	if plan.Segment != nil {
-		// The segment key (connectors.SegmentKey), NULL as NullSegment.
-		list[1] = "coalesce(" + quoteLiteral(connectors.SegmentPrefix) + " || " + connectors.QuoteIdent(plan.Segment.Name) + "::text, " +
-			quoteLiteral(connectors.NullSegment) + ") AS sk"
+		q := connectors.QuoteIdent(plan.Segment.Name)
+		switch b := t.base[plan.Segment.Name]; {
+		case pd.ship && rawSegment(b):
+			list = append(list, q+" AS sk")
+			pd.segRaw = true
+		case pd.ship:
+			// Not shippable (a cast to text), but correct.
+			list = append(list, q+"::text AS sk")
+			pd.segRaw = true
+		default:
+			// The segment key (connectors.SegmentKey), NULL as NullSegment.
+			list = append(list, "coalesce("+quoteLiteral(connectors.SegmentPrefix)+" || "+q+"::text, "+
+				quoteLiteral(connectors.NullSegment)+") AS sk")
+		}
 	}
+	pd.nkeys = len(list)
 	if plan.Weight != nil {
 		list = append(list, valueExpr(plan.Weight.Name, t.base[plan.Weight.Name])+" AS w")
 	}
@@ -305,23 +555,83 @@ func newPush(t *target, plan *connectors.Plan, st stmt) (*push, error) {
 			pd.lay.flags = append(pd.lay.flags, j)
 		}
 	}
-	pd.inner = st.sql(list)
+	var extra []string
+	if hashSample > 0 {
+		extra = append(extra, hashSampleCond(t, plan, hashSample, req.Seed))
+	}
+	pd.inner = st.sql(list, extra...)
+	if t.query != "" {
+		// The query's WITH must stay at the top: wrap the whole statement.
+		pd.inner = "\n" + pd.inner + "\n"
+	}
 	return pd, nil
 }
 
-func (pd *push) from() string {
-	if pd.t.query != "" {
-		// The query's WITH must stay at the top: wrap the whole statement.
-		return "(\n" + pd.inner + "\n) AS r"
+// rawSegment reports whether a segment column of this base type is read
+// raw and keyed here: text and varchar as they are, integers and booleans
+// as PostgreSQL writes them.
+func rawSegment(base uint32) bool {
+	const pgText, pgVarchar = 25, 1043 // pg_type.dat
+	switch base {
+	case pgText, pgVarchar, oidInt2, oidInt4, oidInt8, oidBool:
+		return true
 	}
-	return "(" + pd.inner + ") AS r"
+	return false
 }
 
-// ok is the condition for a complete row: every value finite (NULL fails
-// both comparisons, and PostgreSQL sorts NaN above +Inf) and a usable
-// weight. Range comparisons, unlike x − x = 0, leave the planner a sound
-// row estimate, so it keeps the parallel partial aggregation.
-func (pd *push) ok() string {
+// binExpr is a shippable fine time bin of a foreign partition's time
+// column: date_trunc and AT TIME ZONE take a text argument, which
+// postgres_fdw does not send, so the bin is the date itself, or
+// date_bin of a fixed stride that nests in the bucket (an hour or a day,
+// a week from a Monday; a quarter of an hour for timestamptz in a zone
+// other than UTC, as every zone's offset is a multiple of it). The
+// buckets are floored from the bins here (keyTime); infinite times stay
+// infinite.
+func binExpr(col string, base uint32, unit string, loc *time.Location) string {
+	q := connectors.QuoteIdent(col)
+	stride := "'1 day'::interval"
+	switch unit {
+	case "hour":
+		stride = "'1 hour'::interval"
+	case "week":
+		stride = "'7 days'::interval"
+	}
+	switch base {
+	case oidTimestamp:
+		return "date_bin(" + stride + ", " + q + ", '2000-01-03 00:00:00'::timestamp)"
+	case oidTimestamptz:
+		if loc.String() != "UTC" {
+			stride = "'15 minutes'::interval"
+		}
+		return "date_bin(" + stride + ", " + q + ", '2000-01-03 00:00:00+00'::timestamptz)"
+	}
+	return q // a date
+}
+
+// hashSampleCond keeps about pct percent of a foreign partition's rows,
+// chosen by a hash of their values and the seed (rows with the same values
+// are kept or left out together): immutable functions and operators that
+// postgres_fdw sends, where TABLESAMPLE cannot go.
+func hashSampleCond(t *target, plan *connectors.Plan, pct float64, seed int64) string {
+	var h []string
+	cols := append([]connectors.Column(nil), plan.Values...)
+	if plan.Weight != nil {
+		cols = append(cols, *plan.Weight)
+	}
+	for _, c := range cols {
+		v := valueExpr(c.Name, t.base[c.Name])
+		h = append(h, fmt.Sprintf("CASE WHEN %s IS NULL THEN 0::int8 ELSE hashfloat8extended(%s, %d::int8) END", v, v, seed))
+	}
+	limit := int64(math.Round(pct / 100 * (1 << 20)))
+	return fmt.Sprintf("((%s) & 1048575::int8) < %d::int8", strings.Join(h, " # "), limit)
+}
+
+func (pd *push) from() string { return "(" + pd.inner + ") AS r" }
+
+// okExpr is true for a complete row: every value finite and a usable
+// weight; false or NULL otherwise (NULL fails both comparisons, and
+// PostgreSQL sorts NaN above +Infinity).
+func (pd *push) okExpr() string {
 	var c []string
 	for j := 0; j < pd.p; j++ {
 		c = append(c, fmt.Sprintf("x%d > '-Infinity'::float8 AND x%d < 'Infinity'::float8", j, j))
@@ -329,128 +639,22 @@ func (pd *push) ok() string {
 	if pd.plan.Weight != nil {
 		c = append(c, pd.wok())
 	}
-	if pd.plan.Time != nil {
-		c = append(c, "bk IS NOT NULL")
-	}
-	return strings.Join(c, " AND ")
-}
-
-// notNull is the first, cheaper condition for a complete row: no NULL
-// value or weight, and a time. A NaN or an infinity passes it; allFinite
-// finds them afterwards. With a weight it is ok, as a weight's sign is not
-// in the aggregate's min and max.
-func (pd *push) notNull() string {
-	if pd.plan.Weight != nil {
-		return pd.ok()
-	}
-	var c []string
-	for j := 0; j < pd.p; j++ {
-		c = append(c, fmt.Sprintf("x%d IS NOT NULL", j))
-	}
-	if pd.plan.Time != nil {
-		c = append(c, "bk IS NOT NULL")
-	}
-	return strings.Join(c, " AND ")
-}
-
-// allFinite reports whether every value the aggregate folded in was finite:
-// a NaN makes a column's max NaN (PostgreSQL sorts it above +Infinity),
-// +Infinity its max and -Infinity its min.
-func allFinite(groups map[gkey]*connectors.Stats) bool {
-	for _, st := range groups {
-		if st.Used == 0 {
-			continue
-		}
-		for j := range st.Min {
-			if !(st.Min[j] > math.Inf(-1) && st.Max[j] < math.Inf(1)) {
-				return false
-			}
-		}
-	}
-	return true
+	return "(" + strings.Join(c, " AND ") + ")"
 }
 
 // wok mirrors the stream package: a weight is usable when 0 ≤ w < +Inf
 // (NaN compares above +Inf in PostgreSQL, so it fails too).
-func (pd *push) wok() string { return "(w >= 0 AND w < 'Infinity'::float8)" }
+func (pd *push) wok() string { return "(w >= 0::float8 AND w < 'Infinity'::float8)" }
 
-func (pd *push) countSQL() string {
-	list := []string{"bk", "sk", "count(*)"}
-	for i := range pd.lay.flags {
-		list = append(list, fmt.Sprintf("count(*) FILTER (WHERE f%d)", i))
+func (pd *push) keyList() []string {
+	var k []string
+	if pd.plan.Time != nil {
+		k = append(k, "bk")
 	}
-	return "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from() + " GROUP BY bk, sk"
-}
-
-// shift takes provisional scales, means and spreads from the first
-// complete rows (cheap queries: they stop after pushdownShiftRows rows).
-// The scales come first, from the largest magnitudes, with nothing summed
-// (PostgreSQL's avg and stddev of values near 1e200 overflow); the means
-// and spreads are then taken of the scaled values. With all set, every
-// column is shifted; otherwise only those whose mean is large against
-// their spread.
-func (pd *push) shift(ctx context.Context, tx pgx.Tx, s *Source, all bool) error {
-	sample := " FROM (SELECT * FROM " + pd.from() + " WHERE " + pd.ok() + fmt.Sprintf(" LIMIT %d) AS s", pushdownShiftRows)
-	list := make([]string, 0, 2*pd.p)
-	for j := 0; j < pd.p; j++ {
-		list = append(list, fmt.Sprintf("coalesce(max(abs(x%d)), 0)", j))
+	if pd.plan.Segment != nil {
+		k = append(k, "sk")
 	}
-	mag := make([]float64, pd.p)
-	dst := make([]any, pd.p)
-	for j := range mag {
-		dst[j] = &mag[j]
-	}
-	if err := tx.QueryRow(ctx, "SELECT "+strings.Join(list, ", ")+sample).Scan(dst...); err != nil {
-		return s.wrap(err, pd.t.source)
-	}
-	pd.scaleBy = make([]float64, pd.p)
-	pd.shiftBy = make([]float64, pd.p)
-	for j, v := range mag {
-		pd.scaleBy[j] = stream.ScaleFor(0, v)
-	}
-	list = list[:0]
-	for j := 0; j < pd.p; j++ {
-		e := pd.valueExpr(j)
-		list = append(list, fmt.Sprintf("coalesce(avg(%s), 0)", e), fmt.Sprintf("coalesce(stddev_pop(%s), 0)", e))
-	}
-	mean := make([]float64, pd.p) // of the scaled values
-	sd := make([]float64, pd.p)
-	dst = dst[:0]
-	for j := 0; j < pd.p; j++ {
-		dst = append(dst, &mean[j], &sd[j])
-	}
-	if err := tx.QueryRow(ctx, "SELECT "+strings.Join(list, ", ")+sample).Scan(dst...); err != nil {
-		return s.wrap(err, pd.t.source)
-	}
-	for j := range mean {
-		if all || math.Abs(mean[j]) > shiftRatio*sd[j] {
-			pd.shiftBy[j] = mean[j] * pd.scaleBy[j]
-		}
-	}
-	return nil
-}
-
-// tableScales takes the scales from the whole table's complete rows (a
-// full pass of min and max, nothing summed): for when the first rows were
-// not representative of the magnitudes.
-func (pd *push) tableScales(ctx context.Context, tx pgx.Tx) error {
-	list := make([]string, 0, 2*pd.p)
-	for j := 0; j < pd.p; j++ {
-		list = append(list, fmt.Sprintf("coalesce(min(x%d), 0)", j), fmt.Sprintf("coalesce(max(x%d), 0)", j))
-	}
-	lo := make([]float64, pd.p)
-	hi := make([]float64, pd.p)
-	dst := make([]any, 0, 2*pd.p)
-	for j := range lo {
-		dst = append(dst, &lo[j], &hi[j])
-	}
-	if err := tx.QueryRow(ctx, "SELECT "+strings.Join(list, ", ")+" FROM "+pd.from()+" WHERE "+pd.ok()).Scan(dst...); err != nil {
-		return err
-	}
-	for j := range lo {
-		pd.scaleBy[j] = stream.ScaleFor(lo[j], hi[j])
-	}
-	return nil
+	return k
 }
 
 // valueExpr is column j as aggregated, in the inner SELECT's terms: the
@@ -471,54 +675,66 @@ func (pd *push) valueExpr(j int) string {
 	return fmt.Sprintf("(x%d * %s - %s)", j, float8Literal(inv), float8Literal(cs))
 }
 
-// grouped reports whether the aggregate has groups: without a time or a
-// segment it has none, and no GROUP BY.
-func (pd *push) grouped() bool { return pd.plan.Time != nil || pd.plan.Segment != nil }
-
-// aggSQL is the aggregate over the rows meeting cond: per group the rows
-// used, the sums (Σ(x−c)/s, or avg for pushRegr), the cross-products
-// (Σ(x−c)(y−c′)/(s·s′), or regr_sxy) and each column's min and max.
+// aggSQL is the leaf's one statement: per key and completeness, the rows,
+// the inexact values, and the aggregates (the sums Σ(x−c)/s, or avg for
+// pushRegr; the cross-products Σ(x−c)(y−c′)/(s·s′), or regr_sxy; each
+// column's min and max).
 //
-// The shifted values are computed once per row, in a subquery that
-// PostgreSQL cannot flatten into the aggregate because its select list
-// calls a volatile function (clock_timestamp(), which is parallel safe, so
-// the parallel partial aggregation stays): flattened, every x − c would be
-// evaluated again in each of the p(p+1)/2 products, which costs more than
-// the products themselves. An engine that flattens it anyway computes the
-// same sums, only slower.
-func (pd *push) aggSQL(strategy pushStrategy, cond string) string {
-	sub := []string{"bk", "sk"}
-	if pd.plan.Weight != nil {
-		sub = append(sub, "w")
-	}
-	fence := false
+// On a local leaf the shifted values are computed once per row, in a
+// subquery that PostgreSQL does not flatten into the aggregate because it
+// has a WITH clause (an empty one, never run; nothing volatile, and the
+// parallel partial aggregation stays): flattened, every x − c would be
+// evaluated again in each of the p(p+1)/2 products, which costs as much
+// as the products themselves. A foreign leaf keeps them inline, so that
+// the planner sees an aggregate over the foreign table alone and
+// postgres_fdw sends all of it to the shard (a subquery it cannot send);
+// the shard then pays for the repeated shifts.
+func (pd *push) aggSQL() string {
+	keys := pd.keyList()
 	d := make([]string, pd.p)  // column j as aggregated
 	wd := make([]string, pd.p) // w·d_j under a weight
-	for j := 0; j < pd.p; j++ {
-		sub = append(sub, fmt.Sprintf("x%d", j))
-		d[j] = fmt.Sprintf("x%d", j)
-		e := pd.valueExpr(j) // d_j in the subquery's own terms
-		if e != d[j] {
-			sub = append(sub, e+fmt.Sprintf(" AS d%d", j))
-			d[j] = fmt.Sprintf("d%d", j)
-			fence = true
+	ok := "ok"
+	var src string
+	if pd.ship {
+		for j := range d {
+			d[j] = pd.valueExpr(j)
+			wd[j] = d[j]
+			if pd.plan.Weight != nil {
+				wd[j] = "w * " + d[j]
+			}
 		}
-		wd[j] = d[j]
+		ok = pd.okExpr()
+		src = pd.from()
+	} else {
+		sub := append(slices.Clone(keys), pd.okExpr()+" AS ok")
 		if pd.plan.Weight != nil {
-			sub = append(sub, fmt.Sprintf("w * %s AS wd%d", e, j))
-			wd[j] = fmt.Sprintf("wd%d", j)
-			fence = true
+			sub = append(sub, "w")
 		}
+		for j := 0; j < pd.p; j++ {
+			sub = append(sub, fmt.Sprintf("x%d", j))
+			d[j] = fmt.Sprintf("x%d", j)
+			e := pd.valueExpr(j) // d_j in the subquery's own terms
+			if e != d[j] {
+				sub = append(sub, e+fmt.Sprintf(" AS d%d", j))
+				d[j] = fmt.Sprintf("d%d", j)
+			}
+			wd[j] = d[j]
+			if pd.plan.Weight != nil {
+				sub = append(sub, fmt.Sprintf("w * %s AS wd%d", e, j))
+				wd[j] = fmt.Sprintf("wd%d", j)
+			}
+		}
+		for f := range pd.lay.flags {
+			sub = append(sub, fmt.Sprintf("f%d", f))
+		}
+		src = "(WITH plumb_fence AS (SELECT) SELECT " + strings.Join(sub, ", ") + " FROM " + pd.from() + ") AS s"
 	}
-	if fence {
-		sub = append(sub, "clock_timestamp() AS plumb_fence")
+	list := append(slices.Clone(keys), ok, "count(*)")
+	for f := range pd.lay.flags {
+		list = append(list, fmt.Sprintf("count(*) FILTER (WHERE f%d)", f))
 	}
-	list := []string{"NULL::timestamptz", "NULL::text", "count(*)"}
-	if pd.grouped() {
-		list[0], list[1] = "bk", "sk"
-	}
-	switch {
-	case strategy == pushRegr:
+	switch pd.strategy {
+	case pushRegr:
 		for j := 0; j < pd.p; j++ {
 			list = append(list, "avg("+d[j]+")")
 		}
@@ -545,22 +761,28 @@ func (pd *push) aggSQL(strategy pushStrategy, cond string) string {
 	for j := 0; j < pd.p; j++ {
 		list = append(list, fmt.Sprintf("min(x%d)", j), fmt.Sprintf("max(x%d)", j))
 	}
-	q := "SELECT " + strings.Join(list, ", ") + " FROM (SELECT " + strings.Join(sub, ", ") + " FROM " + pd.from() + " WHERE " + cond + ") AS s"
-	if pd.grouped() {
-		q += " GROUP BY bk, sk"
-	}
-	return q
+	return "SELECT " + strings.Join(list, ", ") + " FROM " + src + " GROUP BY " + groupBy(len(keys)+1)
 }
 
-func (pd *push) missingSQL() string {
-	list := []string{"bk", "sk"}
-	scope := "bk IS NOT NULL"
-	if pd.plan.Time == nil {
-		scope = "true"
+// groupBy is "GROUP BY 1, …, n" by output position, which postgres_fdw
+// sends as it is.
+func groupBy(n int) string {
+	g := make([]string, n)
+	for i := range g {
+		g[i] = strconv.Itoa(i + 1)
 	}
+	return strings.Join(g, ", ")
+}
+
+// missingSQL counts, per key, the rows whose weight is unusable and, among
+// the rows with a usable weight, each column's NULL, NaN and infinite
+// values.
+func (pd *push) missingSQL() string {
+	list := pd.keyList()
+	scope := "true"
 	if pd.plan.Weight != nil {
-		list = append(list, "count(*) FILTER (WHERE NOT coalesce("+pd.wok()+", false))")
-		scope += " AND " + pd.wok()
+		list = append(list, "count(*) FILTER (WHERE NOT "+pd.wok()+" OR w IS NULL)")
+		scope = pd.wok()
 	} else {
 		list = append(list, "0::int8")
 	}
@@ -568,39 +790,138 @@ func (pd *push) missingSQL() string {
 		list = append(list,
 			fmt.Sprintf("count(*) FILTER (WHERE %s AND x%d IS NULL)", scope, j),
 			fmt.Sprintf("count(*) FILTER (WHERE %s AND x%d = 'NaN'::float8)", scope, j),
-			fmt.Sprintf("count(*) FILTER (WHERE %s AND x%d IN ('Infinity'::float8, '-Infinity'::float8))", scope, j))
+			fmt.Sprintf("count(*) FILTER (WHERE %s AND (x%d = 'Infinity'::float8 OR x%d = '-Infinity'::float8))", scope, j, j))
 	}
-	return "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from() + " GROUP BY bk, sk"
+	q := "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from()
+	if pd.nkeys > 0 {
+		q += " GROUP BY " + groupBy(pd.nkeys)
+	}
+	return q
 }
 
+// tableScales takes the scales from the leaf's complete rows (a full pass
+// of min and max, nothing summed): for when the statistics understated
+// the magnitudes.
+func (pd *push) tableScales(ctx context.Context, tx pgx.Tx) error {
+	list := make([]string, 0, 2*pd.p)
+	for j := 0; j < pd.p; j++ {
+		list = append(list, fmt.Sprintf("coalesce(min(x%d), 0)", j), fmt.Sprintf("coalesce(max(x%d), 0)", j))
+	}
+	lo := make([]float64, pd.p)
+	hi := make([]float64, pd.p)
+	dst := make([]any, 0, 2*pd.p)
+	for j := range lo {
+		dst = append(dst, &lo[j], &hi[j])
+	}
+	if err := tx.QueryRow(ctx, "SELECT "+strings.Join(list, ", ")+" FROM "+pd.from()+" WHERE "+pd.okExpr()).Scan(dst...); err != nil {
+		return err
+	}
+	for j := range lo {
+		pd.scaleBy[j] = stream.ScaleFor(lo[j], hi[j])
+		// Keep the shift within the new scale's reach.
+		if !(math.Abs(pd.shiftBy[j]) <= math.Max(math.Abs(lo[j]), math.Abs(hi[j]))) {
+			pd.shiftBy[j] = lo[j]/2 + hi[j]/2
+		}
+	}
+	return nil
+}
+
+// probe takes the centres and scales of a leaf without statistics from
+// its first complete rows (a cheap query: it stops after probeRows rows).
+func (pd *push) probe(ctx context.Context, tx pgx.Tx) error {
+	xs := make([]string, pd.p)
+	for j := range xs {
+		xs[j] = fmt.Sprintf("x%d", j)
+	}
+	rows, err := tx.Query(ctx, fmt.Sprintf("SELECT %s FROM %s WHERE %s LIMIT %d", strings.Join(xs, ", "), pd.from(), pd.okExpr(), probeRows))
+	if err != nil {
+		return err
+	}
+	lo := make([]float64, pd.p)
+	hi := make([]float64, pd.p)
+	n := 0
+	err = forRows(rows, func(v []any) error {
+		for j, x := range v {
+			f := num(x)
+			if n == 0 || f < lo[j] {
+				lo[j] = f
+			}
+			if n == 0 || f > hi[j] {
+				hi[j] = f
+			}
+		}
+		n++
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	for j := range pd.shiftBy {
+		pd.scaleBy[j] = stream.ScaleFor(lo[j], hi[j])
+		if n > 0 {
+			// The midrange: finite whatever the magnitudes, and among
+			// the values.
+			pd.shiftBy[j] = lo[j]/2 + hi[j]/2
+		}
+	}
+	pd.needProbe = false
+	return nil
+}
+
+// key reads a row's bucket and segment keys; false when its time is NULL
+// or infinite.
 func (pd *push) key(v []any) (gkey, bool) {
 	var k gkey
+	i := 0
 	if pd.plan.Time != nil {
 		t, ok := v[0].(time.Time)
 		if !ok {
 			return k, false
 		}
+		if pd.ship {
+			t = pd.keyTime(t)
+		}
 		k.bucket = t.UnixMicro()
+		i++
 	}
-	if s, ok := v[1].(string); ok {
-		k.seg = s
+	if pd.plan.Segment != nil {
+		k.seg = segKey(v[i], pd.segRaw)
 	}
 	return k, true
 }
 
-func (pd *push) checkSegments(keys []gkey, max int) error {
-	if pd.plan.Segment == nil {
-		return nil
+// keyTime floors a foreign partition's time bin (binExpr) to its bucket:
+// a date or timestamp is a wall-clock time in the bucket zone, a
+// timestamptz an instant.
+func (pd *push) keyTime(t time.Time) time.Time {
+	if pd.timeBase != oidTimestamptz {
+		t = time.Date(t.Year(), t.Month(), t.Day(), t.Hour(), t.Minute(), t.Second(), t.Nanosecond(), pd.plan.Location)
 	}
-	segs := map[string]bool{}
-	for _, k := range keys {
-		segs[k.seg] = true
+	return connectors.Calendar{Unit: pd.plan.Bucket, Loc: pd.plan.Location}.Floor(t)
+}
+
+// segKey turns a segment value into its key: raw, a value as PostgreSQL's
+// cast to text writes it; otherwise the key itself.
+func segKey(v any, raw bool) string {
+	if !raw {
+		s, _ := v.(string)
+		return s
 	}
-	if len(segs) > max {
-		return fmt.Errorf("%s: segment column %q: more than %d distinct segments (raise the limit or pick a coarser segment column): %w",
-			pd.t.source, pd.plan.Segment.Name, max, connectors.ErrTooManySegments)
+	switch x := v.(type) {
+	case nil:
+		return connectors.NullSegment
+	case string:
+		return connectors.SegmentKey(x)
+	case bool:
+		return connectors.SegmentKey(strconv.FormatBool(x))
+	case int16:
+		return connectors.SegmentKey(strconv.FormatInt(int64(x), 10))
+	case int32:
+		return connectors.SegmentKey(strconv.FormatInt(int64(x), 10))
+	case int64:
+		return connectors.SegmentKey(strconv.FormatInt(x, 10))
 	}
-	return nil
+	return connectors.SegmentKey(fmt.Sprint(v))
 }
 
 func (pd *push) newStats() *connectors.Stats {
@@ -623,15 +944,17 @@ func num(v any) float64 {
 	return 0
 }
 
-func (pd *push) fill(st *connectors.Stats, v []any, strategy pushStrategy) error {
+// fill sets a complete group's statistics from n rows and the aggregates
+// v (the strategy's sums, cross-products, then min and max per column).
+func (pd *push) fill(st *connectors.Stats, n int64, v []any) {
 	p := pd.p
-	st.Used = v[0].(int64)
-	i := 1
-	if strategy == pushRegr {
-		st.SumWeights = float64(st.Used)
+	st.Used = n
+	copy(st.Origin, pd.shiftBy)
+	copy(st.Scale, pd.scaleBy)
+	i := 0
+	if pd.strategy == pushRegr {
+		st.SumWeights = float64(n)
 		st.Centered = true
-		copy(st.Origin, pd.shiftBy)
-		copy(st.Scale, pd.scaleBy)
 		for j := 0; j < p; j++ {
 			st.Sum[j] = num(v[i]) * st.SumWeights
 			i++
@@ -639,8 +962,6 @@ func (pd *push) fill(st *connectors.Stats, v []any, strategy pushStrategy) error
 	} else {
 		st.SumWeights = num(v[i])
 		i++
-		copy(st.Origin, pd.shiftBy)
-		copy(st.Scale, pd.scaleBy)
 		for j := 0; j < p; j++ {
 			st.Sum[j] = num(v[i])
 			i++
@@ -654,14 +975,13 @@ func (pd *push) fill(st *connectors.Stats, v []any, strategy pushStrategy) error
 		st.Min[j], st.Max[j] = num(v[i]), num(v[i+1])
 		i += 2
 	}
-	return nil
 }
 
-func (pd *push) fillMissing(st *connectors.Stats, v []any) {
-	st.BadWeights = v[0].(int64)
+func (pd *push) fillMissing(st *connectors.Stats, v []int64) {
+	st.BadWeights = v[0]
 	for j := 0; j < pd.p; j++ {
-		st.Null[j] = v[1+3*j].(int64)
-		st.NaN[j] = v[2+3*j].(int64)
-		st.Inf[j] = v[3+3*j].(int64)
+		st.Null[j] = v[1+3*j]
+		st.NaN[j] = v[2+3*j]
+		st.Inf[j] = v[3+3*j]
 	}
 }

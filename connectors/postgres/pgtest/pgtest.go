@@ -248,7 +248,7 @@ func credential() (*syscall.Credential, int, int, error) {
 	return &syscall.Credential{Uid: uint32(uid), Gid: uint32(gid)}, uid, gid, nil
 }
 
-func startServer() (*Server, error) {
+func startServer(settings ...string) (*Server, error) {
 	bin, version, err := Binaries()
 	if err != nil {
 		return nil, err
@@ -304,6 +304,9 @@ func startServer() (*Server, error) {
 		"-c", "unix_socket_directories="+dir,
 		"-c", "fsync=off", "-c", "synchronous_commit=off", "-c", "full_page_writes=off",
 		"-c", "max_connections=60", "-c", "log_min_messages=warning")
+	for _, kv := range settings {
+		cmd.Args = append(cmd.Args, "-c", kv)
+	}
 	cmd.Stdout, cmd.Stderr = logf, logf
 	cmd.Dir = dir
 	// Its own process group, for Kill; the parent-death signal is a safety

@@ -1,0 +1,151 @@
+package pgtest
+
+import (
+	"context"
+	"fmt"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+)
+
+// Cluster is a coordinator and its shard servers, each a throwaway
+// PostgreSQL of its own on its own port: the coordinator reaches the shards
+// through postgres_fdw, and the shards load pg_stat_statements so that a
+// test can read which statements each received.
+type Cluster struct {
+	Coordinator *Server
+	Shards      []*Server
+	// URL is a fresh database on the coordinator, with postgres_fdw and
+	// one foreign server per shard (shard0, shard1, …) mapped for the
+	// superuser.
+	URL string
+	// ShardURLs are a fresh database on each shard, with
+	// pg_stat_statements.
+	ShardURLs []string
+}
+
+// NewCluster starts a coordinator and n shards (in parallel), creates a
+// database on each and links them; all are stopped and removed in the
+// test's cleanup. Without server binaries the test is skipped outside CI,
+// as Start does.
+func NewCluster(t testing.TB, n int) *Cluster {
+	t.Helper()
+	servers := make([]*Server, n+1)
+	errs := make([]error, n+1)
+	var wg sync.WaitGroup
+	for i := range servers {
+		wg.Add(1)
+		go func(i int) {
+			defer wg.Done()
+			var settings []string
+			if i > 0 {
+				settings = []string{"shared_preload_libraries=pg_stat_statements", "pg_stat_statements.track=all"}
+			}
+			servers[i], errs[i] = startServer(settings...)
+		}(i)
+	}
+	wg.Wait()
+	for _, s := range servers {
+		if s != nil {
+			t.Cleanup(s.Stop)
+		}
+	}
+	for _, err := range errs {
+		if err != nil {
+			unavailable(t, err)
+		}
+	}
+	c := &Cluster{Coordinator: servers[0], Shards: servers[1:]}
+	c.URL = c.Coordinator.NewDatabase(t)
+	ddl := []string{"CREATE EXTENSION postgres_fdw"}
+	for i, s := range c.Shards {
+		u := s.NewDatabase(t)
+		c.ShardURLs = append(c.ShardURLs, u)
+		Exec(t, u, "CREATE EXTENSION pg_stat_statements")
+		db := u[strings.LastIndexByte(u, '/')+1 : strings.IndexByte(u, '?')]
+		ddl = append(ddl,
+			fmt.Sprintf("CREATE SERVER shard%d FOREIGN DATA WRAPPER postgres_fdw OPTIONS (host '127.0.0.1', port '%d', dbname '%s', batch_size '1000')", i, s.Port, db),
+			fmt.Sprintf("CREATE USER MAPPING FOR postgres SERVER shard%d OPTIONS (user 'postgres', password '%s')", i, s.Password))
+	}
+	Exec(t, c.URL, ddl...)
+	return c
+}
+
+// ShardTable creates table name on the coordinator, hash-partitioned on
+// key into one foreign partition per shard (name_p0, name_p1, …, each a
+// table of that name on its shard), all with the columns of columns (SQL
+// column definitions).
+func (c *Cluster) ShardTable(t testing.TB, name, columns, key string) {
+	t.Helper()
+	ddl := []string{fmt.Sprintf("CREATE TABLE %s (%s) PARTITION BY HASH (%s)", name, columns, key)}
+	for i, u := range c.ShardURLs {
+		part := fmt.Sprintf("%s_p%d", name, i)
+		Exec(t, u, fmt.Sprintf("CREATE TABLE %s (%s)", part, columns))
+		ddl = append(ddl, fmt.Sprintf("CREATE FOREIGN TABLE %s PARTITION OF %s FOR VALUES WITH (MODULUS %d, REMAINDER %d) SERVER shard%d OPTIONS (table_name '%s')",
+			part, name, len(c.ShardURLs), i, i, part))
+	}
+	Exec(t, c.URL, ddl...)
+}
+
+// ResetStatements clears pg_stat_statements on every shard.
+func (c *Cluster) ResetStatements(t testing.TB) {
+	t.Helper()
+	for _, u := range c.ShardURLs {
+		Exec(t, u, "SELECT pg_stat_statements_reset()")
+	}
+}
+
+// Statement is one entry of a shard's pg_stat_statements.
+type Statement struct {
+	Query string
+	Calls int64
+	Rows  int64
+}
+
+// Statements lists what shard i executed since the last reset (its own
+// reading of the view excluded).
+func (c *Cluster) Statements(t testing.TB, i int) []Statement {
+	t.Helper()
+	ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+	defer cancel()
+	conn, err := pgx.Connect(ctx, c.ShardURLs[i])
+	if err != nil {
+		t.Fatalf("pgtest: shard %d: %v", i, err)
+	}
+	defer conn.Close(ctx)
+	rows, err := conn.Query(ctx, `SELECT query, calls, rows FROM pg_stat_statements
+		WHERE dbid = (SELECT oid FROM pg_database WHERE datname = current_database())
+			AND query NOT LIKE '%pg_stat_statements%' ORDER BY query`)
+	if err != nil {
+		t.Fatalf("pgtest: shard %d: %v", i, err)
+	}
+	out, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (Statement, error) {
+		var s Statement
+		err := r.Scan(&s.Query, &s.Calls, &s.Rows)
+		return s, err
+	})
+	if err != nil {
+		t.Fatalf("pgtest: shard %d: %v", i, err)
+	}
+	return out
+}
+
+// Exec runs statements on the database at url, failing the test on error.
+func Exec(t testing.TB, url string, sql ...string) {
+	t.Helper()
+	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Minute)
+	defer cancel()
+	conn, err := pgx.Connect(ctx, url)
+	if err != nil {
+		t.Fatalf("pgtest: connect: %v", err)
+	}
+	defer conn.Close(ctx)
+	for _, q := range sql {
+		if _, err := conn.Exec(ctx, q); err != nil {
+			t.Fatalf("pgtest: %s: %v", q, err)
+		}
+	}
+}
