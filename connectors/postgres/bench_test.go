@@ -68,7 +68,7 @@ func (c countingConn) Read(p []byte) (int, error) {
 	return n, err
 }
 
-func openCounting(b *testing.B, u string, opts connectors.Options) (*Source, *atomic.Int64) {
+func openCounting(b testing.TB, u string, opts connectors.Options) (*Source, *atomic.Int64) {
 	b.Helper()
 	cfg, err := pgxpool.ParseConfig(u)
 	if err != nil {

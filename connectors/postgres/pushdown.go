@@ -83,49 +83,16 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 	if _, err := tx.Exec(ctx, "SET LOCAL jit = off"); err != nil {
 		return nil, s.wrap(err, "SET jit")
 	}
-	t, err := s.describe(ctx, tx, req)
+	t, plan, pds, err := s.preparePush(ctx, tx, req)
 	if err != nil {
 		return nil, err
-	}
-	plan, err := connectors.Resolve(t.source, t.cols, req, connectors.KindTime)
-	if err != nil {
-		return nil, err
-	}
-	where, err := connectors.CheckWhere(req.Where, connectors.Postgres)
-	if err != nil {
-		return nil, err
-	}
-	strategy := s.push
-	if strategy == pushAuto {
-		strategy = pushShifted
-		if s.version >= 120000 && plan.Weight == nil && (plan.Time != nil || plan.Segment != nil) {
-			strategy = pushRegr
-		}
-	}
-	if strategy == pushRegr && plan.Weight != nil {
-		return nil, fmt.Errorf("%s: weighted pushdown needs the shifted sums: %w", t.source, connectors.ErrUnsupported)
-	}
-	leaves, err := s.leaves(ctx, tx, t)
-	if err != nil {
-		return nil, err
-	}
-	cs, err := s.centres(ctx, tx, t, leaves, plan)
-	if err != nil {
-		return nil, err
-	}
-	pds := make([]*push, len(leaves))
-	for i, l := range leaves {
-		if pds[i], err = s.newPush(t, l, plan, where, req, strategy); err != nil {
-			return nil, err
-		}
-		pds[i].setCentres(cs.forLeaf(i, plan, req.Centres))
 	}
 	res := &connectors.Result{
 		Columns:    plan.Names(),
 		Sampled:    req.SamplePct > 0 && req.SamplePct < 100,
 		Inexact:    make([]int64, len(plan.Values)),
 		Skipped:    plan.Skipped,
-		Partitions: len(leaves),
+		Partitions: len(pds),
 		Pushdown:   true,
 	}
 	outs, err := s.runLeaves(ctx, tx, pds)
@@ -145,6 +112,49 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 		return nil, fmt.Errorf("%s: segment column %q: %w", t.source, plan.Segment.Name, err)
 	}
 	return res, nil
+}
+
+// preparePush describes the target, resolves the request and builds one
+// statement builder per leaf with its centres.
+func (s *Source) preparePush(ctx context.Context, tx pgx.Tx, req connectors.Request) (*target, *connectors.Plan, []*push, error) {
+	t, err := s.describe(ctx, tx, req)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	plan, err := connectors.Resolve(t.source, t.cols, req, connectors.KindTime)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	where, err := connectors.CheckWhere(req.Where, connectors.Postgres)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	strategy := s.push
+	if strategy == pushAuto {
+		strategy = pushShifted
+		if s.version >= 120000 && plan.Weight == nil && (plan.Time != nil || plan.Segment != nil) {
+			strategy = pushRegr
+		}
+	}
+	if strategy == pushRegr && plan.Weight != nil {
+		return nil, nil, nil, fmt.Errorf("%s: weighted pushdown needs the shifted sums: %w", t.source, connectors.ErrUnsupported)
+	}
+	leaves, err := s.leaves(ctx, tx, t)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	cs, err := s.centres(ctx, tx, t, leaves, plan)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	pds := make([]*push, len(leaves))
+	for i, l := range leaves {
+		if pds[i], err = s.newPush(t, l, plan, where, req, strategy); err != nil {
+			return nil, nil, nil, err
+		}
+		pds[i].setCentres(cs.forLeaf(i, plan, req.Centres))
+	}
+	return t, plan, pds, nil
 }
 
 // leaf is one relation a pushdown aggregates: a leaf partition, or the
@@ -441,6 +451,7 @@ func (pd *push) aggregate(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int
 	})
 	return out, drop, err
 }
+
 // outOfRange reports whether err is PostgreSQL's "value out of range"
 // (float8 overflow or underflow, SQLSTATE 22003).
 func outOfRange(err error) bool {
@@ -466,7 +477,6 @@ func forRows(rows pgx.Rows, fn func([]any) error) error {
 	}
 	return rows.Err()
 }
-
 
 // push builds the statements of one leaf over its inner SELECT, whose
 // columns are the keys (bk bucket, sk segment; only those the plan has),

@@ -1,0 +1,240 @@
+package postgres
+
+import (
+	"context"
+	"fmt"
+	"strings"
+	"testing"
+
+	"github.com/jackc/pgx/v5"
+
+	"plumb/connectors"
+	"plumb/connectors/internal/demand"
+	"plumb/connectors/postgres/pgtest"
+)
+
+// shardColumns are the value columns of the sharded test table: a district
+// meter reading with mean 1e9 and spread about 1, and readings of ordinary
+// magnitudes, one a near-copy and one the sum of two others.
+var shardColumns = []string{"meter_reading", "temperature", "rainfall", "pressure", "billed_volume", "metered_volume", "connections"}
+
+const shardDDL = `id int, day date, district text, meter_reading float8, temperature float8, rainfall float8,
+	pressure float8, billed_volume float8, metered_volume float8, connections float8`
+
+// shardRows inserts rows [from, to) through the coordinator, which routes
+// them to the shards.
+func shardRows(from, to int) string {
+	return fmt.Sprintf(`INSERT INTO readings SELECT i, date '2024-05-01' + (i %% 20), 'district ' || (i %% 3),
+		1e9 + sin(i * 0.37), 15 + 8 * cos(i * 0.11), abs(sin(i * 0.05)) * 12, 3.2 + (i %% 17) * 0.05 + sin(i) * 0.01,
+		400 + 50 * sin(i * 0.013) + 3 * cos(i), 400 + 50 * sin(i * 0.013) + 3 * cos(i) + 0.001 * sin(i * 7),
+		(i %% 50) + (i %% 7)
+		FROM generate_series(%d, %d) AS i`, from, to-1)
+}
+
+// newShardCluster starts a coordinator and two shards with readings
+// hash-partitioned over them and ANALYZEd on the coordinator (which reads
+// a sample of each shard; the statements are cleared afterwards).
+func newShardCluster(t *testing.T, rows int) *pgtest.Cluster {
+	t.Helper()
+	c := pgtest.NewCluster(t, 2)
+	c.ShardTable(t, "readings", shardDDL, "id")
+	pgtest.Exec(t, c.URL, shardRows(0, rows), "ANALYZE readings")
+	return c
+}
+
+// checkOneAggregate checks that each shard received, since the last
+// reset, exactly one aggregate statement per leaf it holds and no row
+// fetch: postgres_fdw runs every remote query as a cursor, so the
+// aggregate arrives as one DECLARE of a SELECT with sums, and every FETCH
+// returns no more rows than the statement has groups (a streamed scan
+// declares a cursor over the rows and fetches them a hundred at a time).
+func checkOneAggregate(t *testing.T, c *pgtest.Cluster, runs int, maxGroups int64) {
+	t.Helper()
+	for i := range c.Shards {
+		aggs, fetched := int64(0), int64(0)
+		for _, s := range c.Statements(t, i) {
+			q := strings.ToUpper(s.Query)
+			switch {
+			case strings.HasPrefix(q, "DECLARE"):
+				if !strings.Contains(q, "SUM(") && !strings.Contains(q, "REGR_SXY(") {
+					t.Errorf("shard %d: a cursor over rows, not an aggregate: %.200s", i, s.Query)
+					continue
+				}
+				aggs += s.Calls
+			case strings.HasPrefix(q, "FETCH"):
+				fetched += s.Rows
+			}
+		}
+		if aggs != int64(runs) {
+			t.Errorf("shard %d: %d aggregate statements, want %d (one per run)", i, aggs, runs)
+		}
+		if fetched > maxGroups*int64(runs) {
+			t.Errorf("shard %d: %d rows fetched, want at most %d (the groups)", i, fetched, maxGroups*int64(runs))
+		}
+	}
+}
+
+// TestShardedPushdown: through a coordinator whose table is two foreign
+// partitions on two shards, pushdown gives streaming's rows and
+// accumulators (identity of two computations: to 1e-12 relative, the
+// bound the other pushdown tests use), for the whole table and daily by
+// district, with a column of mean 1e9 and spread 1; each shard computes
+// its partition's aggregate in one statement and no row crosses.
+func TestShardedPushdown(t *testing.T) {
+	c := newShardCluster(t, 20000)
+	ctx := context.Background()
+	stream := openPG(t, c.URL, connectors.Options{})
+	push := openPG(t, c.URL, connectors.Options{Pushdown: true})
+	for _, r := range []struct {
+		name   string
+		req    connectors.Request
+		groups int64
+	}{
+		{"whole table", connectors.Request{Table: "readings", Columns: shardColumns}, 1},
+		{"daily by district", connectors.Request{Table: "readings", Columns: shardColumns, TimeColumn: "day", Bucket: "day", Segment: "district"}, 60},
+		{"weekly, filtered", connectors.Request{Table: "readings", Columns: shardColumns, TimeColumn: "day", Bucket: "week", Where: "temperature > 10"}, 20},
+	} {
+		t.Run(r.name, func(t *testing.T) {
+			want, err := stream.Scan(ctx, r.req)
+			if err != nil {
+				t.Fatal(err)
+			}
+			c.ResetStatements(t)
+			got, err := push.Scan(ctx, r.req)
+			if err != nil {
+				t.Fatal(err)
+			}
+			checkOneAggregate(t, c, 1, r.groups)
+			if got.Partitions != 2 || !got.Pushdown {
+				t.Errorf("partitions %d pushdown %v, want 2 true", got.Partitions, got.Pushdown)
+			}
+			demand.SameResult(t, r.name, want, got, 1e-12)
+		})
+	}
+}
+
+// TestShardedPushdownShippable: the statement plumb sends for each foreign
+// partition is sent whole to its shard: EXPLAIN VERBOSE on the coordinator
+// shows one Foreign Scan whose Remote SQL holds the aggregate and the
+// GROUP BY, with nothing computed on the coordinator.
+func TestShardedPushdownShippable(t *testing.T) {
+	c := newShardCluster(t, 2000)
+	ctx := context.Background()
+	src := openPG(t, c.URL, connectors.Options{Pushdown: true})
+	conn, err := pgx.Connect(ctx, c.URL)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close(ctx)
+	for _, req := range []connectors.Request{
+		{Table: "readings", Columns: shardColumns},
+		{Table: "readings", Columns: shardColumns, TimeColumn: "day", Bucket: "week", Segment: "district"},
+		{Table: "readings", Columns: shardColumns[:3], Weight: "pressure", Where: "district <> 'district 9'"},
+		{Table: "readings", Columns: shardColumns[:3], SamplePct: 30, Seed: 7},
+	} {
+		tx, err := conn.Begin(ctx)
+		if err != nil {
+			t.Fatal(err)
+		}
+		_, _, pds, err := src.preparePush(ctx, tx, req)
+		tx.Rollback(ctx)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(pds) != 2 {
+			t.Fatalf("%d leaves, want 2", len(pds))
+		}
+		for _, pd := range pds {
+			if pd.needProbe {
+				t.Errorf("%s: no centres from pg_stats after ANALYZE", pd.source)
+			}
+			rows, err := conn.Query(ctx, "EXPLAIN (VERBOSE, COSTS OFF) "+pd.aggSQL())
+			if err != nil {
+				t.Fatal(err)
+			}
+			lines, err := pgx.CollectRows(rows, pgx.RowTo[string])
+			if err != nil {
+				t.Fatal(err)
+			}
+			plan := strings.Join(lines, "\n")
+			if !strings.HasPrefix(strings.TrimSpace(lines[0]), "Foreign Scan") || !strings.Contains(plan, "Relations: Aggregate on") {
+				t.Errorf("%s: the aggregate is not sent to the shard:\n%s", pd.source, plan)
+			}
+			remote := plan[strings.Index(plan, "Remote SQL:"):]
+			if !strings.Contains(remote, "sum(") && !strings.Contains(remote, "regr_sxy(") {
+				t.Errorf("%s: Remote SQL without the aggregate:\n%s", pd.source, plan)
+			}
+		}
+	}
+}
+
+// TestShardedPushdownBytes: what plumb reads from the coordinator does not
+// grow with the rows: doubling the rows of the sharded table leaves the
+// bytes read per scan (wire bytes on plumb's sockets, once its connections
+// are open) unchanged. They are the aggregates, O(p² × partitions ×
+// groups), and the catalog queries (columns, and pg_stats: O(p ×
+// statistics target)); the bound is 16 bytes per number aggregated plus
+// 64 KiB for the catalog.
+func TestShardedPushdownBytes(t *testing.T) {
+	c := newShardCluster(t, 10000)
+	ctx := context.Background()
+	req := connectors.Request{Table: "readings", Columns: shardColumns}
+	src, n := openCounting(t, c.URL, connectors.Options{Pushdown: true})
+	scan := func() int64 {
+		before := n.Load()
+		if _, err := src.Scan(ctx, req); err != nil {
+			t.Fatal(err)
+		}
+		return n.Load() - before
+	}
+	scan() // opens the connections
+	small := scan()
+	pgtest.Exec(t, c.URL, shardRows(10000, 20000))
+	large := scan()
+	if small != large {
+		t.Errorf("bytes read %d for 10000 rows, %d for 20000: want the same", small, large)
+	}
+	p := int64(len(shardColumns))
+	numbers := 2 * 2 * (4 + 3*p + p*(p+1)/2) // 2 partitions × at most 2 groups (complete or not) per leaf
+	if bound := 16*numbers + 64<<10; large > bound {
+		t.Errorf("bytes read %d, want at most %d", large, bound)
+	}
+	t.Logf("bytes from the coordinator per pushdown scan: %d (p = %d, 2 partitions)", large, p)
+}
+
+// TestShardedPushdownNoStatistics: foreign partitions that were never
+// ANALYZEd on the coordinator have no pg_stats there. With the centres
+// given (a watch's previous means) each shard still receives one
+// aggregate and nothing else; without them plumb reads a few rows of each
+// partition first, and the result is the same.
+func TestShardedPushdownNoStatistics(t *testing.T) {
+	c := pgtest.NewCluster(t, 2)
+	c.ShardTable(t, "readings", shardDDL, "id")
+	pgtest.Exec(t, c.URL, shardRows(0, 5000))
+	ctx := context.Background()
+	stream := openPG(t, c.URL, connectors.Options{})
+	push := openPG(t, c.URL, connectors.Options{Pushdown: true})
+	req := connectors.Request{Table: "readings", Columns: shardColumns}
+	want, err := stream.Scan(ctx, req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := want.Merged().Moments
+	req.Centres = map[string]float64{}
+	for j, name := range m.Names() {
+		req.Centres[name] = m.Mean(j)
+	}
+	c.ResetStatements(t)
+	got, err := push.Scan(ctx, req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkOneAggregate(t, c, 1, 1)
+	demand.SameResult(t, "given centres", want, got, 1e-12)
+
+	req.Centres = nil
+	if got, err = push.Scan(ctx, req); err != nil {
+		t.Fatal(err)
+	}
+	demand.SameResult(t, "probed centres", want, got, 1e-12)
+}
