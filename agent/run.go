@@ -245,7 +245,7 @@ func (r *Runner) openSource(ctx context.Context, w *config.Watch) (connectors.So
 	open := r.OpenSource
 	if open == nil {
 		open = func(ctx context.Context, url string) (connectors.Source, error) {
-			return connectors.Open(ctx, url, connectors.Options{AppName: "plumb-agent"})
+			return connectors.Open(ctx, url, connectors.Options{AppName: "plumb-agent", Pushdown: w.Pushdown})
 		}
 	}
 	src, err := open(ctx, url)
@@ -264,7 +264,7 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 	defer src.Close()
 	req := connectors.Request{Table: w.Table, Query: w.Query, Where: w.Where,
 		TimeColumn: w.TimeColumn, Bucket: w.Bucket, Location: w.Location,
-		Segment: w.SegmentBy, MaxSegments: w.MaxSegments, MaxLevels: w.MaxLevels, QR: w.Precision != "fast", Extended: w.Precision == "precise"}
+		Segment: w.SegmentBy, MaxSegments: w.MaxSegments, MaxLevels: w.MaxLevels, QR: w.Precision != "fast" && !w.Pushdown, Extended: w.Precision == "precise"}
 	described, err := src.Describe(ctx, req)
 	if err != nil {
 		return nil, fmt.Errorf("watch %q: %w", w.Name, err)
@@ -314,6 +314,8 @@ func (r *Runner) collect(ctx context.Context, w *config.Watch, opt RunOptions) (
 		if len(lastB) == 0 || !slices.Equal(lastB[0].Columns, cols) {
 			r.logger().Info("columns changed: rebuilding the history", "watch", w.Name, "columns", strings.Join(cols, ","))
 			full = true
+		} else if w.Pushdown {
+			req.Centres = lastMeans(lastB, cols)
 		}
 	}
 	switch {
@@ -676,4 +678,28 @@ func (r *Runner) bucketExtras(w *config.Watch, judgedCols []string, rep *diagnos
 	x.BucketCond = jfloat(finiteOrInf(brep.ConditionNumber))
 	x.BucketCCond = jfloat(finiteOrInf(brep.CenteredConditionNumber))
 	return nil
+}
+
+// lastMeans returns the columns' means in the newest stored bucket (all
+// its segments merged): the provisional centres a pushdown shifts the
+// values by where the database has no statistics (a foreign partition
+// never ANALYZEd on the coordinator). Nil when they cannot be read.
+func lastMeans(last []Bucket, cols []string) map[string]float64 {
+	var parts []acc
+	for _, b := range last {
+		a, err := decodeBucket(b)
+		if err != nil || !slices.Equal(a.m.Names(), cols) {
+			return nil
+		}
+		parts = append(parts, a)
+	}
+	m := merge(cols, parts).m
+	if m == nil || m.N() == 0 {
+		return nil
+	}
+	out := make(map[string]float64, len(cols))
+	for j, c := range cols {
+		out[c] = m.Mean(j)
+	}
+	return out
 }

@@ -54,6 +54,15 @@ func sinceFilter(sourceURL string, col connectors.Column, since time.Time) strin
 	if col.Kind == connectors.KindNumeric {
 		return fmt.Sprintf("%s >= %s", q, secs)
 	}
+	// Compared in the column's own type: date against timestamptz would be
+	// a stable comparison (it depends on TimeZone), which postgres_fdw
+	// does not send to a shard, so a pushdown would fetch every row.
+	switch {
+	case col.Type == "date":
+		return fmt.Sprintf("%s >= '%s'::date", q, early.Format("2006-01-02"))
+	case strings.HasPrefix(col.Type, "timestamp without time zone"):
+		return fmt.Sprintf("%s >= '%s'::timestamp", q, early.Format("2006-01-02 15:04:05"))
+	}
 	return fmt.Sprintf("%s >= '%s'::timestamptz", q, early.Format(time.RFC3339))
 }
 

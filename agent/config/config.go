@@ -212,8 +212,12 @@ type Watch struct {
 	BaseLevels map[string]string `yaml:"base_levels"`
 	Schedule   string            `yaml:"schedule"`
 	Precision  string            `yaml:"precision"`
-	Limits     Limits            `yaml:"limits"`
-	Notify     []string          `yaml:"notify"`
+	// Pushdown computes the watch's per-bucket and per-segment
+	// accumulators inside PostgreSQL (one aggregate per leaf partition)
+	// instead of streaming the rows.
+	Pushdown bool     `yaml:"pushdown"`
+	Limits   Limits   `yaml:"limits"`
+	Notify   []string `yaml:"notify"`
 
 	// ExpectedDependencies are sets of columns among which an exact
 	// dependency is by design (a total and its parts): one whose columns

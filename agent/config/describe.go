@@ -87,6 +87,9 @@ func (c *Config) Describe(w io.Writer, now time.Time, env Env) {
 		} else {
 			p("    buckets     none: every run reads the whole table\n")
 		}
+		if wa.Pushdown {
+			p("    pushdown    the database computes the sums (one aggregate per partition); plumb merges them\n")
+		}
 		if wa.SegmentBy != "" {
 			p("    segments    per value of %s (at most %d)\n", wa.SegmentBy, wa.MaxSegments)
 		}

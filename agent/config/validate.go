@@ -391,6 +391,14 @@ func (v *validator) watch(c *Config, i int, w *Watch) {
 	default:
 		v.addf(p("precision"), "%s: precision %q: want auto, fast, exact or precise", label, w.Precision)
 	}
+	if w.Pushdown {
+		if w.Precision == "exact" || w.Precision == "precise" {
+			v.addf(p("pushdown"), "%s: pushdown computes the cross-products in the database, and precision %s needs the QR factor of the rows; use precision auto or fast, or drop pushdown", label, w.Precision)
+		}
+		if u := c.Sources[w.Source]; strings.HasPrefix(u, "sqlite:") {
+			v.addf(p("pushdown"), "%s: pushdown computes the sums inside PostgreSQL; source %q is SQLite, which plumb reads directly: drop pushdown", label, w.Source)
+		}
+	}
 
 	v.limits(p("limits"), label, &w.Limits)
 
