@@ -1,0 +1,160 @@
+package postgres
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"net"
+	"os"
+	"strconv"
+	"strings"
+	"sync/atomic"
+	"testing"
+
+	"github.com/jackc/pgx/v5"
+
+	"plumb/connectors"
+	"plumb/connectors/postgres/pgtest"
+)
+
+// countingProxy forwards TCP connections to addr and counts the bytes sent
+// back to the client (shard → coordinator).
+func countingProxy(b testing.TB, addr string) (port int, back *atomic.Int64) {
+	b.Helper()
+	l, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Cleanup(func() { l.Close() })
+	back = new(atomic.Int64)
+	go func() {
+		for {
+			c, err := l.Accept()
+			if err != nil {
+				return
+			}
+			go func() {
+				defer c.Close()
+				s, err := net.Dial("tcp", addr)
+				if err != nil {
+					return
+				}
+				defer s.Close()
+				go io.Copy(s, c)
+				n, _ := io.Copy(c, s)
+				back.Add(n)
+			}()
+		}
+	}()
+	return l.Addr().(*net.TCPAddr).Port, back
+}
+
+// BenchmarkShardPushdown measures, in one run, on PLUMB_BENCH_SHARD_ROWS
+// rows (default 200 000) × 10 float8 columns: on one instance the bare
+// sums-of-products SELECT (the floor) and plumb --pushdown on the same
+// rows in a plain table; through a coordinator whose table is two foreign
+// partitions on two shards (three servers on this machine), plumb
+// --pushdown and, for contrast, plumb streaming. It reports the times,
+// their ratios, and the bytes on each link: shard → coordinator (a
+// counting proxy in front of each shard) and coordinator → plumb (plumb's
+// sockets). Run it alone:
+// go test -run XXX -bench ShardPushdown -benchtime 3x ./connectors/postgres/
+func BenchmarkShardPushdown(b *testing.B) {
+	rows := 200000
+	if s := os.Getenv("PLUMB_BENCH_SHARD_ROWS"); s != "" {
+		rows, _ = strconv.Atoi(s)
+	}
+	const p = 10
+	cols := make([]string, p)
+	var ddl, gen []string
+	for j := range cols {
+		cols[j] = fmt.Sprintf("c%d", j+1)
+		ddl = append(ddl, cols[j]+" float8")
+		switch j {
+		case 0:
+			gen = append(gen, "1e9 + sin(i * 0.37)") // mean 1e9, spread 1
+		case 1:
+			gen = append(gen, "15 + 8 * cos(i * 0.11) + 0.5 * sin(i * 0.7)")
+		default:
+			gen = append(gen, fmt.Sprintf("%d + %d * sin(i * %g + %d)", 10*j, j, 0.01*float64(j+1), j))
+		}
+	}
+	c := pgtest.NewCluster(b, 2)
+	c.ShardTable(b, "readings", "id int, "+strings.Join(ddl, ", "), "id")
+	var shardBytes []*atomic.Int64
+	var alter []string
+	for i, s := range c.Shards {
+		port, n := countingProxy(b, fmt.Sprintf("127.0.0.1:%d", s.Port))
+		shardBytes = append(shardBytes, n)
+		alter = append(alter, fmt.Sprintf("ALTER SERVER shard%d OPTIONS (SET port '%d')", i, port))
+	}
+	fill := fmt.Sprintf("SELECT i, %s FROM generate_series(1, %d) AS i", strings.Join(gen, ", "), rows)
+	pgtest.Exec(b, c.URL, append(alter,
+		"INSERT INTO readings "+fill,
+		"CREATE TABLE readings_local AS "+fill,
+		"VACUUM ANALYZE readings_local", "ANALYZE readings")...)
+	for _, u := range c.ShardURLs {
+		pgtest.Exec(b, u, "VACUUM ANALYZE readings_p0", "VACUUM ANALYZE readings_p1")
+	}
+	ctx := context.Background()
+	var pairs []string
+	for i := range cols {
+		for j := i; j < p; j++ {
+			pairs = append(pairs, "sum("+cols[i]+" * "+cols[j]+")")
+		}
+	}
+	bare := "SELECT count(*), " + strings.Join(pairs, ", ") + " FROM readings_local"
+	conn, err := pgx.Connect(ctx, c.URL)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer conn.Close(ctx)
+	if _, err := conn.Exec(ctx, "SET jit = off"); err != nil {
+		b.Fatal(err)
+	}
+	push, plumbBytes := openCounting(b, c.URL, connectors.Options{Pushdown: true})
+	stream, _ := openCounting(b, c.URL, connectors.Options{})
+	local := connectors.Request{Table: "readings_local", Columns: cols}
+	sharded := connectors.Request{Table: "readings", Columns: cols}
+	scan := func(s *Source, req connectors.Request) func() error {
+		return func() error { _, err := s.Scan(ctx, req); return err }
+	}
+	// Warm the caches and open the connections.
+	for _, f := range []func() error{scan(push, local), scan(push, sharded)} {
+		if err := f(); err != nil {
+			b.Fatal(err)
+		}
+	}
+	shardTotal := func() int64 {
+		var n int64
+		for _, x := range shardBytes {
+			n += x.Load()
+		}
+		return n
+	}
+	m := map[string]float64{}
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		m["bare_sums_s"] += timeIt(b, func() error { _, err := conn.Exec(ctx, bare); return err })
+		before := plumbBytes.Load()
+		m["push_one_s"] += timeIt(b, scan(push, local))
+		m["push_one_bytes_to_plumb"] += float64(plumbBytes.Load() - before)
+		before, sb := plumbBytes.Load(), shardTotal()
+		m["push_shards_s"] += timeIt(b, scan(push, sharded))
+		m["push_shards_bytes_to_plumb"] += float64(plumbBytes.Load() - before)
+		m["push_shards_bytes_from_shards"] += float64(shardTotal() - sb)
+		sb = shardTotal()
+		m["stream_shards_s"] += timeIt(b, scan(stream, sharded))
+		m["stream_shards_bytes_from_shards"] += float64(shardTotal() - sb)
+	}
+	b.StopTimer()
+	for k := range m {
+		m[k] /= float64(b.N)
+	}
+	m["push_one_vs_bare"] = m["push_one_s"] / m["bare_sums_s"]
+	m["push_shards_vs_push_one"] = m["push_shards_s"] / m["push_one_s"]
+	m["stream_shards_vs_push_shards"] = m["stream_shards_s"] / m["push_shards_s"]
+	for k, v := range m {
+		b.ReportMetric(v, k)
+	}
+}
