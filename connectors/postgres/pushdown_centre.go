@@ -3,8 +3,6 @@ package postgres
 import (
 	"context"
 	"math"
-	"strconv"
-	"strings"
 
 	"github.com/jackc/pgx/v5"
 
@@ -60,10 +58,7 @@ func (s *Source) centres(ctx context.Context, tx pgx.Tx, t *target, leaves []lea
 		schemas, tables = append(schemas, l.name.Schema), append(tables, l.name.Table)
 	}
 	schemas, tables = append(schemas, t.table.Schema), append(tables, t.table.Table)
-	rows, err := tx.Query(ctx, `SELECT s.schemaname::text, s.tablename::text, s.attname::text, s.inherited, s.null_frac,
-			s.most_common_vals::text, s.most_common_freqs, s.histogram_bounds::text
-		FROM pg_stats s JOIN unnest($1::text[], $2::text[]) AS r(sch, tab) ON s.schemaname = r.sch AND s.tablename = r.tab
-		WHERE s.attname = ANY($3::text[])`, schemas, tables, names)
+	rows, err := tx.Query(ctx, statsSQL, schemas, tables, names)
 	if err != nil {
 		return nil, s.wrap(err, t.source+": reading pg_stats")
 	}
@@ -71,17 +66,16 @@ func (s *Source) centres(ctx context.Context, tx pgx.Tx, t *target, leaves []lea
 	for rows.Next() {
 		var sch, tab, att string
 		var inh bool
-		var nullFrac float32
-		var mcv, hist *string
-		var freqs []float32
-		if err := rows.Scan(&sch, &tab, &att, &inh, &nullFrac, &mcv, &freqs, &hist); err != nil {
+		var nullFrac float64
+		var mcv, hist []*float64
+		if err := rows.Scan(&sch, &tab, &att, &inh, &nullFrac, &mcv, &hist); err != nil {
 			return nil, s.wrap(err, t.source+": reading pg_stats")
 		}
 		j, ok := col[att]
 		if !ok {
 			continue
 		}
-		st := statsOf(float64(nullFrac), parseStatArray(mcv), freqs, parseStatArray(hist))
+		st := statsOf(nullFrac, mcv, hist)
 		if sch == t.table.Schema && tab == t.table.Table && len(leaves) > 0 && !leaves[0].self {
 			if inh {
 				cs.parent[j] = st
@@ -98,71 +92,80 @@ func (s *Source) centres(ctx context.Context, tx pgx.Tx, t *target, leaves []lea
 	return cs, nil
 }
 
-// parseStatArray reads a pg_stats anyarray in text form ("{1.5,2,NaN}",
-// "{f,t}") as float64, leaving out what is not a finite number.
-func parseStatArray(s *string) []float64 {
-	if s == nil {
-		return nil
-	}
-	body := strings.TrimSuffix(strings.TrimPrefix(*s, "{"), "}")
-	var out []float64
-	for _, e := range strings.Split(body, ",") {
-		e = strings.Trim(e, `"`)
-		switch e {
-		case "t", "true":
-			out = append(out, 1)
-			continue
-		case "f", "false":
-			out = append(out, 0)
-			continue
-		}
-		v, err := strconv.ParseFloat(e, 64)
-		if err == nil && !math.IsInf(v, 0) && !math.IsNaN(v) {
-			out = append(out, v)
-		}
-	}
-	return out
-}
+// statsSQL reduces each column's statistics in the server to a few
+// numbers, so that what plumb reads does not grow with the statistics
+// target: of the most common values Σv·f, Σf, min and max; of the
+// histogram bounds their mean, min, max and count. Values are read through
+// their text form (pg_stats holds anyarray): booleans as 0 and 1, numbers
+// in float8's range as themselves, anything else (NaN, ±Infinity, numeric
+// beyond float8) left out. Sums are taken in numeric, which cannot
+// overflow.
+const statsSQL = `WITH s AS (
+		SELECT s.schemaname::text AS sch, s.tablename::text AS tab, s.attname::text AS att, s.inherited, s.null_frac::float8 AS nf,
+			s.most_common_vals::text::text[] AS mcv, s.most_common_freqs AS mf, s.histogram_bounds::text::text[] AS hb
+		FROM pg_stats s JOIN unnest($1::text[], $2::text[]) AS r(sch, tab) ON s.schemaname = r.sch AND s.tablename = r.tab
+		WHERE s.attname = ANY($3::text[])),
+	v AS (
+		SELECT s.*, m.kind, m.i, m.f,
+			CASE WHEN m.v IN ('t', 'true') THEN 1::numeric WHEN m.v IN ('f', 'false') THEN 0::numeric
+				WHEN m.v ~ '^[-+]?([0-9]+[.]?[0-9]*|[.][0-9]+)([eE][-+]?[0-9]+)?$' THEN
+					CASE WHEN abs(m.v::numeric) < 1e300 THEN m.v::numeric END END AS x
+		FROM s, LATERAL (
+			SELECT 'm' AS kind, u.i, u.v, u.f::float8 AS f FROM unnest(s.mcv, s.mf) WITH ORDINALITY AS u(v, f, i)
+			UNION ALL
+			SELECT 'h', u.i, u.v, NULL FROM unnest(s.hb) WITH ORDINALITY AS u(v, i)) AS m)
+	SELECT sch, tab, att, inherited, nf,
+		ARRAY[sum(x * f::numeric) FILTER (WHERE kind = 'm'), sum(f) FILTER (WHERE kind = 'm' AND x IS NOT NULL),
+			min(x) FILTER (WHERE kind = 'm'), max(x) FILTER (WHERE kind = 'm')]::float8[],
+		ARRAY[avg(x) FILTER (WHERE kind = 'h'), min(x) FILTER (WHERE kind = 'h'), max(x) FILTER (WHERE kind = 'h'),
+			count(x) FILTER (WHERE kind = 'h')]::float8[]
+	FROM v GROUP BY sch, tab, att, inherited, nf`
 
-// statsOf estimates a column's mean from its most common values and
-// their frequencies and its equi-depth histogram (each bucket's midpoint
-// for its share of the rest), on values divided by the power of two their
-// extremes call for, so nothing overflows.
-func statsOf(nullFrac float64, mcv []float64, freqs []float32, hist []float64) colStats {
+// statsOf estimates a column's mean from its most common values (their
+// Σv·f, Σf, min, max) and its equi-depth histogram (the mean of its
+// bounds for the share of the rest, their min, max and count).
+func statsOf(nullFrac float64, mcv, hist []*float64) colStats {
 	var st colStats
+	val := func(a []*float64, i int) (float64, bool) {
+		if i >= len(a) || a[i] == nil {
+			return 0, false
+		}
+		return *a[i], true
+	}
 	first := true
-	for _, v := range append(append([]float64(nil), mcv...), hist...) {
-		if first || v < st.lo {
-			st.lo = v
+	for _, a := range [][]*float64{mcv[min(2, len(mcv)):], hist[min(1, len(hist)):]} {
+		for i := 0; i < 2; i++ {
+			v, ok := val(a, i)
+			if !ok {
+				continue
+			}
+			if first || v < st.lo {
+				st.lo = v
+			}
+			if first || v > st.hi {
+				st.hi = v
+			}
+			first = false
 		}
-		if first || v > st.hi {
-			st.hi = v
-		}
-		first = false
 	}
 	if first {
 		return st
 	}
+	st.mean = st.lo/2 + st.hi/2
 	sc := stream.ScaleFor(st.lo, st.hi)
 	var sum, w float64
-	for i, v := range mcv {
-		if i < len(freqs) {
-			sum += v / sc * float64(freqs[i])
-			w += float64(freqs[i])
+	if sv, ok := val(mcv, 0); ok {
+		if f, ok := val(mcv, 1); ok && f > 0 {
+			sum, w = sv/sc, f
 		}
 	}
-	if len(hist) >= 2 {
-		rest := 1 - nullFrac - w
-		if rest <= 0 {
-			rest = 1e-9
+	if hm, ok := val(hist, 0); ok {
+		if n, _ := val(hist, 3); n >= 2 {
+			rest := math.Max(1-nullFrac-w, 1e-9)
+			sum += hm / sc * rest
+			w += rest
 		}
-		per := rest / float64(len(hist)-1)
-		for i := 0; i+1 < len(hist); i++ {
-			sum += (hist[i]/sc/2 + hist[i+1]/sc/2) * per
-		}
-		w += rest
 	}
-	st.mean = st.lo/2 + st.hi/2
 	if w > 0 {
 		if m := sum / w * sc; m >= st.lo && m <= st.hi {
 			st.mean = m

@@ -41,12 +41,22 @@ func countingProxy(b testing.TB, addr string) (port int, back *atomic.Int64) {
 				}
 				defer s.Close()
 				go io.Copy(s, c)
-				n, _ := io.Copy(c, s)
-				back.Add(n)
+				io.Copy(countingWriter{c, back}, s)
 			}()
 		}
 	}()
 	return l.Addr().(*net.TCPAddr).Port, back
+}
+
+type countingWriter struct {
+	w io.Writer
+	n *atomic.Int64
+}
+
+func (c countingWriter) Write(p []byte) (int, error) {
+	n, err := c.w.Write(p)
+	c.n.Add(int64(n))
+	return n, err
 }
 
 // BenchmarkShardPushdown measures, in one run, on PLUMB_BENCH_SHARD_ROWS
@@ -88,13 +98,16 @@ func BenchmarkShardPushdown(b *testing.B) {
 		shardBytes = append(shardBytes, n)
 		alter = append(alter, fmt.Sprintf("ALTER SERVER shard%d OPTIONS (SET port '%d')", i, port))
 	}
-	fill := fmt.Sprintf("SELECT i, %s FROM generate_series(1, %d) AS i", strings.Join(gen, ", "), rows)
+	for j := range gen {
+		gen[j] += " AS " + cols[j]
+	}
+	fill := fmt.Sprintf("SELECT i AS id, %s FROM generate_series(1, %d) AS i", strings.Join(gen, ", "), rows)
 	pgtest.Exec(b, c.URL, append(alter,
 		"INSERT INTO readings "+fill,
 		"CREATE TABLE readings_local AS "+fill,
 		"VACUUM ANALYZE readings_local", "ANALYZE readings")...)
-	for _, u := range c.ShardURLs {
-		pgtest.Exec(b, u, "VACUUM ANALYZE readings_p0", "VACUUM ANALYZE readings_p1")
+	for i, u := range c.ShardURLs {
+		pgtest.Exec(b, u, fmt.Sprintf("VACUUM ANALYZE readings_p%d", i))
 	}
 	ctx := context.Background()
 	var pairs []string
