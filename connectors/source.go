@@ -81,6 +81,10 @@ type Factor struct {
 // factor[level].
 func IndicatorName(factor, level string) string { return factor + "[" + level + "]" }
 
+// DefaultMaxCells bounds the cells of a pushdown with factors (see
+// Request.MaxCells).
+const DefaultMaxCells = 10000
+
 // DefaultMaxLevels bounds the distinct values (levels) of a factor.
 const DefaultMaxLevels = 50
 
@@ -109,6 +113,11 @@ type Request struct {
 	// watch's previous means) that a pushdown shifts the values by where
 	// the database has no statistics.
 	Centres map[string]float64
+	// MaxCells bounds, for a pushdown with factors, the cells (bucket ×
+	// segment × level combinations) one partition's aggregate may return;
+	// beyond it the scan streams the rows instead and says so
+	// (Result.Fallback). 0 means DefaultMaxCells.
+	MaxCells int
 
 	QR bool // accumulate the QR factor as well as the moments
 	// Extended keeps the QR factor in double-double (stream.NewQRExtended):
@@ -154,6 +163,9 @@ type Result struct {
 	NoTime     int64    // rows left out because their time column was NULL or ±infinity
 	Partitions int      // ranges scanned at once (1 for a plain scan)
 	Pushdown   bool     // the sums were computed inside the database
+	// Fallback says why a pushdown streamed the rows instead ("" when it
+	// did not).
+	Fallback string
 }
 
 // Merged returns one group holding all groups merged (the whole table).

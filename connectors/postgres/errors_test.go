@@ -63,10 +63,6 @@ func TestBadInputs(t *testing.T) {
 			{"fewer rows than columns + 1", connectors.Request{Table: "few"}, connectors.ErrInsufficient, []string{"3 complete rows", "at least 4"}, true},
 			{"sample of a query", connectors.Request{Query: "SELECT a FROM few", SamplePct: 10}, connectors.ErrUnsupported, []string{"TABLESAMPLE"}, false},
 		}
-		if pd {
-			// Factors are not pushed down (yet): a clear refusal.
-			cases[4].is, cases[4].words = connectors.ErrUnsupported, []string{`"district"`, "not pushed down", "without --pushdown"}
-		}
 		for _, c := range cases {
 			t.Run(fmt.Sprintf("pushdown=%v/%s", pd, c.name), func(t *testing.T) {
 				res, err := src.Scan(context.Background(), c.req)
@@ -99,14 +95,8 @@ func TestBadInputs(t *testing.T) {
 		// numeric, float4 and boolean columns; the numeric with 19
 		// significant digits is counted as inexact; text is skipped, with
 		// its levels counted from the statistics; the boolean is a
-		// factor, which pushdown refuses.
+		// factor, pushed down as a grouping key.
 		res, err = src.Scan(context.Background(), connectors.Request{Table: "ops.pumps"})
-		if pd {
-			if !errors.Is(err, connectors.ErrUnsupported) || !strings.Contains(fmt.Sprint(err), `"running"`) {
-				t.Errorf("pumps with pushdown: %v, want the boolean factor refused", err)
-			}
-			continue
-		}
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -6,6 +6,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"math/big"
 	"slices"
 	"strconv"
 	"strings"
@@ -14,6 +15,7 @@ import (
 
 	"github.com/jackc/pgx/v5"
 	"github.com/jackc/pgx/v5/pgconn"
+	"github.com/jackc/pgx/v5/pgtype"
 
 	"plumb/connectors"
 	"plumb/stream"
@@ -72,7 +74,11 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 	if err != nil {
 		return nil, s.wrap(err, "cannot connect")
 	}
-	defer conn.Release()
+	defer func() {
+		if conn != nil {
+			conn.Release()
+		}
+	}()
 	tx, err := conn.BeginTx(ctx, pgx.TxOptions{AccessMode: pgx.ReadOnly, IsoLevel: pgx.RepeatableRead})
 	if err != nil {
 		return nil, s.wrap(err, "begin")
@@ -88,30 +94,84 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 		return nil, err
 	}
 	res := &connectors.Result{
-		Columns:    plan.Names(),
 		Sampled:    req.SamplePct > 0 && req.SamplePct < 100,
-		Inexact:    make([]int64, len(plan.Values)),
 		Skipped:    plan.Skipped,
 		Partitions: len(pds),
 		Pushdown:   true,
 	}
 	outs, err := s.runLeaves(ctx, tx, pds)
+	if errors.Is(err, errTooManyCells) {
+		// The cells would be more numbers than the rows are worth: stream.
+		tx.Rollback(context.Background())
+		conn.Release()
+		conn = nil
+		plain := *s
+		plain.opts.Pushdown = false
+		res, err := plain.Scan(ctx, req)
+		if err != nil {
+			return nil, err
+		}
+		res.Fallback = fmt.Sprintf("the factors' cells (bucket × segment × level combinations) exceed %d in a partition, so the rows were streamed instead of pushed down; raise the cell limit or name fewer or coarser factors", maxCells(req))
+		return res, nil
+	}
 	if err != nil {
 		return nil, err
 	}
+	var numIdx []int // plan.Values index of each numeric column
+	var facs []string
+	for j, c := range plan.Values {
+		if c.IsFactor() {
+			facs = append(facs, c.Name)
+		} else {
+			numIdx = append(numIdx, j)
+		}
+	}
+	inexact := make([]int64, len(plan.Values))
+	facLists := make([][]connectors.Factor, len(outs))
 	parts := make([][]connectors.Group, len(outs))
 	for i, o := range outs {
 		res.Read += o.read
 		res.NoTime += o.noTime
 		for j, n := range o.inexact {
-			res.Inexact[j] += n
+			inexact[numIdx[j]] += n
 		}
+		facLists[i] = o.factors(facs)
 		parts[i] = o.groups
+	}
+	res.Factors = connectors.UnionFactors(facLists...)
+	for _, f := range res.Factors {
+		if len(f.Levels) > plan.MaxLevels {
+			return nil, fmt.Errorf("%s: column %q has more than %d distinct values: %d levels had been seen when the limit was passed (%d in all); raise the limit on levels or leave the column out: %w",
+				t.source, f.Name, plan.MaxLevels, plan.MaxLevels+1, len(f.Levels), connectors.ErrTooManyLevels)
+		}
+	}
+	res.Columns = connectors.ExpandNames(plan.Names(), res.Factors)
+	res.Inexact = connectors.SpreadCounts(plan, res.Factors, inexact)
+	if err := connectors.CheckLevels(t.source, res); err != nil {
+		return nil, err
+	}
+	for i := range parts {
+		parts[i] = connectors.Align(parts[i], res.Columns)
 	}
 	if res.Groups, err = connectors.MergeGroups(parts, plan.MaxSegments); err != nil {
 		return nil, fmt.Errorf("%s: segment column %q: %w", t.source, plan.Segment.Name, err)
 	}
+	if err := s.countLevels(ctx, tx, t, plan); err != nil {
+		return nil, err
+	}
+	res.Skipped = plan.Skipped
 	return res, nil
+}
+
+// errTooManyCells: a partition's aggregate with factors returned more
+// cells than Request.MaxCells.
+var errTooManyCells = errors.New("too many cells")
+
+func maxCells(req connectors.Request) int {
+	if req.MaxCells > 0 {
+		return req.MaxCells
+	}
+	return connectors.DefaultMaxCells
 }
 
 // preparePush describes the target, resolves the request and builds one
@@ -129,10 +189,22 @@ func (s *Source) preparePush(ctx context.Context, tx pgx.Tx, req connectors.Requ
 	if err != nil {
 		return nil, nil, nil, err
 	}
+	// The numeric columns are aggregated; the factors are grouped by,
+	// each cell (bucket, segment, one level per factor) its own group.
+	num := *plan
+	num.Values = nil
+	var facs []connectors.Column
+	for _, c := range plan.Values {
+		if c.IsFactor() {
+			facs = append(facs, c)
+		} else {
+			num.Values = append(num.Values, c)
+		}
+	}
 	strategy := s.push
 	if strategy == pushAuto {
 		strategy = pushShifted
-		if s.version >= 120000 && plan.Weight == nil && (plan.Time != nil || plan.Segment != nil) {
+		if s.version >= 120000 && plan.Weight == nil && (plan.Time != nil || plan.Segment != nil || len(facs) > 0) {
 			strategy = pushRegr
 		}
 	}
@@ -143,16 +215,17 @@ func (s *Source) preparePush(ctx context.Context, tx pgx.Tx, req connectors.Requ
 	if err != nil {
 		return nil, nil, nil, err
 	}
-	cs, err := s.centres(ctx, tx, t, leaves, plan)
+	cs, err := s.centres(ctx, tx, t, leaves, &num)
 	if err != nil {
 		return nil, nil, nil, err
 	}
 	pds := make([]*push, len(leaves))
 	for i, l := range leaves {
-		if pds[i], err = s.newPush(t, l, plan, where, req, strategy); err != nil {
+		if pds[i], err = s.newPush(t, l, &num, facs, where, req, strategy); err != nil {
 			return nil, nil, nil, err
 		}
-		pds[i].setCentres(cs.forLeaf(i, plan, req.Centres))
+		pds[i].allValues = plan.Values
+		pds[i].setCentres(cs.forLeaf(i, &num, req.Centres))
 	}
 	return t, plan, pds, nil
 }
@@ -199,6 +272,24 @@ type leafOut struct {
 	read    int64
 	noTime  int64
 	inexact []int64
+	levels  []map[string]bool // per factor, the levels seen
+	facNull []int64           // per factor, rows dropped because it was NULL (the first NULL factor of a row)
+}
+
+// factors returns the leaf's factors (levels sorted).
+func (o leafOut) factors(names []string) []connectors.Factor {
+	out := make([]connectors.Factor, len(names))
+	for i, n := range names {
+		out[i] = connectors.Factor{Name: n}
+		if i < len(o.levels) {
+			for l := range o.levels[i] {
+				out[i].Levels = append(out[i].Levels, l)
+			}
+			slices.Sort(out[i].Levels)
+			out[i].Null = o.facNull[i]
+		}
+	}
+	return out
 }
 
 // runLeaves aggregates the leaves, at most Options.Parallel (or
@@ -313,56 +404,31 @@ func (pd *push) run(ctx context.Context, tx pgx.Tx, s *Source) (leafOut, error) 
 			return leafOut{}, s.wrap(err, pd.source)
 		}
 	}
-	out, drop, err := pd.aggregateOnce(ctx, tx)
+	out, drop, miss, err := pd.aggregateOnce(ctx, tx)
 	if outOfRange(err) {
 		// The statistics underestimated a column's magnitude and a
 		// product overflowed: take the scales from the leaf's extremes.
 		if err = pd.tableScales(ctx, tx); err == nil {
-			out, drop, err = pd.aggregateOnce(ctx, tx)
+			out, drop, miss, err = pd.aggregateOnce(ctx, tx)
 		}
 	}
-	if errors.Is(err, connectors.ErrTooManySegments) {
+	if errors.Is(err, connectors.ErrTooManySegments) || errors.Is(err, errTooManyCells) {
 		return out, err
 	}
 	if err != nil {
 		return out, s.wrap(err, pd.source)
 	}
-	if len(drop) > 0 {
-		rows, err := tx.Query(ctx, pd.missingSQL())
+	for _, k := range sortedKeys(drop) {
+		st := pd.newStats()
+		st.Dropped = drop[k]
+		if m := miss[k]; m != nil {
+			pd.fillMissing(st, m)
+		}
+		m, err := st.Moments()
 		if err != nil {
-			return out, s.wrap(err, pd.source)
+			return out, err
 		}
-		miss := map[gkey][]int64{}
-		err = forRows(rows, func(v []any) error {
-			k, ok := pd.key(v)
-			if !ok {
-				return nil
-			}
-			m := miss[k]
-			if m == nil {
-				m = make([]int64, 1+3*pd.p)
-				miss[k] = m
-			}
-			for i, x := range v[pd.nkeys:] {
-				m[i] += x.(int64)
-			}
-			return nil
-		})
-		if err != nil {
-			return out, s.wrap(err, pd.source)
-		}
-		for _, k := range sortedKeys(drop) {
-			st := pd.newStats()
-			st.Dropped = drop[k]
-			if m := miss[k]; m != nil {
-				pd.fillMissing(st, m)
-			}
-			m, err := st.Moments()
-			if err != nil {
-				return out, err
-			}
-			out.groups = append(out.groups, connectors.Group{Key: pd.groupKey(k), Moments: m})
-		}
+		out.groups = append(out.groups, connectors.Group{Key: pd.groupKey(k), Moments: m})
 	}
 	return out, nil
 }
@@ -392,39 +458,60 @@ func (pd *push) groupKey(k gkey) connectors.Key {
 
 // aggregateOnce runs the aggregate inside a savepoint, so that an error
 // (a value out of range) leaves the transaction usable for a retry.
-func (pd *push) aggregateOnce(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int64, error) {
+func (pd *push) aggregateOnce(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int64, map[gkey][]int64, error) {
 	sp, err := tx.Begin(ctx)
 	if err != nil {
-		return leafOut{}, nil, err
+		return leafOut{}, nil, nil, err
 	}
-	out, drop, err := pd.aggregate(ctx, sp)
+	out, drop, miss, err := pd.aggregate(ctx, sp)
 	if err != nil {
 		sp.Rollback(context.Background())
-		return leafOut{}, nil, err
+		return leafOut{}, nil, nil, err
 	}
-	return out, drop, sp.Commit(ctx)
+	return out, drop, miss, sp.Commit(ctx)
 }
 
 // aggregate runs the leaf's one statement: a group per complete fine
 // group (a bucket's rows may come in several, see binExpr), and the rows
 // dropped per key.
-func (pd *push) aggregate(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int64, error) {
-	out := leafOut{inexact: make([]int64, pd.p)}
+func (pd *push) aggregate(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int64, map[gkey][]int64, error) {
+	out := leafOut{inexact: make([]int64, pd.p), facNull: make([]int64, len(pd.facs)), levels: make([]map[string]bool, len(pd.facs))}
+	for i := range out.levels {
+		out.levels[i] = map[string]bool{}
+	}
 	drop := map[gkey]int64{}
+	miss := map[gkey][]int64{}
 	segs := map[string]bool{}
 	rows, err := tx.Query(ctx, pd.aggSQL(), pgx.QueryResultFormats{pgx.BinaryFormatCode})
 	if err != nil {
-		return out, nil, err
+		return out, nil, nil, err
 	}
+	cells := 0
+	limit := pd.maxCells
+	levels := make([]string, len(pd.facs))
 	err = forRows(rows, func(v []any) error {
+		if cells++; len(pd.facs) > 0 && cells > limit {
+			return errTooManyCells
+		}
 		k, valid := pd.key(v)
 		i := pd.nkeys
+		nullFac := -1
+		for f := range pd.facs {
+			l, ok := levelOf(v[i+f])
+			levels[f] = l
+			if !ok && nullFac < 0 {
+				nullFac = f
+			}
+		}
+		i += len(pd.facs)
 		complete, _ := v[i].(bool)
 		n := v[i+1].(int64)
 		out.read += n
 		for f, j := range pd.lay.flags {
 			out.inexact[j] += v[i+2+f].(int64)
 		}
+		state := v[i+2+len(pd.lay.flags)]
+		i++ // the aggregates follow the missing counts
 		if !valid {
 			out.noTime += n
 			return nil
@@ -436,12 +523,27 @@ func (pd *push) aggregate(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int
 					pd.source, pd.plan.Segment.Name, pd.plan.MaxSegments, connectors.ErrTooManySegments)
 			}
 		}
-		if !complete {
+		for f, l := range levels {
+			if _, ok := levelOf(v[pd.nkeys+f]); ok {
+				out.levels[f][l] = true
+			}
+		}
+		if nullFac >= 0 {
+			// Dropped, and counted against the first NULL factor only,
+			// not among the columns' missing values.
+			out.facNull[nullFac] += n
 			drop[k] += n
 			return nil
 		}
+		if !complete {
+			drop[k] += n
+			return pd.countMissing(miss, k, state)
+		}
 		st := pd.newStats()
 		pd.fill(st, n, v[i+2+len(pd.lay.flags):])
+		if len(pd.facs) > 0 {
+			st = pd.expand(st, levels)
+		}
 		m, err := st.Moments()
 		if err != nil {
 			return err
@@ -449,7 +551,7 @@ func (pd *push) aggregate(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int
 		out.groups = append(out.groups, connectors.Group{Key: pd.groupKey(k), Moments: m})
 		return nil
 	})
-	return out, drop, err
+	return out, drop, miss, err
 }
 
 // outOfRange reports whether err is PostgreSQL's "value out of range"
@@ -499,13 +601,17 @@ type push struct {
 	timeBase uint32 // base type of the time column
 	segRaw   bool   // sk is the raw segment value (ship), not its key
 
+	facs      []connectors.Column // factors: grouped by, read as their levels
+	allValues []connectors.Column // the request's values, factors in place
+	maxCells int                 // with factors, the most rows the aggregate may return
+
 	shiftBy   []float64 // c, per column (0: not shifted)
 	scaleBy   []float64 // s, per column: powers of two (stream.ScaleFor)
 	needProbe bool      // no statistics: take the centres from a few rows
 }
 
-func (s *Source) newPush(t *target, l leaf, plan *connectors.Plan, where string, req connectors.Request, strategy pushStrategy) (*push, error) {
-	pd := &push{source: t.source, plan: plan, strategy: strategy, p: len(plan.Values), ship: l.relkind == "f"}
+func (s *Source) newPush(t *target, l leaf, plan *connectors.Plan, facs []connectors.Column, where string, req connectors.Request, strategy pushStrategy) (*push, error) {
+	pd := &push{source: t.source, plan: plan, strategy: strategy, p: len(plan.Values), ship: l.relkind == "f", facs: facs, maxCells: maxCells(req)}
 	lt := *t
 	if !l.self {
 		lt.table = &l.name
@@ -553,6 +659,15 @@ func (s *Source) newPush(t *target, l leaf, plan *connectors.Plan, where string,
 		}
 	}
 	pd.nkeys = len(list)
+	for i, c := range facs {
+		// Levels as text, as streaming reads them; a foreign partition's
+		// text and booleans raw, which postgres_fdw sends.
+		e := connectors.QuoteIdent(c.Name)
+		if !pd.ship || !rawLevel(t.base[c.Name]) {
+			e += "::text"
+		}
+		list = append(list, fmt.Sprintf("%s AS g%d", e, i))
+	}
 	if plan.Weight != nil {
 		list = append(list, valueExpr(plan.Weight.Name, t.base[plan.Weight.Name])+" AS w")
 	}
@@ -587,6 +702,75 @@ func rawSegment(base uint32) bool {
 		return true
 	}
 	return false
+}
+
+// rawLevel reports whether a factor of this base type is read raw on a
+// foreign partition: text and varchar as they are, booleans as true and
+// false (the others, char(n) and enums, through ::text, which is not
+// sent to the shard).
+func rawLevel(base uint32) bool {
+	const pgText, pgVarchar = 25, 1043 // pg_type.dat
+	return base == pgText || base == pgVarchar || base == oidBool
+}
+
+// levelOf turns a factor value into its level; false for NULL.
+func levelOf(v any) (string, bool) {
+	switch x := v.(type) {
+	case nil:
+		return "", false
+	case string:
+		return x, true
+	case bool:
+		return strconv.FormatBool(x), true
+	case []byte:
+		return string(x), true
+	}
+	return fmt.Sprint(v), true
+}
+
+// expand widens a cell's statistics to its factors' indicator columns, in
+// request order: in a cell every indicator is constant, 1 for the cell's
+// level (min = max = 1, co-moments 0); the other levels' indicators are
+// the all-zero columns that aligning adds.
+func (pd *push) expand(st *connectors.Stats, levels []string) *connectors.Stats {
+	var names []string
+	var src []int // numeric index of each column, -1 for an indicator
+	fi, ni := 0, 0
+	for _, c := range pd.allValues {
+		if c.IsFactor() {
+			names = append(names, connectors.IndicatorName(c.Name, levels[fi]))
+			src = append(src, -1)
+			fi++
+			continue
+		}
+		names = append(names, c.Name)
+		src = append(src, ni)
+		ni++
+	}
+	q := len(names)
+	out := &connectors.Stats{
+		Names: names, Used: st.Used, SumWeights: st.SumWeights, Dropped: st.Dropped, BadWeights: st.BadWeights, Centered: st.Centered,
+		Null: make([]int64, q), NaN: make([]int64, q), Inf: make([]int64, q),
+		Origin: make([]float64, q), Scale: make([]float64, q), Sum: make([]float64, q), Cross: make([]float64, q*(q+1)/2),
+		Min: make([]float64, q), Max: make([]float64, q),
+	}
+	k := 0
+	for a := 0; a < q; a++ {
+		i := src[a]
+		if i < 0 {
+			out.Origin[a], out.Scale[a], out.Min[a], out.Max[a] = 1, 1, 1, 1
+		} else {
+			out.Null[a], out.NaN[a], out.Inf[a] = st.Null[i], st.NaN[i], st.Inf[i]
+			out.Origin[a], out.Scale[a], out.Sum[a], out.Min[a], out.Max[a] = st.Origin[i], st.Scale[i], st.Sum[i], st.Min[i], st.Max[i]
+		}
+		for b := a; b < q; b++ {
+			if j := src[b]; i >= 0 && j >= 0 {
+				out.Cross[k] = st.Cross[i*pd.p-i*(i-1)/2+(j-i)]
+			}
+			k++
+		}
+	}
+	return out
 }
 
 // binExpr is a shippable fine time bin of a foreign partition's time
@@ -649,7 +833,19 @@ func (pd *push) okExpr() string {
 	if pd.plan.Weight != nil {
 		c = append(c, pd.wok())
 	}
+	if len(c) == 0 {
+		return "true"
+	}
 	return "(" + strings.Join(c, " AND ") + ")"
+}
+
+// facList names the factor columns of the inner SELECT.
+func (pd *push) facList() []string {
+	g := make([]string, len(pd.facs))
+	for i := range g {
+		g[i] = fmt.Sprintf("g%d", i)
+	}
+	return g
 }
 
 // wok mirrors the stream package: a weight is usable when 0 ≤ w < +Inf
@@ -703,7 +899,7 @@ func (pd *push) aggSQL() string {
 	keys := pd.keyList()
 	d := make([]string, pd.p)  // column j as aggregated
 	wd := make([]string, pd.p) // w·d_j under a weight
-	ok := "ok"
+	ok, miss := "ok", "miss"
 	var src string
 	if pd.ship {
 		for j := range d {
@@ -714,9 +910,11 @@ func (pd *push) aggSQL() string {
 			}
 		}
 		ok = pd.okExpr()
+		miss = "CASE WHEN " + ok + " THEN NULL ELSE " + pd.missExpr() + " END"
 		src = pd.from()
 	} else {
-		sub := append(slices.Clone(keys), pd.okExpr()+" AS ok")
+		sub := append(slices.Clone(keys), pd.facList()...)
+		sub = append(sub, pd.okExpr()+" AS ok", "CASE WHEN "+pd.okExpr()+" THEN NULL ELSE "+pd.missExpr()+" END AS miss")
 		if pd.plan.Weight != nil {
 			sub = append(sub, "w")
 		}
@@ -739,10 +937,11 @@ func (pd *push) aggSQL() string {
 		}
 		src = "(WITH plumb_fence AS (SELECT) SELECT " + strings.Join(sub, ", ") + " FROM " + pd.from() + ") AS s"
 	}
-	list := append(slices.Clone(keys), ok, "count(*)")
+	list := append(append(slices.Clone(keys), pd.facList()...), ok, "count(*)")
 	for f := range pd.lay.flags {
 		list = append(list, fmt.Sprintf("count(*) FILTER (WHERE f%d)", f))
 	}
+	list = append(list, "sum("+miss+")")
 	switch pd.strategy {
 	case pushRegr:
 		for j := 0; j < pd.p; j++ {
@@ -771,7 +970,13 @@ func (pd *push) aggSQL() string {
 	for j := 0; j < pd.p; j++ {
 		list = append(list, fmt.Sprintf("min(x%d)", j), fmt.Sprintf("max(x%d)", j))
 	}
-	return "SELECT " + strings.Join(list, ", ") + " FROM " + src + " GROUP BY " + groupBy(len(keys)+1)
+	q := "SELECT " + strings.Join(list, ", ") + " FROM " + src + " GROUP BY " + groupBy(len(keys)+len(pd.facs)+1)
+	if len(pd.facs) > 0 {
+		// One row more than the cells allowed tells that there are too
+		// many (postgres_fdw sends the LIMIT too).
+		q += fmt.Sprintf(" LIMIT %d", pd.maxCells+1)
+	}
+	return q
 }
 
 // groupBy is "GROUP BY 1, …, n" by output position, which postgres_fdw
@@ -784,29 +989,65 @@ func groupBy(n int) string {
 	return strings.Join(g, ", ")
 }
 
-// missingSQL counts, per key, the rows whose weight is unusable and, among
-// the rows with a usable weight, each column's NULL, NaN and infinite
-// values.
-func (pd *push) missingSQL() string {
-	list := pd.keyList()
-	scope := "true"
-	if pd.plan.Weight != nil {
-		list = append(list, "count(*) FILTER (WHERE NOT "+pd.wok()+" OR w IS NULL)")
-		scope = pd.wok()
-	} else {
-		list = append(list, "0::int8")
-	}
+// missField is the width, in decimal digits, of one count in missExpr's
+// sum: a partition's group may drop up to 10^12 − 1 rows.
+const missField = 12
+
+// missExpr encodes why an incomplete row is dropped as a numeric whose
+// decimal fields (missField digits each) count, per column, a NULL, a NaN
+// and an infinite value, and last an unusable weight (then nothing else,
+// as the stream package counts). Its sum over a group's incomplete rows
+// holds all their missing counts, exactly: the one statement needs no
+// second pass to count them. It is evaluated only for incomplete rows.
+func (pd *push) missExpr() string {
+	field := func(k int) string { return fmt.Sprintf("1e%d::numeric", missField*k) }
+	var terms []string
 	for j := 0; j < pd.p; j++ {
-		list = append(list,
-			fmt.Sprintf("count(*) FILTER (WHERE %s AND x%d IS NULL)", scope, j),
-			fmt.Sprintf("count(*) FILTER (WHERE %s AND x%d = 'NaN'::float8)", scope, j),
-			fmt.Sprintf("count(*) FILTER (WHERE %s AND (x%d = 'Infinity'::float8 OR x%d = '-Infinity'::float8))", scope, j, j))
+		x := fmt.Sprintf("x%d", j)
+		terms = append(terms, fmt.Sprintf("CASE WHEN %s IS NULL THEN %s WHEN %s = 'NaN'::float8 THEN %s WHEN %s > '-Infinity'::float8 AND %s < 'Infinity'::float8 THEN 0::numeric ELSE %s END",
+			x, field(3*j), x, field(3*j+1), x, x, field(3*j+2)))
 	}
-	q := "SELECT " + strings.Join(list, ", ") + " FROM " + pd.from()
-	if pd.nkeys > 0 {
-		q += " GROUP BY " + groupBy(pd.nkeys)
+	e := "0::numeric"
+	if len(terms) > 0 {
+		e = "(" + strings.Join(terms, " + ") + ")"
 	}
-	return q
+	if pd.plan.Weight != nil {
+		e = "CASE WHEN " + pd.wok() + " THEN " + e + " ELSE " + field(3*pd.p) + " END"
+	}
+	return e
+}
+
+// countMissing adds the missing counts that missExpr's sum v encodes to
+// miss[k] (as fillMissing reads them: bad weights, then NULL, NaN and
+// infinite counts per column).
+func (pd *push) countMissing(miss map[gkey][]int64, k gkey, v any) error {
+	m := miss[k]
+	if m == nil {
+		m = make([]int64, 1+3*pd.p)
+		miss[k] = m
+	}
+	x, ok := v.(pgtype.Numeric)
+	if !ok || !x.Valid || x.NaN || x.InfinityModifier != pgtype.Finite || x.Int == nil {
+		return fmt.Errorf("%s: missing counts: unexpected %T %v", pd.source, v, v)
+	}
+	n := new(big.Int).Set(x.Int)
+	if x.Exp > 0 {
+		n.Mul(n, new(big.Int).Exp(big.NewInt(10), big.NewInt(int64(x.Exp)), nil))
+	} else if x.Exp < 0 {
+		n.Quo(n, new(big.Int).Exp(big.NewInt(10), big.NewInt(int64(-x.Exp)), nil))
+	}
+	base := new(big.Int).Exp(big.NewInt(10), big.NewInt(missField), nil)
+	var r big.Int
+	for f := 0; f < 3*pd.p+1 && n.Sign() > 0; f++ {
+		n.QuoRem(n, base, &r)
+		c := r.Int64()
+		if f == 3*pd.p {
+			m[0] += c
+		} else {
+			m[1+f] += c
+		}
+	}
+	return nil
 }
 
 // tableScales takes the scales from the leaf's complete rows (a full pass

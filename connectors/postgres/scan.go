@@ -137,11 +137,6 @@ func (s *Source) prepare(ctx context.Context, tx pgx.Tx, req connectors.Request)
 	if err != nil {
 		return nil, nil, stmt{}, err
 	}
-	if f := plan.Factors(); s.opts.Pushdown && len(f) > 0 {
-		c := plan.Values[f[0]]
-		return nil, nil, stmt{}, fmt.Errorf("%s: column %q is categorical (type %s): factor columns are not pushed down yet; scan without --pushdown: %w",
-			t.source, c.Name, c.Type, connectors.ErrUnsupported)
-	}
 	where, err := connectors.CheckWhere(req.Where, connectors.Postgres)
 	if err != nil {
 		return nil, nil, stmt{}, err
