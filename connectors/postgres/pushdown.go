@@ -603,7 +603,7 @@ type push struct {
 
 	facs      []connectors.Column // factors: grouped by, read as their levels
 	allValues []connectors.Column // the request's values, factors in place
-	maxCells int                 // with factors, the most rows the aggregate may return
+	maxCells  int                 // with factors, the most rows the aggregate may return
 
 	shiftBy   []float64 // c, per column (0: not shifted)
 	scaleBy   []float64 // s, per column: powers of two (stream.ScaleFor)
