@@ -35,6 +35,7 @@ type scanFlags struct {
 	seed                    int64
 	parallel                int
 	pushdown                bool
+	maxCells                int
 	statementTimeout        time.Duration
 	quiet                   bool
 }
@@ -107,7 +108,8 @@ serious; a condition index above 30 marks a strong near dependency.`,
 	fl.Float64Var(&f.samplePct, "sample", 0, "read about this percentage of rows (0 < PCT < 100), chosen by --seed")
 	fl.Int64Var(&f.seed, "seed", 1, "seed for --sample")
 	fl.IntVar(&f.parallel, "parallel", 1, "partitions read at once on separate connections (PostgreSQL)")
-	fl.BoolVar(&f.pushdown, "pushdown", false, "compute the cross-products inside the database (PostgreSQL)")
+	fl.BoolVar(&f.pushdown, "pushdown", false, "compute the cross-products inside the database (PostgreSQL; a partitioned table one aggregate per partition)")
+	fl.IntVar(&f.maxCells, "max-cells", connectors.DefaultMaxCells, "with --pushdown and text or boolean columns: most cells (bucket × segment × level combinations) per partition before the rows are streamed instead")
 	fl.DurationVar(&f.statementTimeout, "statement-timeout", 0, "longest a statement may run, e.g. 90s or 2h; SQLite also waits this long for a writer's lock (default: the connector's: 1h for PostgreSQL; for SQLite no limit and a 5s wait)")
 	fl.BoolVarP(&f.quiet, "quiet", "q", false, "no progress line")
 	return cmd
@@ -333,7 +335,7 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 		TimeColumn: f.timeColumn, Bucket: f.bucket, Location: loc,
 		Segment: f.segment, MaxSegments: f.maxSegments,
 		MaxLevels: f.maxLevels,
-		SamplePct: f.samplePct, Seed: f.seed,
+		SamplePct: f.samplePct, Seed: f.seed, MaxCells: f.maxCells,
 	}
 	what := f.table
 	if what == "" {
@@ -369,6 +371,9 @@ func runScan(ctx context.Context, stdout, stderr io.Writer, f *scanFlags) error 
 		return err
 	}
 	opt.Factors = factorOptions(res.Factors, bases)
+	if res.Fallback != "" {
+		rep.Notes = append(rep.Notes, res.Fallback)
+	}
 	out := scanOutput{
 		Source: connectors.Redact(f.db), Table: f.table, Query: f.query, Target: f.target,
 		Sampled: res.Sampled, Read: res.Read, Report: rep, Skipped: withLevels(skipped, res.Skipped), Caution: caution,
