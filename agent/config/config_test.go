@@ -51,6 +51,7 @@ watches:
   - name: pressure
     source: warehouse
     query: SELECT pressure_bar, pipe_age_years, metered_volume_m3 FROM ops.district_daily
+    pushdown: true
 `
 
 func TestParseFull(t *testing.T) {
@@ -169,6 +170,11 @@ func TestParseErrors(t *testing.T) {
 	}{
 		// The old name of rescan is explained, not just refused.
 		{"lookback renamed", base + "    time_column: day\n    lookback: 3 buckets\n", []string{"line 8", "lookback is now called rescan", "rescan:"}},
+		// The database computes cross-products only, and only PostgreSQL.
+		{"pushdown on SQLite", base + "    pushdown: true\n", []string{"line 7", "pushdown", "SQLite"}},
+		{"pushdown with exact precision", strings.Replace(base, "sqlite:x.db", "postgres://db/x", 1) + "    pushdown: true\n    precision: exact\n",
+			[]string{"line 7", "pushdown", "precision exact", "auto or fast"}},
+		{"pushdown not a bool", base + "    pushdown: sometimes\n", []string{"line 7", "true or false"}},
 	}...)
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
@@ -332,6 +338,7 @@ func TestDescribe(t *testing.T) {
 		"next 2026-06-02 06:15 CEST, 2026-06-03 06:15 CEST, 2026-06-04 06:15 CEST",
 		"columns     every numeric column",
 		"reads       query SELECT pressure_bar",
+		"pushdown    the database computes the sums (one aggregate per partition); plumb merges them",
 	} {
 		if !strings.Contains(out, want) {
 			t.Errorf("description lacks %q:\n%s", want, out)
