@@ -34,7 +34,7 @@ func benchColumns() []string {
 	return c
 }
 
-func createBenchTable(b *testing.B, u string, rows int) {
+func createBenchTable(b testing.TB, u string, rows int) {
 	b.Helper()
 	var list []string
 	for i := 1; i <= 20; i++ {

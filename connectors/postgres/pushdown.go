@@ -163,6 +163,10 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 	return res, nil
 }
 
+// errNonFinite: a complete group under the NULL test holds a NaN or an
+// infinity.
+var errNonFinite = errors.New("a NaN or an infinity among the values")
+
 // errTooManyCells: a partition's aggregate with factors returned more
 // cells than Request.MaxCells.
 var errTooManyCells = errors.New("too many cells")
@@ -225,6 +229,7 @@ func (s *Source) preparePush(ctx context.Context, tx pgx.Tx, req connectors.Requ
 			return nil, nil, nil, err
 		}
 		pds[i].allValues = plan.Values
+		pds[i].strict = s.strict
 		pds[i].setCentres(cs.forLeaf(i, &num, req.Centres))
 	}
 	return t, plan, pds, nil
@@ -405,10 +410,18 @@ func (pd *push) run(ctx context.Context, tx pgx.Tx, s *Source) (leafOut, error) 
 		}
 	}
 	out, drop, miss, err := pd.aggregateOnce(ctx, tx)
+	if errors.Is(err, errNonFinite) {
+		pd.strict = true
+		out, drop, miss, err = pd.aggregateOnce(ctx, tx)
+	}
 	if outOfRange(err) {
 		// The statistics underestimated a column's magnitude and a
 		// product overflowed: take the scales from the leaf's extremes.
 		if err = pd.tableScales(ctx, tx); err == nil {
+			out, drop, miss, err = pd.aggregateOnce(ctx, tx)
+		}
+		if errors.Is(err, errNonFinite) {
+			pd.strict = true
 			out, drop, miss, err = pd.aggregateOnce(ctx, tx)
 		}
 	}
@@ -471,6 +484,23 @@ func (pd *push) aggregateOnce(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey
 	return out, drop, miss, sp.Commit(ctx)
 }
 
+// planFor sets the planner up for the leaf's statement. postgres_fdw
+// weighs sending an aggregate to the shard against fetching the rows and
+// aggregating here, and in PostgreSQL 15 it counts the cost of the
+// aggregate's argument expressions twice for the shard (in the scan's
+// target and in the aggregates), so with many columns — p(p+1)/2 products
+// — fetching every row looks cheaper. Expression costs near zero, for
+// this statement only, leave the comparison to what differs: rows sent
+// across against groups sent. A local leaf keeps the server's settings.
+func (pd *push) planFor(ctx context.Context, tx pgx.Tx) error {
+	v := "DEFAULT"
+	if pd.ship {
+		v = "0.000001"
+	}
+	_, err := tx.Exec(ctx, "SET LOCAL cpu_operator_cost = "+v)
+	return err
+}
+
 // aggregate runs the leaf's one statement: a group per complete fine
 // group (a bucket's rows may come in several, see binExpr), and the rows
 // dropped per key.
@@ -482,6 +512,9 @@ func (pd *push) aggregate(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int
 	drop := map[gkey]int64{}
 	miss := map[gkey][]int64{}
 	segs := map[string]bool{}
+	if err := pd.planFor(ctx, tx); err != nil {
+		return out, nil, nil, err
+	}
 	rows, err := tx.Query(ctx, pd.aggSQL(), pgx.QueryResultFormats{pgx.BinaryFormatCode})
 	if err != nil {
 		return out, nil, nil, err
@@ -541,6 +574,11 @@ func (pd *push) aggregate(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int
 		}
 		st := pd.newStats()
 		pd.fill(st, n, v[i+2+len(pd.lay.flags):])
+		for j := range st.Min {
+			if !(st.Min[j] > math.Inf(-1) && st.Max[j] < math.Inf(1)) {
+				return errNonFinite
+			}
+		}
 		if len(pd.facs) > 0 {
 			st = pd.expand(st, levels)
 		}
@@ -608,6 +646,7 @@ type push struct {
 	shiftBy   []float64 // c, per column (0: not shifted)
 	scaleBy   []float64 // s, per column: powers of two (stream.ScaleFor)
 	needProbe bool      // no statistics: take the centres from a few rows
+	strict    bool      // completeness tests finiteness (see completeExpr)
 }
 
 func (s *Source) newPush(t *target, l leaf, plan *connectors.Plan, facs []connectors.Column, where string, req connectors.Request, strategy pushStrategy) (*push, error) {
@@ -839,6 +878,28 @@ func (pd *push) okExpr() string {
 	return "(" + strings.Join(c, " AND ") + ")"
 }
 
+// completeExpr is the completeness key of the aggregate: okExpr once a
+// NaN or an infinity was met (strict), else the far cheaper test that no
+// value is NULL (and the weight usable). A NaN or an infinity in a row it
+// passes shows in its group's min or max (PostgreSQL sorts NaN above
+// +Infinity); only then is the aggregate run again with okExpr.
+func (pd *push) completeExpr() string {
+	if pd.strict {
+		return pd.okExpr()
+	}
+	var c []string
+	for j := 0; j < pd.p; j++ {
+		c = append(c, fmt.Sprintf("x%d IS NOT NULL", j))
+	}
+	if pd.plan.Weight != nil {
+		c = append(c, pd.wok())
+	}
+	if len(c) == 0 {
+		return "true"
+	}
+	return "(" + strings.Join(c, " AND ") + ")"
+}
+
 // facList names the factor columns of the inner SELECT.
 func (pd *push) facList() []string {
 	g := make([]string, len(pd.facs))
@@ -899,7 +960,7 @@ func (pd *push) aggSQL() string {
 	keys := pd.keyList()
 	d := make([]string, pd.p)  // column j as aggregated
 	wd := make([]string, pd.p) // w·d_j under a weight
-	ok, miss := "ok", "miss"
+	ok, miss := "ok", ""
 	var src string
 	if pd.ship {
 		for j := range d {
@@ -909,12 +970,14 @@ func (pd *push) aggSQL() string {
 				wd[j] = "w * " + d[j]
 			}
 		}
-		ok = pd.okExpr()
+		ok = pd.completeExpr()
 		miss = "CASE WHEN " + ok + " THEN NULL ELSE " + pd.missExpr() + " END"
 		src = pd.from()
 	} else {
 		sub := append(slices.Clone(keys), pd.facList()...)
-		sub = append(sub, pd.okExpr()+" AS ok", "CASE WHEN "+pd.okExpr()+" THEN NULL ELSE "+pd.missExpr()+" END AS miss")
+		sub = append(sub, pd.completeExpr()+" AS ok")
+		// Over the subquery's columns: ok is computed once per row.
+		miss = "CASE WHEN ok THEN NULL ELSE " + pd.missExpr() + " END"
 		if pd.plan.Weight != nil {
 			sub = append(sub, "w")
 		}

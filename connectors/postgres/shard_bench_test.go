@@ -10,6 +10,7 @@ import (
 	"strings"
 	"sync/atomic"
 	"testing"
+	"time"
 
 	"github.com/jackc/pgx/v5"
 
@@ -60,21 +61,28 @@ func (c countingWriter) Write(p []byte) (int, error) {
 }
 
 // BenchmarkShardPushdown measures, in one run, on PLUMB_BENCH_SHARD_ROWS
-// rows (default 200 000) × 10 float8 columns: on one instance the bare
+// rows (default 500 000) × PLUMB_BENCH_SHARD_COLS float8 columns (default
+// 20; one with mean 1e9 and spread 1): on one instance the bare
 // sums-of-products SELECT (the floor) and plumb --pushdown on the same
 // rows in a plain table; through a coordinator whose table is two foreign
 // partitions on two shards (three servers on this machine), plumb
 // --pushdown and, for contrast, plumb streaming. It reports the times,
 // their ratios, and the bytes on each link: shard → coordinator (a
 // counting proxy in front of each shard) and coordinator → plumb (plumb's
-// sockets). Run it alone:
+// sockets). Beside the wall-clock times it reports each server's
+// processor time (pgtest's CPUTime: backends and parallel workers), which
+// moves far less on a machine shared with other work; push_one_strict is
+// the pushdown whose first statement also tests every value for NaN and
+// infinity. Run it alone:
 // go test -run XXX -bench ShardPushdown -benchtime 3x ./connectors/postgres/
 func BenchmarkShardPushdown(b *testing.B) {
-	rows := 200000
+	rows, p := 500000, 20
 	if s := os.Getenv("PLUMB_BENCH_SHARD_ROWS"); s != "" {
 		rows, _ = strconv.Atoi(s)
 	}
-	const p = 10
+	if s := os.Getenv("PLUMB_BENCH_SHARD_COLS"); s != "" {
+		p, _ = strconv.Atoi(s)
+	}
 	cols := make([]string, p)
 	var ddl, gen []string
 	for j := range cols {
@@ -126,6 +134,8 @@ func BenchmarkShardPushdown(b *testing.B) {
 		b.Fatal(err)
 	}
 	push, plumbBytes := openCounting(b, c.URL, connectors.Options{Pushdown: true})
+	strict, _ := openCounting(b, c.URL, connectors.Options{Pushdown: true})
+	strict.strict = true
 	stream, _ := openCounting(b, c.URL, connectors.Options{})
 	local := connectors.Request{Table: "readings_local", Columns: cols}
 	sharded := connectors.Request{Table: "readings", Columns: cols}
@@ -146,18 +156,34 @@ func BenchmarkShardPushdown(b *testing.B) {
 		return n
 	}
 	m := map[string]float64{}
+	coord := c.Coordinator
+	// timed runs f and adds its wall-clock and processor times (the
+	// coordinator's, and each shard's) under name.
+	timed := func(name string, f func() error) {
+		cpu0 := coord.CPUTime()
+		sh0 := make([]time.Duration, len(c.Shards))
+		for i, s := range c.Shards {
+			sh0[i] = s.CPUTime()
+		}
+		m[name+"_s"] += timeIt(b, f)
+		m[name+"_cpu_s"] += (coord.CPUTime() - cpu0).Seconds()
+		for i, s := range c.Shards {
+			m[fmt.Sprintf("%s_shard%d_cpu_s", name, i)] += (s.CPUTime() - sh0[i]).Seconds()
+		}
+	}
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
-		m["bare_sums_s"] += timeIt(b, func() error { _, err := conn.Exec(ctx, bare); return err })
+		timed("bare_sums", func() error { _, err := conn.Exec(ctx, bare); return err })
 		before := plumbBytes.Load()
-		m["push_one_s"] += timeIt(b, scan(push, local))
+		timed("push_one", scan(push, local))
 		m["push_one_bytes_to_plumb"] += float64(plumbBytes.Load() - before)
+		timed("push_one_strict", scan(strict, local))
 		before, sb := plumbBytes.Load(), shardTotal()
-		m["push_shards_s"] += timeIt(b, scan(push, sharded))
+		timed("push_shards", scan(push, sharded))
 		m["push_shards_bytes_to_plumb"] += float64(plumbBytes.Load() - before)
 		m["push_shards_bytes_from_shards"] += float64(shardTotal() - sb)
 		sb = shardTotal()
-		m["stream_shards_s"] += timeIt(b, scan(stream, sharded))
+		timed("stream_shards", scan(stream, sharded))
 		m["stream_shards_bytes_from_shards"] += float64(shardTotal() - sb)
 	}
 	b.StopTimer()
@@ -165,6 +191,15 @@ func BenchmarkShardPushdown(b *testing.B) {
 		m[k] /= float64(b.N)
 	}
 	m["push_one_vs_bare"] = m["push_one_s"] / m["bare_sums_s"]
+	m["push_one_cpu_vs_bare"] = m["push_one_cpu_s"] / m["bare_sums_cpu_s"]
+	m["push_one_strict_cpu_vs_bare"] = m["push_one_strict_cpu_s"] / m["bare_sums_cpu_s"]
+	m["push_shards_cpu_all_vs_push_one"] = (m["push_shards_cpu_s"] + m["push_shards_shard0_cpu_s"] + m["push_shards_shard1_cpu_s"]) / m["push_one_cpu_s"]
+	for k := range m {
+		// Only the coordinator works for the local table.
+		if strings.HasPrefix(k, "bare_sums_shard") || strings.HasPrefix(k, "push_one_shard") || strings.HasPrefix(k, "push_one_strict_shard") {
+			delete(m, k)
+		}
+	}
 	m["push_shards_vs_push_one"] = m["push_shards_s"] / m["push_one_s"]
 	m["stream_shards_vs_push_shards"] = m["stream_shards_s"] / m["push_shards_s"]
 	for k, v := range m {
