@@ -42,7 +42,6 @@ type Source struct {
 	version  int // server_version_num
 	mode     readMode
 	push     pushStrategy
-	strict   bool // pushdown: test finiteness in the first statement (benchmarks)
 }
 
 type readMode int

@@ -163,10 +163,6 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 	return res, nil
 }
 
-// errNonFinite: a complete group under the NULL test holds a NaN or an
-// infinity.
-var errNonFinite = errors.New("a NaN or an infinity among the values")
-
 // errTooManyCells: a partition's aggregate with factors returned more
 // cells than Request.MaxCells.
 var errTooManyCells = errors.New("too many cells")
@@ -229,7 +225,6 @@ func (s *Source) preparePush(ctx context.Context, tx pgx.Tx, req connectors.Requ
 			return nil, nil, nil, err
 		}
 		pds[i].allValues = plan.Values
-		pds[i].strict = s.strict
 		pds[i].setCentres(cs.forLeaf(i, &num, req.Centres))
 	}
 	return t, plan, pds, nil
@@ -410,18 +405,10 @@ func (pd *push) run(ctx context.Context, tx pgx.Tx, s *Source) (leafOut, error) 
 		}
 	}
 	out, drop, miss, err := pd.aggregateOnce(ctx, tx)
-	if errors.Is(err, errNonFinite) {
-		pd.strict = true
-		out, drop, miss, err = pd.aggregateOnce(ctx, tx)
-	}
 	if outOfRange(err) {
 		// The statistics underestimated a column's magnitude and a
 		// product overflowed: take the scales from the leaf's extremes.
 		if err = pd.tableScales(ctx, tx); err == nil {
-			out, drop, miss, err = pd.aggregateOnce(ctx, tx)
-		}
-		if errors.Is(err, errNonFinite) {
-			pd.strict = true
 			out, drop, miss, err = pd.aggregateOnce(ctx, tx)
 		}
 	}
@@ -574,11 +561,6 @@ func (pd *push) aggregate(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int
 		}
 		st := pd.newStats()
 		pd.fill(st, n, v[i+2+len(pd.lay.flags):])
-		for j := range st.Min {
-			if !(st.Min[j] > math.Inf(-1) && st.Max[j] < math.Inf(1)) {
-				return errNonFinite
-			}
-		}
 		if len(pd.facs) > 0 {
 			st = pd.expand(st, levels)
 		}
@@ -646,7 +628,6 @@ type push struct {
 	shiftBy   []float64 // c, per column (0: not shifted)
 	scaleBy   []float64 // s, per column: powers of two (stream.ScaleFor)
 	needProbe bool      // no statistics: take the centres from a few rows
-	strict    bool      // completeness tests finiteness (see completeExpr)
 }
 
 func (s *Source) newPush(t *target, l leaf, plan *connectors.Plan, facs []connectors.Column, where string, req connectors.Request, strategy pushStrategy) (*push, error) {
@@ -878,28 +859,6 @@ func (pd *push) okExpr() string {
 	return "(" + strings.Join(c, " AND ") + ")"
 }
 
-// completeExpr is the completeness key of the aggregate: okExpr once a
-// NaN or an infinity was met (strict), else the far cheaper test that no
-// value is NULL (and the weight usable). A NaN or an infinity in a row it
-// passes shows in its group's min or max (PostgreSQL sorts NaN above
-// +Infinity); only then is the aggregate run again with okExpr.
-func (pd *push) completeExpr() string {
-	if pd.strict {
-		return pd.okExpr()
-	}
-	var c []string
-	for j := 0; j < pd.p; j++ {
-		c = append(c, fmt.Sprintf("x%d IS NOT NULL", j))
-	}
-	if pd.plan.Weight != nil {
-		c = append(c, pd.wok())
-	}
-	if len(c) == 0 {
-		return "true"
-	}
-	return "(" + strings.Join(c, " AND ") + ")"
-}
-
 // facList names the factor columns of the inner SELECT.
 func (pd *push) facList() []string {
 	g := make([]string, len(pd.facs))
@@ -970,12 +929,12 @@ func (pd *push) aggSQL() string {
 				wd[j] = "w * " + d[j]
 			}
 		}
-		ok = pd.completeExpr()
+		ok = pd.okExpr()
 		miss = "CASE WHEN " + ok + " THEN NULL ELSE " + pd.missExpr() + " END"
 		src = pd.from()
 	} else {
 		sub := append(slices.Clone(keys), pd.facList()...)
-		sub = append(sub, pd.completeExpr()+" AS ok")
+		sub = append(sub, pd.okExpr()+" AS ok")
 		// Over the subquery's columns: ok is computed once per row.
 		miss = "CASE WHEN ok THEN NULL ELSE " + pd.missExpr() + " END"
 		if pd.plan.Weight != nil {
@@ -1171,7 +1130,7 @@ func (pd *push) probe(ctx context.Context, tx pgx.Tx) error {
 		return err
 	}
 	for j := range pd.shiftBy {
-		pd.scaleBy[j] = stream.ScaleFor(lo[j], hi[j])
+		pd.scaleBy[j] = sqlScale(lo[j], hi[j])
 		if n > 0 {
 			// The midrange: finite whatever the magnitudes, and among
 			// the values.

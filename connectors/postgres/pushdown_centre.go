@@ -192,20 +192,33 @@ func (cs *centreSet) forLeaf(i int, plan *connectors.Plan, hint map[string]float
 		}
 		scale[j] = 1
 		if st.ok {
-			scale[j] = stream.ScaleFor(st.lo, st.hi)
+			scale[j] = sqlScale(st.lo, st.hi)
 			shift[j] = st.mean
 		}
 		h, known := hint[c.Name]
 		if known && !math.IsNaN(h) && !math.IsInf(h, 0) {
 			shift[j] = h
 			if !st.ok {
-				scale[j] = stream.ScaleFor(h, h)
+				scale[j] = sqlScale(h, h)
 			}
 		} else if !st.ok {
 			probe = true
 		}
 	}
 	return shift, scale, probe
+}
+
+// sqlScale is the power of two a pushdown divides a column by: 1 for
+// magnitudes between 1e-100 and 1e100, whose products and their sums over
+// any number of rows stay normal float8 numbers (and the aggregate is
+// spared two products per value), else stream.ScaleFor's. Should the data
+// go beyond what the statistics said, a product overflows and the
+// aggregate runs again with the leaf's own extremes (tableScales).
+func sqlScale(lo, hi float64) float64 {
+	if m := math.Max(math.Abs(lo), math.Abs(hi)); m == 0 || m >= 1e-100 && m <= 1e100 {
+		return 1
+	}
+	return stream.ScaleFor(lo, hi)
 }
 
 func (pd *push) setCentres(shift, scale []float64, probe bool) {

@@ -21,8 +21,8 @@ type Cluster struct {
 	Coordinator *Server
 	Shards      []*Server
 	// URL is a fresh database on the coordinator, with postgres_fdw and
-	// one foreign server per shard (shard0, shard1, …) mapped for the
-	// superuser.
+	// one foreign server per shard (shard0, shard1, …, with jit off in
+	// their sessions) mapped for the superuser.
 	URL string
 	// ShardURLs are a fresh database on each shard, with
 	// pg_stat_statements.
@@ -69,7 +69,10 @@ func NewCluster(t testing.TB, n int) *Cluster {
 		Exec(t, u, "CREATE EXTENSION pg_stat_statements")
 		db := u[strings.LastIndexByte(u, '/')+1 : strings.IndexByte(u, '?')]
 		ddl = append(ddl,
-			fmt.Sprintf("CREATE SERVER shard%d FOREIGN DATA WRAPPER postgres_fdw OPTIONS (host '127.0.0.1', port '%d', dbname '%s', batch_size '1000')", i, s.Port, db),
+			// jit=off in the coordinator's sessions on the shard, as
+			// plumb's README advises: compiling a wide aggregate costs
+			// seconds.
+			fmt.Sprintf("CREATE SERVER shard%d FOREIGN DATA WRAPPER postgres_fdw OPTIONS (host '127.0.0.1', port '%d', dbname '%s', batch_size '1000', options '-c jit=off')", i, s.Port, db),
 			fmt.Sprintf("CREATE USER MAPPING FOR postgres SERVER shard%d OPTIONS (user 'postgres', password '%s')", i, s.Password))
 	}
 	Exec(t, c.URL, ddl...)
