@@ -934,9 +934,6 @@ func (pd *push) aggSQL() string {
 		src = pd.from()
 	} else {
 		sub := append(slices.Clone(keys), pd.facList()...)
-		sub = append(sub, pd.okExpr()+" AS ok")
-		// Over the subquery's columns: ok is computed once per row.
-		miss = "CASE WHEN ok THEN NULL ELSE " + pd.missExpr() + " END"
 		if pd.plan.Weight != nil {
 			sub = append(sub, "w")
 		}
@@ -958,6 +955,25 @@ func (pd *push) aggSQL() string {
 			sub = append(sub, fmt.Sprintf("f%d", f))
 		}
 		src = "(WITH plumb_fence AS (SELECT) SELECT " + strings.Join(sub, ", ") + " FROM " + pd.from() + ") AS s"
+		// A row is complete when (Σ d_j)·0 = 0: a NaN or an infinity
+		// makes the sum NaN or infinite and the product NaN, a NULL
+		// makes it NULL. The d_j are within a few units of their
+		// scales, so the sum cannot overflow; p additions instead of
+		// 2p comparisons. The aggregate's input computes it once and
+		// the missing counts' CASE reuses it (PostgreSQL matches the
+		// grouping expression).
+		var c []string
+		if pd.p > 0 {
+			c = append(c, "("+strings.Join(d, " + ")+") * 0::float8 = 0::float8")
+		}
+		if pd.plan.Weight != nil {
+			c = append(c, pd.wok())
+		}
+		ok = "true"
+		if len(c) > 0 {
+			ok = "(" + strings.Join(c, " AND ") + ")"
+		}
+		miss = "CASE WHEN " + ok + " THEN NULL ELSE " + pd.missExpr() + " END"
 	}
 	list := append(append(slices.Clone(keys), pd.facList()...), ok, "count(*)")
 	for f := range pd.lay.flags {
@@ -977,8 +993,6 @@ func (pd *push) aggSQL() string {
 	default:
 		if pd.plan.Weight != nil {
 			list = append(list, "sum(w)")
-		} else {
-			list = append(list, "count(*)::float8")
 		}
 		for j := 0; j < pd.p; j++ {
 			list = append(list, "sum("+wd[j]+")")
@@ -1233,8 +1247,11 @@ func (pd *push) fill(st *connectors.Stats, n int64, v []any) {
 			i++
 		}
 	} else {
-		st.SumWeights = num(v[i])
-		i++
+		st.SumWeights = float64(n)
+		if pd.plan.Weight != nil {
+			st.SumWeights = num(v[i])
+			i++
+		}
 		for j := 0; j < p; j++ {
 			st.Sum[j] = num(v[i])
 			i++
