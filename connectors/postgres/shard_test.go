@@ -6,6 +6,7 @@ import (
 	"math"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/jackc/pgx/v5"
 
@@ -340,4 +341,50 @@ func TestPushdownCentresFromStatistics(t *testing.T) {
 		t.Fatal(err)
 	}
 	demand.SameResult(t, "statistics", want, got, 1e-12)
+}
+
+// TestShardedPushdownTimes: on foreign partitions a bucket is floored here
+// from a shippable fine bin (date_bin), for timestamptz in a zone with
+// daylight saving time and in UTC, for timestamp, by an integer segment;
+// the results equal streaming's (to 1e-12) and each shard still receives
+// one aggregate statement.
+func TestShardedPushdownTimes(t *testing.T) {
+	c := pgtest.NewCluster(t, 2)
+	c.ShardTable(t, "flows", "id int, read_at timestamptz, logged timestamp, station int, flow float8, pressure float8, temperature float8", "id")
+	pgtest.Exec(t, c.URL, `INSERT INTO flows SELECT i, timestamptz '2025-03-28 00:00+00' + i * interval '7 minutes',
+			timestamp '2025-10-24 00:00' + i * interval '11 minutes', i % 4,
+			40 + 10 * sin(i * 0.01) + cos(i), 3 + 0.1 * sin(i * 0.3), 12 + 5 * sin(i * 0.002) + 0.3 * cos(i * 1.3)
+		FROM generate_series(1, 3000) AS i`, "ANALYZE flows")
+	ctx := context.Background()
+	stream := openPG(t, c.URL, connectors.Options{})
+	push := openPG(t, c.URL, connectors.Options{Pushdown: true})
+	ams, err := time.LoadLocation("Europe/Amsterdam")
+	if err != nil {
+		t.Skip("no time zone data:", err)
+	}
+	cols := []string{"flow", "pressure", "temperature"}
+	for _, r := range []struct {
+		name   string
+		req    connectors.Request
+		groups int64
+	}{
+		{"daily in Amsterdam by station", connectors.Request{Table: "flows", Columns: cols, TimeColumn: "read_at", Bucket: "day", Location: ams, Segment: "station"}, 4 * 96 * 16},
+		{"hourly in UTC", connectors.Request{Table: "flows", Columns: cols, TimeColumn: "read_at", Bucket: "hour"}, 400},
+		{"weekly wall clock in Amsterdam", connectors.Request{Table: "flows", Columns: cols, TimeColumn: "logged", Bucket: "week", Location: ams}, 40},
+		{"monthly wall clock", connectors.Request{Table: "flows", Columns: cols, TimeColumn: "logged", Bucket: "month"}, 40},
+	} {
+		t.Run(r.name, func(t *testing.T) {
+			want, err := stream.Scan(ctx, r.req)
+			if err != nil {
+				t.Fatal(err)
+			}
+			c.ResetStatements(t)
+			got, err := push.Scan(ctx, r.req)
+			if err != nil {
+				t.Fatal(err)
+			}
+			checkOneAggregate(t, c, 1, r.groups)
+			demand.SameResult(t, r.name, want, got, 1e-12)
+		})
+	}
 }
