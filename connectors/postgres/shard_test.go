@@ -388,3 +388,71 @@ func TestShardedPushdownTimes(t *testing.T) {
 		})
 	}
 }
+
+// TestPushdownNestedPartitions: a table partitioned in two levels (by
+// range of day, then by hash of id) is aggregated leaf by leaf, in one
+// snapshot, with --sample applied per leaf (TABLESAMPLE BERNOULLI with the
+// seed: the rows streaming's sample of the parent reads); the results
+// equal streaming's (identity of two computations, to 1e-12).
+func TestPushdownNestedPartitions(t *testing.T) {
+	u := pgtestStart(t)
+	exec(t, u, `CREATE TABLE meter_daily (id int, day date, district text, temperature float8, metered_volume float8, billed_volume float8) PARTITION BY RANGE (day)`,
+		`CREATE TABLE meter_daily_spring PARTITION OF meter_daily FOR VALUES FROM ('2025-03-01') TO ('2025-06-01') PARTITION BY HASH (id)`,
+		`CREATE TABLE meter_daily_spring_0 PARTITION OF meter_daily_spring FOR VALUES WITH (MODULUS 2, REMAINDER 0)`,
+		`CREATE TABLE meter_daily_spring_1 PARTITION OF meter_daily_spring FOR VALUES WITH (MODULUS 2, REMAINDER 1)`,
+		`CREATE TABLE meter_daily_summer PARTITION OF meter_daily FOR VALUES FROM ('2025-06-01') TO ('2025-09-01')`,
+		`INSERT INTO meter_daily SELECT i, date '2025-03-01' + (i % 180), 'district ' || (i % 3), 15 + 8 * cos(i * 0.11),
+			1e9 + sin(i * 0.37), 1e9 + sin(i * 0.37) + 0.01 * cos(i) FROM generate_series(1, 9000) AS i`,
+		`ANALYZE meter_daily`)
+	ctx := context.Background()
+	stream := openPG(t, u, connectors.Options{})
+	push := openPG(t, u, connectors.Options{Pushdown: true, Parallel: 2})
+	cols := []string{"temperature", "metered_volume", "billed_volume"}
+	for _, req := range []connectors.Request{
+		{Table: "meter_daily", Columns: cols},
+		{Table: "meter_daily", Columns: cols, TimeColumn: "day", Bucket: "month", Segment: "district"},
+		{Table: "meter_daily", Columns: cols, SamplePct: 30, Seed: 11},
+	} {
+		want, err := stream.Scan(ctx, req)
+		if err != nil {
+			t.Fatal(err)
+		}
+		got, err := push.Scan(ctx, req)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got.Partitions != 3 {
+			t.Errorf("%d partitions aggregated, want the 3 leaves", got.Partitions)
+		}
+		if req.SamplePct > 0 && (got.Read < 2000 || got.Read > 3400 || !got.Sampled) {
+			t.Errorf("sample of 30%%: %d of 9000 rows read, sampled %v", got.Read, got.Sampled)
+		}
+		demand.SameResult(t, fmt.Sprintf("%+v", req), want, got, 1e-12)
+	}
+}
+
+// TestShardedPushdownSample: --sample on foreign partitions keeps about
+// the share asked for by a hash of the values (TABLESAMPLE cannot be sent
+// to a foreign table), the same rows on every run, in one aggregate per
+// shard.
+func TestShardedPushdownSample(t *testing.T) {
+	c := newShardCluster(t, 20000)
+	ctx := context.Background()
+	push := openPG(t, c.URL, connectors.Options{Pushdown: true})
+	req := connectors.Request{Table: "readings", Columns: shardColumns, SamplePct: 25, Seed: 3}
+	c.ResetStatements(t)
+	a, err := push.Scan(ctx, req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkOneAggregate(t, c, 1, 1)
+	b, err := push.Scan(ctx, req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Binomial(20000, 0.25): mean 5000, sd 61; ±5 sd.
+	if !a.Sampled || a.Read < 4700 || a.Read > 5300 {
+		t.Errorf("25%% sample: %d of 20000 rows, sampled %v", a.Read, a.Sampled)
+	}
+	demand.SameResult(t, "the same sample twice", a, b, 0)
+}
