@@ -56,16 +56,17 @@ const probeRows = 64
 // pg_partition_tree), several at once on their own connections, and the
 // partial moments are merged pairwise; anything else is one leaf.
 //
-// Each leaf costs one statement: per bucket, segment and completeness (all
-// values finite, a usable weight) the rows, the inexact values, and the
-// count, shifted sums, co-moments, min and max of the values. Its select
-// list holds nothing volatile and, for a foreign partition, nothing
-// postgres_fdw cannot send, so the shard computes its own part and returns
-// O(p²) numbers per group. The provisional centres and scales come from
-// the planner's statistics (pg_stats) at no scan's cost. A second
-// statement runs only when rows were dropped (their per-column missing
-// counts), and a third only when a product overflows float8 under scales
-// the statistics underestimated.
+// Each leaf costs one statement: per bucket, segment, factor levels and
+// completeness (all values finite, a usable weight) the rows, the inexact
+// values, the dropped rows' missing counts, and the count, shifted sums,
+// co-moments, min and max of the values. Its select list holds nothing
+// volatile and, for a foreign partition, nothing postgres_fdw cannot send,
+// so the shard computes its own part and returns O(p²) numbers per group.
+// The provisional centres and scales come from the planner's statistics
+// (pg_stats) at no scan's cost, or Request.Centres. A second statement
+// runs only when a leaf has neither (a probe of a few rows), or when a
+// product overflows float8 under scales the statistics understated (the
+// leaf is aggregated again with its own extremes as scales).
 func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connectors.Result, error) {
 	if req.QR || req.Extended {
 		return nil, fmt.Errorf("--pushdown returns cross-products, not the QR factor; scan without --pushdown for QR accuracy: %w", connectors.ErrUnsupported)
