@@ -4,8 +4,10 @@
 // application_name=plumb. Rows stream in the binary protocol and are decoded
 // straight into stream blocks; a table can be split into TID ranges scanned
 // on several connections from one exported snapshot (Options.Parallel); or
-// the cross-products can be computed inside PostgreSQL by one aggregate
-// query (Options.Pushdown).
+// the cross-products can be computed inside PostgreSQL (Options.Pushdown):
+// one aggregate statement per table or per leaf partition, foreign
+// partitions included, so that with postgres_fdw each shard computes its
+// own part (pushdown.go).
 //
 // The password comes from the URL, PGPASSWORD or a pass file (pgx reads
 // all three) and never appears in an error.
