@@ -64,9 +64,11 @@ const probeRows = 64
 // so the shard computes its own part and returns O(p²) numbers per group.
 // The provisional centres and scales come from the planner's statistics
 // (pg_stats) at no scan's cost, or Request.Centres. A second statement
-// runs only when a leaf has neither (a probe of a few rows), or when a
+// runs only when a leaf has neither (a probe of a few rows), when a
 // product overflows float8 under scales the statistics understated (the
-// leaf is aggregated again with its own extremes as scales).
+// leaf is aggregated again with its own extremes as scales), or when a
+// local leaf whose statistics show no NULLs, first aggregated without the
+// completeness test (push.hopeful), has incomplete rows after all.
 func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connectors.Result, error) {
 	if req.QR || req.Extended {
 		return nil, fmt.Errorf("--pushdown returns cross-products, not the QR factor; scan without --pushdown for QR accuracy: %w", connectors.ErrUnsupported)
@@ -167,6 +169,10 @@ func (s *Source) pushdown(ctx context.Context, req connectors.Request) (*connect
 // errTooManyCells: a partition's aggregate with factors returned more
 // cells than Request.MaxCells.
 var errTooManyCells = errors.New("too many cells")
+
+// errIncomplete: a statement that assumed complete rows (push.hopeful)
+// met a NULL, NaN or infinite value.
+var errIncomplete = errors.New("incomplete rows")
 
 func maxCells(req connectors.Request) int {
 	if req.MaxCells > 0 {
@@ -406,12 +412,23 @@ func (pd *push) run(ctx context.Context, tx pgx.Tx, s *Source) (leafOut, error) 
 		}
 	}
 	out, drop, miss, err := pd.aggregateOnce(ctx, tx)
-	if outOfRange(err) {
-		// The statistics underestimated a column's magnitude and a
-		// product overflowed: take the scales from the leaf's extremes.
-		if err = pd.tableScales(ctx, tx); err == nil {
-			out, drop, miss, err = pd.aggregateOnce(ctx, tx)
+	for rescaled := false; err != nil; {
+		if errors.Is(err, errIncomplete) {
+			// The leaf has incomplete rows after all: aggregate it
+			// again with the completeness test.
+			pd.hopeful = false
+		} else if outOfRange(err) && !rescaled {
+			// The statistics underestimated a column's magnitude and a
+			// product overflowed: take the scales from the leaf's
+			// extremes.
+			rescaled = true
+			if err = pd.tableScales(ctx, tx); err != nil {
+				break
+			}
+		} else {
+			break
 		}
+		out, drop, miss, err = pd.aggregateOnce(ctx, tx)
 	}
 	if errors.Is(err, connectors.ErrTooManySegments) || errors.Is(err, errTooManyCells) {
 		return out, err
@@ -525,14 +542,27 @@ func (pd *push) aggregate(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int
 			}
 		}
 		i += len(pd.facs)
-		complete, _ := v[i].(bool)
-		n := v[i+1].(int64)
+		complete := true
+		if !pd.hopeful {
+			complete, _ = v[i].(bool)
+			i++
+		}
+		n := v[i].(int64)
+		if n == 0 {
+			// A hopeful statement without keys over no rows.
+			return nil
+		}
 		out.read += n
 		for f, j := range pd.lay.flags {
-			out.inexact[j] += v[i+2+f].(int64)
+			out.inexact[j] += v[i+1+f].(int64)
 		}
-		state := v[i+2+len(pd.lay.flags)]
-		i++ // the aggregates follow the missing counts
+		i += 1 + len(pd.lay.flags)
+		var state any
+		if !pd.hopeful {
+			state = v[i]
+			i++
+		}
+		agg := v[i:] // the strategy's sums and cross-products, min and max
 		if !valid {
 			out.noTime += n
 			return nil
@@ -560,8 +590,11 @@ func (pd *push) aggregate(ctx context.Context, tx pgx.Tx) (leafOut, map[gkey]int
 			drop[k] += n
 			return pd.countMissing(miss, k, state)
 		}
+		if pd.hopeful && !pd.finite(agg) {
+			return errIncomplete
+		}
 		st := pd.newStats()
-		pd.fill(st, n, v[i+2+len(pd.lay.flags):])
+		pd.fill(st, n, agg)
 		if len(pd.facs) > 0 {
 			st = pd.expand(st, levels)
 		}
@@ -629,10 +662,21 @@ type push struct {
 	shiftBy   []float64 // c, per column (0: not shifted)
 	scaleBy   []float64 // s, per column: powers of two (stream.ScaleFor)
 	needProbe bool      // no statistics: take the centres from a few rows
+
+	// hopeful: the statement assumes every row complete and leaves out
+	// the completeness test, its grouping and the missing counts, which
+	// cost a sixth of the scan. A NULL is turned into NaN, so that an
+	// incomplete row makes its group's sums NaN or infinite (PostgreSQL
+	// raises an error when finite float8 operands overflow, so nothing
+	// else does), and the leaf is aggregated again with the test. Only
+	// for a local leaf, the shifted sums, no weight, and statistics that
+	// show no NULLs.
+	hopeful bool
 }
 
 func (s *Source) newPush(t *target, l leaf, plan *connectors.Plan, facs []connectors.Column, where string, req connectors.Request, strategy pushStrategy) (*push, error) {
 	pd := &push{source: t.source, plan: plan, strategy: strategy, p: len(plan.Values), ship: l.relkind == "f", facs: facs, maxCells: maxCells(req)}
+	pd.hopeful = !pd.ship && strategy == pushShifted && plan.Weight == nil && pd.p > 0
 	lt := *t
 	if !l.self {
 		lt.table = &l.name
@@ -903,9 +947,11 @@ func (pd *push) valueExpr(j int) string {
 }
 
 // aggSQL is the leaf's one statement: per key and completeness, the rows,
-// the inexact values, and the aggregates (the sums Σ(x−c)/s, or avg for
-// pushRegr; the cross-products Σ(x−c)(y−c′)/(s·s′), or regr_sxy; each
-// column's min and max).
+// the inexact values, the missing counts, and the aggregates (the sums
+// Σ(x−c)/s, or avg for pushRegr; the cross-products Σ(x−c)(y−c′)/(s·s′),
+// or regr_sxy; each column's min and max). A hopeful statement groups by
+// the keys alone and has no missing counts: NULL becomes NaN in the
+// subquery, so that an incomplete row shows in its group's sums.
 //
 // On a local leaf the shifted values are computed once per row, in a
 // subquery that PostgreSQL does not flatten into the aggregate because it
@@ -942,6 +988,9 @@ func (pd *push) aggSQL() string {
 			sub = append(sub, fmt.Sprintf("x%d", j))
 			d[j] = fmt.Sprintf("x%d", j)
 			e := pd.valueExpr(j) // d_j in the subquery's own terms
+			if pd.hopeful {
+				e = "coalesce(" + e + ", 'NaN'::float8)"
+			}
 			if e != d[j] {
 				sub = append(sub, e+fmt.Sprintf(" AS d%d", j))
 				d[j] = fmt.Sprintf("d%d", j)
@@ -976,11 +1025,19 @@ func (pd *push) aggSQL() string {
 		}
 		miss = "CASE WHEN " + ok + " THEN NULL ELSE " + pd.missExpr() + " END"
 	}
-	list := append(append(slices.Clone(keys), pd.facList()...), ok, "count(*)")
+	list := append(slices.Clone(keys), pd.facList()...)
+	nGroup := len(list)
+	if !pd.hopeful {
+		list = append(list, ok)
+		nGroup++
+	}
+	list = append(list, "count(*)")
 	for f := range pd.lay.flags {
 		list = append(list, fmt.Sprintf("count(*) FILTER (WHERE f%d)", f))
 	}
-	list = append(list, "sum("+miss+")")
+	if !pd.hopeful {
+		list = append(list, "sum("+miss+")")
+	}
 	switch pd.strategy {
 	case pushRegr:
 		for j := 0; j < pd.p; j++ {
@@ -1007,7 +1064,10 @@ func (pd *push) aggSQL() string {
 	for j := 0; j < pd.p; j++ {
 		list = append(list, fmt.Sprintf("min(x%d)", j), fmt.Sprintf("max(x%d)", j))
 	}
-	q := "SELECT " + strings.Join(list, ", ") + " FROM " + src + " GROUP BY " + groupBy(len(keys)+len(pd.facs)+1)
+	q := "SELECT " + strings.Join(list, ", ") + " FROM " + src
+	if nGroup > 0 {
+		q += " GROUP BY " + groupBy(nGroup)
+	}
 	if len(pd.facs) > 0 {
 		// One row more than the cells allowed tells that there are too
 		// many (postgres_fdw sends the LIMIT too).
@@ -1266,6 +1326,17 @@ func (pd *push) fill(st *connectors.Stats, n int64, v []any) {
 		st.Min[j], st.Max[j] = num(v[i]), num(v[i+1])
 		i += 2
 	}
+}
+
+// finite reports whether a group's sums and cross-products (the
+// aggregates fill reads) are all finite.
+func (pd *push) finite(v []any) bool {
+	for _, x := range v[:pd.p+pd.p*(pd.p+1)/2] {
+		if f := num(x); math.IsNaN(f) || math.IsInf(f, 0) {
+			return false
+		}
+	}
+	return true
 }
 
 func (pd *push) fillMissing(st *connectors.Stats, v []int64) {

@@ -11,9 +11,10 @@ import (
 )
 
 // colStats is what the planner's statistics say of a column: a rough
-// mean and the extremes of its sample.
+// mean and the extremes of its sample, and whether it holds NULLs.
 type colStats struct {
 	mean, lo, hi float64
+	nulls        bool
 	ok           bool
 }
 
@@ -171,6 +172,7 @@ func statsOf(nullFrac float64, mcv, hist []*float64) colStats {
 			st.mean = m
 		}
 	}
+	st.nulls = nullFrac > 0
 	st.ok = true
 	return st
 }
@@ -178,8 +180,8 @@ func statsOf(nullFrac float64, mcv, hist []*float64) colStats {
 // forLeaf sets leaf i's centres and scales: the leaf's own statistics, the
 // parent's, a sibling's; a centre the caller knows (hint, by column name)
 // is preferred to a statistic's estimate. A column with neither leaves the
-// leaf to be probed.
-func (cs *centreSet) forLeaf(i int, plan *connectors.Plan, hint map[string]float64) (shift, scale []float64, probe bool) {
+// leaf to be probed. nulls: the statistics say a column holds NULLs.
+func (cs *centreSet) forLeaf(i int, plan *connectors.Plan, hint map[string]float64) (shift, scale []float64, probe, nulls bool) {
 	p := len(plan.Values)
 	shift, scale = make([]float64, p), make([]float64, p)
 	for j, c := range plan.Values {
@@ -191,6 +193,7 @@ func (cs *centreSet) forLeaf(i int, plan *connectors.Plan, hint map[string]float
 			st = cs.leaf[k][j]
 		}
 		scale[j] = 1
+		nulls = nulls || st.nulls
 		if st.ok {
 			scale[j] = sqlScale(st.lo, st.hi)
 			shift[j] = st.mean
@@ -205,7 +208,7 @@ func (cs *centreSet) forLeaf(i int, plan *connectors.Plan, hint map[string]float
 			probe = true
 		}
 	}
-	return shift, scale, probe
+	return shift, scale, probe, nulls
 }
 
 // sqlScale is the power of two a pushdown divides a column by: 1 for
@@ -221,6 +224,11 @@ func sqlScale(lo, hi float64) float64 {
 	return stream.ScaleFor(lo, hi)
 }
 
-func (pd *push) setCentres(shift, scale []float64, probe bool) {
+// setCentres sets the leaf's centres and scales, and whether its first
+// statement may assume complete rows (see push.hopeful): not when the
+// statistics say a column holds NULLs, as the statement would then be
+// run again.
+func (pd *push) setCentres(shift, scale []float64, probe, nulls bool) {
 	pd.shiftBy, pd.scaleBy, pd.needProbe = shift, scale, probe
+	pd.hopeful = pd.hopeful && !nulls
 }
