@@ -664,8 +664,8 @@ type push struct {
 	needProbe bool      // no statistics: take the centres from a few rows
 
 	// hopeful: the statement assumes every row complete and leaves out
-	// the completeness test, its grouping and the missing counts, which
-	// cost a sixth of the scan. A NULL is turned into NaN, so that an
+	// the completeness test, its grouping and the missing counts, about
+	// a tenth of the statement's cost. A NULL is turned into NaN, so that an
 	// incomplete row makes its group's sums NaN or infinite (PostgreSQL
 	// raises an error when finite float8 operands overflow, so nothing
 	// else does), and the leaf is aggregated again with the test. Only
