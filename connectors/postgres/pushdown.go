@@ -665,12 +665,12 @@ type push struct {
 
 	// hopeful: the statement assumes every row complete and leaves out
 	// the completeness test, its grouping and the missing counts, about
-	// a tenth of the statement's cost. A NULL is turned into NaN, so that an
-	// incomplete row makes its group's sums NaN or infinite (PostgreSQL
-	// raises an error when finite float8 operands overflow, so nothing
-	// else does), and the leaf is aggregated again with the test. Only
-	// for a local leaf, the shifted sums, no weight, and statistics that
-	// show no NULLs.
+	// a tenth of the statement's cost. A NULL is turned into NaN, so
+	// that an incomplete row makes its group's sums NaN or infinite
+	// (PostgreSQL raises an error when finite float8 operands overflow,
+	// so nothing else does), and the leaf is aggregated again with the
+	// test. Only for a local leaf, the shifted sums, no weight, and
+	// statistics that show no NULLs.
 	hopeful bool
 }
 
