@@ -360,26 +360,16 @@ func (s *Source) runLeaves(ctx context.Context, tx pgx.Tx, pds []*push) ([]leafO
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			conn, err := s.pool.Acquire(ctx)
-			if err != nil {
-				for i := range next {
-					errs[i] = s.wrap(err, "cannot connect")
-					cancel()
+			wtx, done, err := s.snapshotTx(ctx, snap, "the partitions")
+			if err == nil {
+				defer done()
+				if _, err = wtx.Exec(ctx, "SET LOCAL jit = off"); err != nil {
+					err = s.wrap(err, "SET jit")
 				}
-				return
-			}
-			defer conn.Release()
-			wtx, err := conn.BeginTx(ctx, pgx.TxOptions{AccessMode: pgx.ReadOnly, IsoLevel: pgx.RepeatableRead})
-			if err == nil {
-				defer wtx.Rollback(context.Background())
-				_, err = wtx.Exec(ctx, "SET TRANSACTION SNAPSHOT "+quoteLiteral(snap))
-			}
-			if err == nil {
-				_, err = wtx.Exec(ctx, "SET LOCAL jit = off")
 			}
 			if err != nil {
 				for i := range next {
-					errs[i] = s.wrap(err, "importing the snapshot for the partitions")
+					errs[i] = err
 					cancel()
 				}
 				return
@@ -390,14 +380,8 @@ func (s *Source) runLeaves(ctx context.Context, tx pgx.Tx, pds []*push) ([]leafO
 		}()
 	}
 	wg.Wait()
-	var first error
-	for _, err := range errs {
-		if err != nil && (first == nil || (isCancel(first) && !isCancel(err))) {
-			first = err
-		}
-	}
-	if first != nil {
-		return nil, first
+	if err := firstError(errs); err != nil {
+		return nil, err
 	}
 	return outs, nil
 }

@@ -213,18 +213,23 @@ func (s *Source) partitions(ctx context.Context, tx pgx.Tx, snap string, t *targ
 		}(i)
 	}
 	wg.Wait()
-	// Report the first failure that is not a consequence of cancelling
-	// the others.
+	if err := firstError(errs); err != nil {
+		return nil, err
+	}
+	return decs, nil
+}
+
+// firstError returns the first failure of workers that cancel each other
+// on failure, preferring one that is not a consequence of the cancelling;
+// nil when none failed.
+func firstError(errs []error) error {
 	var first error
 	for _, err := range errs {
 		if err != nil && (first == nil || (isCancel(first) && !isCancel(err))) {
 			first = err
 		}
 	}
-	if first != nil {
-		return nil, first
-	}
-	return decs, nil
+	return first
 }
 
 func isCancel(err error) bool {
@@ -233,20 +238,36 @@ func isCancel(err error) bool {
 }
 
 func (s *Source) streamSnapshot(ctx context.Context, snap, q string, d *decoder) error {
+	tx, done, err := s.snapshotTx(ctx, snap, "--parallel")
+	if err != nil {
+		return err
+	}
+	defer done()
+	return s.stream(ctx, tx, q, d)
+}
+
+// snapshotTx opens a read-only transaction on a connection of its own that
+// reads the exported snapshot snap (for purpose, in messages); done rolls
+// it back and releases the connection.
+func (s *Source) snapshotTx(ctx context.Context, snap, purpose string) (tx pgx.Tx, done func(), err error) {
 	conn, err := s.pool.Acquire(ctx)
 	if err != nil {
-		return s.wrap(err, "cannot connect")
+		return nil, nil, s.wrap(err, "cannot connect")
 	}
-	defer conn.Release()
-	tx, err := conn.BeginTx(ctx, pgx.TxOptions{AccessMode: pgx.ReadOnly, IsoLevel: pgx.RepeatableRead})
+	tx, err = conn.BeginTx(ctx, pgx.TxOptions{AccessMode: pgx.ReadOnly, IsoLevel: pgx.RepeatableRead})
 	if err != nil {
-		return s.wrap(err, "begin")
+		conn.Release()
+		return nil, nil, s.wrap(err, "begin")
 	}
-	defer tx.Rollback(context.Background())
+	done = func() {
+		tx.Rollback(context.Background())
+		conn.Release()
+	}
 	if _, err := tx.Exec(ctx, "SET TRANSACTION SNAPSHOT "+quoteLiteral(snap)); err != nil {
-		return s.wrap(err, "importing the snapshot for --parallel")
+		done()
+		return nil, nil, s.wrap(err, "importing the snapshot for "+purpose)
 	}
-	return s.stream(ctx, tx, q, d)
+	return tx, done, nil
 }
 
 // stream runs one SELECT and feeds its rows to d.
