@@ -338,15 +338,25 @@ func deref(p *float64) float64 {
 // them an equation names depends on the window's base level and on the
 // levels present, not on the cause.
 func (d ExactDependency) subjectKey() string {
-	var cols []string
-	for _, c := range d.Columns {
+	cols := tableColumns(d.Columns)
+	slices.Sort(cols)
+	return strings.Join(cols, "+")
+}
+
+// tableColumns returns the table's columns behind accumulated columns, in
+// order and each once: a categorical column for its dummies (col[level]),
+// any other column itself.
+func tableColumns(accumulated []string) []string {
+	var out []string
+	for _, c := range accumulated {
 		if i := strings.LastIndex(c, "["); i > 0 && strings.HasSuffix(c, "]") {
 			c = c[:i]
 		}
-		cols = append(cols, c)
+		if !slices.Contains(out, c) {
+			out = append(out, c)
+		}
 	}
-	slices.Sort(cols)
-	return strings.Join(slices.Compact(cols), "+")
+	return out
 }
 
 // constantKey is the onset key of a constant column (apart from the

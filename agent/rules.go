@@ -1037,18 +1037,9 @@ func exactRemedy(d ExactDependency, others []string, caution string) string {
 			"drop %s from the model (it is the derived column) or restore the upstream definition that made it so; %s",
 			d.Dependent, strings.Join(others, ", "), d.Dependent, caution)
 	}
-	var cols []string
-	for _, c := range d.Columns {
-		if i := strings.LastIndex(c, "["); i > 0 && strings.HasSuffix(c, "]") {
-			c = c[:i]
-		}
-		if !slices.Contains(cols, c) {
-			cols = append(cols, c)
-		}
-	}
 	return fmt.Sprintf("%s carry the same information, so OLS cannot estimate their coefficients together: "+
 		"keep one of them in the model (a categorical column counts as one), or restore the upstream definition that made it so; %s",
-		strings.Join(cols, " and "), caution)
+		strings.Join(tableColumns(d.Columns), " and "), caution)
 }
 
 // every names the stretch an exact or constant finding covers.

@@ -2,7 +2,6 @@ package agent
 
 import (
 	"context"
-	"encoding/json"
 	"fmt"
 	"log/slog"
 	"runtime/debug"
@@ -418,9 +417,8 @@ func (r *Runner) knownColumns(ctx context.Context, w *config.Watch, cols []strin
 		return nil, err
 	}
 	if len(ps) == 1 && len(ps[0].Report) > 0 {
-		var rep diagnostics.Report
-		if json.Unmarshal(ps[0].Report, &rep) == nil {
-			prev = &rep
+		if rep, _, err := decodeReport(ps[0].Report); err == nil {
+			prev = rep
 		}
 	}
 	return knownColumns(cols, lists, prev), nil
