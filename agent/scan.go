@@ -134,7 +134,7 @@ func encodeGroup(watch string, g connectors.Group, cols []string) (Bucket, error
 // merge folds accumulators into one (nil when there are none). cols are
 // the watch's accumulated columns as configured; a categorical column among
 // them is held by each accumulator as indicator columns, one per level seen
-// (connectors.IndicatorName), and accumulators that saw different levels
+// (stream.IndicatorName), and accumulators that saw different levels
 // are widened to the union of their columns before they merge.
 func merge(cols []string, parts []acc) acc {
 	if len(parts) == 0 {

@@ -4,6 +4,8 @@ import (
 	"fmt"
 	"slices"
 	"strings"
+
+	"plumb/stream"
 )
 
 // Factors are accumulated as indicator columns, one per level seen, so
@@ -26,7 +28,7 @@ func ExpandNames(values []string, factors []Factor) []string {
 			continue
 		}
 		for _, l := range factors[i].Levels {
-			out = append(out, IndicatorName(v, l))
+			out = append(out, stream.IndicatorName(v, l))
 		}
 	}
 	return out

@@ -63,11 +63,11 @@ var (
 func dummyNames() []string {
 	var names []string
 	for _, l := range supplyLevels {
-		names = append(names, IndicatorName("supply_source", l))
+		names = append(names, stream.IndicatorName("supply_source", l))
 	}
 	names = append(names, "temperature")
 	for _, l := range tariffLevels {
-		names = append(names, IndicatorName("tariff_band", l))
+		names = append(names, stream.IndicatorName("tariff_band", l))
 	}
 	return names
 }

@@ -174,7 +174,7 @@ func (g *Grouper) expand() {
 		sorted := slices.Clone(f.levels)
 		slices.Sort(sorted)
 		for _, l := range sorted {
-			g.names = append(g.names, IndicatorName(n, l))
+			g.names = append(g.names, stream.IndicatorName(n, l))
 		}
 		for c, l := range f.levels {
 			f.rank[c], _ = slices.BinarySearch(sorted, l)

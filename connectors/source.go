@@ -67,7 +67,7 @@ type Column struct {
 func (c Column) IsFactor() bool { return c.Kind == KindText || c.Kind == KindBool }
 
 // Factor is a categorical column of a result. It is accumulated as one
-// indicator (0/1) column per level, named IndicatorName(Name, level), in
+// indicator (0/1) column per level, named stream.IndicatorName(Name, level), in
 // the factor's place among the columns, its levels in byte order; every
 // level seen is kept (no base level is dropped: that is the analysis's
 // choice).
@@ -76,10 +76,6 @@ type Factor struct {
 	Levels []string // sorted; every level seen in the result
 	Null   int64    // rows dropped because this column was NULL
 }
-
-// IndicatorName is the name of the indicator column of a factor's level:
-// factor[level].
-func IndicatorName(factor, level string) string { return factor + "[" + level + "]" }
 
 // DefaultMaxCells bounds the cells of a pushdown with factors (see
 // Request.MaxCells).

@@ -100,7 +100,7 @@
 // # Factors
 //
 // A categorical column (Options.Factors) is accumulated as one indicator
-// column per level, the full set, named IndicatorName(factor, level).
+// column per level, the full set, named stream.IndicatorName(factor, level).
 // Analyze turns it into treatment dummies: it leaves out the base level's
 // indicator (a named base, else the most frequent level by row count =
 // mean·n, ties to the first level in byte order) and those of levels with

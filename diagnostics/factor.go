@@ -11,7 +11,7 @@ import (
 
 // Factor is a categorical column (a text or boolean column) whose levels
 // the accumulator holds as indicator columns, one per level, named
-// IndicatorName(Name, level): the full set, no level dropped. Analyze
+// stream.IndicatorName(Name, level): the full set, no level dropped. Analyze
 // leaves out the base level's indicator (treatment dummies) and the
 // indicators of levels absent from the data.
 type Factor struct {
@@ -28,10 +28,6 @@ type Factor struct {
 	// frequent level is used instead and a note says so.
 	Base string
 }
-
-// IndicatorName is the accumulator column of one level of a factor:
-// factor + "[" + level + "]".
-func IndicatorName(factor, level string) string { return factor + "[" + level + "]" }
 
 // Kinds of a generalized-VIF entry (GroupReport.Kind).
 const (
@@ -87,7 +83,7 @@ func resolveFactors(m *stream.Moments, opt Options) (Options, []*factorPlan, err
 		}
 		if _, ok := pos[f.Name]; ok {
 			return opt, nil, fmt.Errorf("diagnostics: factor %q is also the name of an accumulated column; a factor is held as its indicator columns %s: %w",
-				f.Name, IndicatorName(f.Name, "LEVEL"), ErrBadOptions)
+				f.Name, stream.IndicatorName(f.Name, "LEVEL"), ErrBadOptions)
 		}
 		if _, ok := opt.Groups[f.Name]; ok {
 			return opt, nil, fmt.Errorf("diagnostics: factor %q has the name of a declared group; rename the group: %w", f.Name, ErrBadOptions)
@@ -102,7 +98,7 @@ func resolveFactors(m *stream.Moments, opt Options) (Options, []*factorPlan, err
 				return opt, nil, fmt.Errorf("diagnostics: factor %q lists level %q twice: %w", f.Name, l, ErrBadOptions)
 			}
 			seen[l] = true
-			ind := IndicatorName(f.Name, l)
+			ind := stream.IndicatorName(f.Name, l)
 			j, ok := pos[ind]
 			if ok {
 				if o := owner[ind]; o != nil {
@@ -135,7 +131,7 @@ func resolveFactors(m *stream.Moments, opt Options) (Options, []*factorPlan, err
 		p.chooseBase()
 		for _, l := range p.present {
 			if l != p.base {
-				p.kept = append(p.kept, IndicatorName(f.Name, l))
+				p.kept = append(p.kept, stream.IndicatorName(f.Name, l))
 			}
 		}
 		plans = append(plans, p)
@@ -158,7 +154,7 @@ func resolveFactors(m *stream.Moments, opt Options) (Options, []*factorPlan, err
 				continue
 			}
 			for _, l := range p.f.Levels {
-				if ind := IndicatorName(n, l); hasKey(p.level, ind) {
+				if ind := stream.IndicatorName(n, l); hasKey(p.level, ind) {
 					cols = append(cols, ind)
 				}
 			}
@@ -174,7 +170,7 @@ func resolveFactors(m *stream.Moments, opt Options) (Options, []*factorPlan, err
 		switch have := in[p.f.Name]; {
 		case have == 0:
 			return opt, nil, fmt.Errorf("diagnostics: factor %q: none of its indicator columns (%s) is among the regressors; name the factor in the columns: %w",
-				p.f.Name, IndicatorName(p.f.Name, "LEVEL"), ErrUnknownColumn)
+				p.f.Name, stream.IndicatorName(p.f.Name, "LEVEL"), ErrUnknownColumn)
 		case have < len(p.level):
 			return opt, nil, fmt.Errorf("diagnostics: factor %q: the columns name %d of its %d indicator columns; name the factor itself so that all of them enter: %w",
 				p.f.Name, have, len(p.level), ErrBadOptions)

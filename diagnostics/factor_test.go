@@ -31,7 +31,7 @@ func expandRows(t *testing.T, header []string, factors map[string][]string, cell
 		}
 		if lv, ok := factors[u]; ok {
 			for _, l := range lv {
-				names = append(names, IndicatorName(u, l))
+				names = append(names, stream.IndicatorName(u, l))
 			}
 		} else {
 			names = append(names, u)
@@ -212,7 +212,7 @@ func TestFactorEqualsDeclaredGroup(t *testing.T) {
 		for _, f := range fs {
 			g := groupByName(t, rep, f.Name)
 			groups["hand_"+f.Name] = g.Columns
-			if len(g.Columns) != len(f.Levels)-1 || slices.Contains(g.Columns, IndicatorName(f.Name, g.Base)) {
+			if len(g.Columns) != len(f.Levels)-1 || slices.Contains(g.Columns, stream.IndicatorName(f.Name, g.Base)) {
 				t.Fatalf("%s: dummies %v for levels %v, base %q", f.Name, g.Columns, f.Levels, g.Base)
 			}
 		}
@@ -296,7 +296,7 @@ func TestFactorBase(t *testing.T) {
 					t.Errorf("%s path: absent %v df %d levels %v", rep.Path, g.Absent, g.DF, g.Levels)
 				}
 				for _, c := range rep.Columns {
-					if c.Name == IndicatorName("supply_source", g.Base) || c.Name == IndicatorName("supply_source", "desalination_plant") {
+					if c.Name == stream.IndicatorName("supply_source", g.Base) || c.Name == stream.IndicatorName("supply_source", "desalination_plant") {
 						t.Errorf("%s path: column %s is in the design", rep.Path, c.Name)
 					}
 				}

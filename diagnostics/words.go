@@ -61,7 +61,7 @@ func (t *tabulator) determines(f, g *factorPlan) ([][]string, bool) {
 	for _, lf := range f.present {
 		hit := -1
 		for k, lg := range g.present {
-			if t.sum(IndicatorName(f.f.Name, lf), IndicatorName(g.f.Name, lg)) > thr {
+			if t.sum(stream.IndicatorName(f.f.Name, lf), stream.IndicatorName(g.f.Name, lg)) > thr {
 				if hit >= 0 {
 					return nil, false
 				}
@@ -80,7 +80,7 @@ func (t *tabulator) determines(f, g *factorPlan) ([][]string, bool) {
 func (t *tabulator) levelMeans(f *factorPlan, x string) []float64 {
 	out := make([]float64, len(f.present))
 	for i, l := range f.present {
-		ind := IndicatorName(f.f.Name, l)
+		ind := stream.IndicatorName(f.f.Name, l)
 		out[i] = t.sum(ind, x) / (t.w * t.m.Mean(t.pos[ind]))
 	}
 	return out
@@ -178,7 +178,7 @@ func wordsFor(d *Dependency, ind map[string]indicator, constant map[string]strin
 		for i, l := range f.present {
 			offs[i] = b0
 			if l != f.base {
-				offs[i] += d.Coefficients[IndicatorName(f.f.Name, l)]
+				offs[i] += d.Coefficients[stream.IndicatorName(f.f.Name, l)]
 			}
 		}
 		var lin strings.Builder

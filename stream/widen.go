@@ -14,6 +14,12 @@ import (
 // co-moments 0, minimum and maximum 0 once there are rows; in the QR
 // factor a zero row and column, which keeps it triangular).
 
+// IndicatorName is the accumulator column of one level of a categorical
+// column (a factor): factor + "[" + level + "]". Connectors name the
+// columns they accumulate so, and the diagnostics find a factor's levels
+// by it.
+func IndicatorName(factor, level string) string { return factor + "[" + level + "]" }
+
 // widenIndex returns, for each name of own, its position in names. It
 // panics unless names holds every name of own in the same relative order.
 func widenIndex(own, names []string) []int {

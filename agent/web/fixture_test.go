@@ -31,7 +31,7 @@ var demoRegressors = []string{
 func demoValues(r demo.Row) map[string]float64 {
 	return map[string]float64{
 		"chlorine_mg_l": r.ChlorineMgL,
-		diagnostics.IndicatorName("supply_source", r.SupplySource): 1,
+		stream.IndicatorName("supply_source", r.SupplySource): 1,
 		"temperature_c":           r.TemperatureC,
 		"rainfall_mm":             r.RainfallMM,
 		"population_served":       float64(r.PopulationServed),
@@ -145,7 +145,7 @@ func buildWatch(t testing.TB, sc demo.Scenario, rows []demo.Row, w fixtureWatch)
 			continue
 		}
 		for _, l := range levels {
-			names = append(names, diagnostics.IndicatorName(c, l))
+			names = append(names, stream.IndicatorName(c, l))
 		}
 	}
 	if w.target != "" {

@@ -787,7 +787,7 @@ func (pd *push) expand(st *connectors.Stats, levels []string) *connectors.Stats 
 	fi, ni := 0, 0
 	for _, c := range pd.allValues {
 		if c.IsFactor() {
-			names = append(names, connectors.IndicatorName(c.Name, levels[fi]))
+			names = append(names, stream.IndicatorName(c.Name, levels[fi]))
 			src = append(src, -1)
 			fi++
 			continue
