@@ -2,7 +2,6 @@ package main
 
 import (
 	"context"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -23,8 +22,8 @@ import (
 	"plumb/agent/config"
 	"plumb/agent/demo"
 	"plumb/agent/web"
+	"plumb/agent/web/storeview"
 	"plumb/connectors"
-	"plumb/diagnostics"
 )
 
 // demoConfigYAML is the configuration `plumb demo` writes: one watch per
@@ -485,12 +484,12 @@ func firstLevel(points []agent.Point, factor, level string, day func(time.Time) 
 		if p.Segment != "" || len(p.Report) == 0 {
 			continue
 		}
-		var rep diagnostics.Report
-		if json.Unmarshal(p.Report, &rep) != nil {
+		fs, err := storeview.PointFactors(p)
+		if err != nil {
 			continue
 		}
-		for _, g := range rep.GVIF {
-			if g.Kind == diagnostics.GroupFactor && g.Name == factor && slices.Contains(g.Levels, level) {
+		for _, f := range fs {
+			if f.Name == factor && slices.Contains(f.Levels, level) {
 				return day(p.At), true
 			}
 		}
