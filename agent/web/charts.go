@@ -72,6 +72,17 @@ type level struct {
 	Label  string
 }
 
+// limitLine draws a limit ("warn" or "critical", in its colour and dash)
+// at height y, with its label on the chart and its entry in the legend.
+func (c *lineChart) limitLine(name string, y float64, label, legend string) {
+	st := stroke{Colour: colOrange, Width: 1.5, Dash: dashWarn}
+	if name == "critical" {
+		st = stroke{Colour: colVermillion, Width: 1.5, Dash: dashCritical}
+	}
+	c.Levels = append(c.Levels, level{Name: name, Y: y, Stroke: st, Label: label})
+	c.Legend = append(c.Legend, legendItem{Label: legend, Kind: "line", Stroke: st})
+}
+
 // cone is a forecast band.
 type cone struct {
 	D       string // closed polygon of the band
@@ -355,14 +366,10 @@ func timelineChart(id, metric string, tl []Point, fc *Forecast, warn, crit float
 			legendItem{Label: "forecast range", Kind: "area", Fill: colSkyBlue, Pattern: id + "-cone"})
 	}
 	if warn > 0 && warn < hi {
-		st := stroke{Colour: colOrange, Width: 1.5, Dash: dashWarn}
-		c.Levels = append(c.Levels, level{Name: "warn", Y: ys.At(warn), Stroke: st, Label: "warn " + fmtNum(warn)})
-		c.Legend = append(c.Legend, legendItem{Label: "warn level " + fmtNum(warn), Kind: "line", Stroke: st})
+		c.limitLine("warn", ys.At(warn), "warn "+fmtNum(warn), "warn level "+fmtNum(warn))
 	}
 	if crit > 0 && crit < hi {
-		st := stroke{Colour: colVermillion, Width: 1.5, Dash: dashCritical}
-		c.Levels = append(c.Levels, level{Name: "critical", Y: ys.At(crit), Stroke: st, Label: "critical " + fmtNum(crit)})
-		c.Legend = append(c.Legend, legendItem{Label: "critical level " + fmtNum(crit), Kind: "line", Stroke: st})
+		c.limitLine("critical", ys.At(crit), "critical "+fmtNum(crit), "critical level "+fmtNum(crit))
 	}
 	if len(c.Clipped) > 0 {
 		c.Legend = append(c.Legend, legendItem{Label: "off the scale or rank deficient (∞)", Kind: "marker", Fill: colVermillion, Pattern: id + "-clip-fill"})

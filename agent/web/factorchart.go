@@ -89,14 +89,10 @@ func factorChart(id string, tl []Point, vifWarn, vifCrit float64) *lineChart {
 		c.Legend = append(c.Legend, legendItem{Label: name, Kind: "line", Stroke: st})
 	}
 	if warn > 0 && warn < hi {
-		st := stroke{Colour: colOrange, Width: 1.5, Dash: dashWarn}
-		c.Levels = append(c.Levels, level{Name: "warn", Y: ys.At(warn), Stroke: st, Label: "√" + fmtNum(vifWarn)})
-		c.Legend = append(c.Legend, legendItem{Label: "√ of the VIF warn level " + fmtNum(vifWarn), Kind: "line", Stroke: st})
+		c.limitLine("warn", ys.At(warn), "√"+fmtNum(vifWarn), "√ of the VIF warn level "+fmtNum(vifWarn))
 	}
 	if crit > 0 && crit < hi {
-		st := stroke{Colour: colVermillion, Width: 1.5, Dash: dashCritical}
-		c.Levels = append(c.Levels, level{Name: "critical", Y: ys.At(crit), Stroke: st, Label: "√" + fmtNum(vifCrit)})
-		c.Legend = append(c.Legend, legendItem{Label: "√ of the VIF critical level " + fmtNum(vifCrit), Kind: "line", Stroke: st})
+		c.limitLine("critical", ys.At(crit), "√"+fmtNum(vifCrit), "√ of the VIF critical level "+fmtNum(vifCrit))
 	}
 	c.LegendY = c.Plot.Bottom() + 58
 	c.fitLegend()
