@@ -507,7 +507,7 @@ func (r *Runner) points(w *config.Watch, regressors, cols []string, at time.Time
 		if seg != "" {
 			parts = bySeg[seg]
 		}
-		a := widenKnown(cols, col.known, merge(cols, parts))
+		a := mergeKnown(cols, col.known, parts)
 		if a.m == nil || a.m.N() == 0 {
 			continue
 		}

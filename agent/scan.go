@@ -136,13 +136,21 @@ func encodeGroup(watch string, g connectors.Group, cols []string) (Bucket, error
 // them is held by each accumulator as indicator columns, one per level seen
 // (stream.IndicatorName), and accumulators that saw different levels
 // are widened to the union of their columns before they merge.
-func merge(cols []string, parts []acc) acc {
+func merge(cols []string, parts []acc) acc { return mergeKnown(cols, nil, parts) }
+
+// mergeKnown is merge whose result also holds the columns of known (the
+// levels a run knows of, knownColumns; nil for none): a known level that
+// no part saw is an all-zero indicator, which the analysis reports absent.
+func mergeKnown(cols, known []string, parts []acc) acc {
 	if len(parts) == 0 {
 		return acc{}
 	}
-	lists := make([][]string, len(parts))
+	lists := make([][]string, len(parts), len(parts)+1)
 	for i, p := range parts {
 		lists[i] = p.m.Names()
+	}
+	if known != nil {
+		lists = append(lists, known)
 	}
 	names := connectors.UnionColumns(factorsIn(cols, lists...), lists...)
 	out := acc{m: stream.NewMoments(names)}
@@ -287,18 +295,4 @@ func knownColumns(cols []string, lists [][]string, prev *diagnostics.Report) []s
 		lists = append(lists, connectors.ExpandNames(cols, fs))
 	}
 	return connectors.UnionColumns(factors, lists...)
-}
-
-// widenKnown widens an accumulator to the known columns (knownColumns),
-// so that a level missing from its rows shows as absent.
-func widenKnown(cols, known []string, a acc) acc {
-	if known == nil || a.m == nil {
-		return a
-	}
-	names := connectors.UnionColumns(factorsIn(cols, a.m.Names(), known), a.m.Names(), known)
-	out := acc{m: a.m.Widen(names)}
-	if a.q != nil {
-		out.q = a.q.Widen(names)
-	}
-	return out
 }
