@@ -5,7 +5,6 @@ import (
 	"fmt"
 	"math"
 	"path/filepath"
-	"strings"
 	"testing"
 	"time"
 
@@ -82,34 +81,9 @@ watches:
 		if d > 0 {
 			// Rescanned buckets (2), the new day and the filter's margin:
 			// at most 5 days × 3 districts, and complete rows only.
-			checkShardStatements(t, c, 15)
+			c.CheckOneAggregate(t, 1, 15)
 		}
 		sameBuckets(t, st, day0, day0.AddDate(0, 0, d+1))
-	}
-}
-
-// checkShardStatements checks that each shard received one aggregate
-// statement since the reset and returned at most maxGroups rows.
-func checkShardStatements(t *testing.T, c *pgtest.Cluster, maxGroups int64) {
-	t.Helper()
-	for i := range c.Shards {
-		aggs, fetched := int64(0), int64(0)
-		for _, s := range c.Statements(t, i) {
-			q := strings.ToUpper(s.Query)
-			switch {
-			case strings.HasPrefix(q, "DECLARE"):
-				if !strings.Contains(q, "REGR_SXY(") && !strings.Contains(q, "SUM(") {
-					t.Errorf("shard %d: a cursor over rows: %.200s", i, s.Query)
-					continue
-				}
-				aggs += s.Calls
-			case strings.HasPrefix(q, "FETCH"):
-				fetched += s.Rows
-			}
-		}
-		if aggs != 1 || fetched > maxGroups {
-			t.Errorf("shard %d: %d aggregate statements and %d rows fetched, want 1 and at most %d", i, aggs, fetched, maxGroups)
-		}
 	}
 }
 

@@ -69,7 +69,7 @@ func TestPushdownFactors(t *testing.T) {
 				t.Fatalf("%s: not pushed down: %s", what, got.Fallback)
 			}
 			if table == "supply" {
-				checkOneAggregate(t, c, 1, cells)
+				c.CheckOneAggregate(t, 1, cells)
 			}
 			if !slices.Equal(got.Columns, want.Columns) {
 				t.Fatalf("%s: columns %v, want %v", what, got.Columns, want.Columns)

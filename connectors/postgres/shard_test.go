@@ -44,38 +44,6 @@ func newShardCluster(t *testing.T, rows int) *pgtest.Cluster {
 	return c
 }
 
-// checkOneAggregate checks that each shard received, since the last
-// reset, exactly one aggregate statement per leaf it holds and no row
-// fetch: postgres_fdw runs every remote query as a cursor, so the
-// aggregate arrives as one DECLARE of a SELECT with sums, and every FETCH
-// returns no more rows than the statement has groups (a streamed scan
-// declares a cursor over the rows and fetches them a hundred at a time).
-func checkOneAggregate(t *testing.T, c *pgtest.Cluster, runs int, maxGroups int64) {
-	t.Helper()
-	for i := range c.Shards {
-		aggs, fetched := int64(0), int64(0)
-		for _, s := range c.Statements(t, i) {
-			q := strings.ToUpper(s.Query)
-			switch {
-			case strings.HasPrefix(q, "DECLARE"):
-				if !strings.Contains(q, "SUM(") && !strings.Contains(q, "REGR_SXY(") {
-					t.Errorf("shard %d: a cursor over rows, not an aggregate: %.200s", i, s.Query)
-					continue
-				}
-				aggs += s.Calls
-			case strings.HasPrefix(q, "FETCH"):
-				fetched += s.Rows
-			}
-		}
-		if aggs != int64(runs) {
-			t.Errorf("shard %d: %d aggregate statements, want %d (one per run)", i, aggs, runs)
-		}
-		if fetched > maxGroups*int64(runs) {
-			t.Errorf("shard %d: %d rows fetched, want at most %d (the groups)", i, fetched, maxGroups*int64(runs))
-		}
-	}
-}
-
 // TestShardedPushdown: through a coordinator whose table is two foreign
 // partitions on two shards, pushdown gives streaming's rows and
 // accumulators (identity of two computations: to 1e-12 relative, the
@@ -106,7 +74,7 @@ func TestShardedPushdown(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			checkOneAggregate(t, c, 1, r.groups)
+			c.CheckOneAggregate(t, 1, r.groups)
 			if got.Partitions != 2 || !got.Pushdown {
 				t.Errorf("partitions %d pushdown %v, want 2 true", got.Partitions, got.Pushdown)
 			}
@@ -215,7 +183,7 @@ func TestShardedPushdownWide(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	checkOneAggregate(t, c, 1, 1)
+	c.CheckOneAggregate(t, 1, 1)
 	demand.SameResult(t, "30 columns", want, got, 1e-12)
 }
 
@@ -285,7 +253,7 @@ func TestShardedPushdownNoStatistics(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	checkOneAggregate(t, c, 1, 1)
+	c.CheckOneAggregate(t, 1, 1)
 	demand.SameResult(t, "given centres", want, got, 1e-12)
 
 	req.Centres = nil
@@ -383,7 +351,7 @@ func TestShardedPushdownTimes(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			checkOneAggregate(t, c, 1, r.groups)
+			c.CheckOneAggregate(t, 1, r.groups)
 			demand.SameResult(t, r.name, want, got, 1e-12)
 		})
 	}
@@ -445,7 +413,7 @@ func TestShardedPushdownSample(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	checkOneAggregate(t, c, 1, 1)
+	c.CheckOneAggregate(t, 1, 1)
 	b, err := push.Scan(ctx, req)
 	if err != nil {
 		t.Fatal(err)

@@ -199,3 +199,35 @@ func procTicks(pid int, reaped bool) int64 {
 	}
 	return n
 }
+
+// CheckOneAggregate checks that each shard received, since the last
+// reset, exactly one aggregate statement per leaf it holds and no row
+// fetch: postgres_fdw runs every remote query as a cursor, so the
+// aggregate arrives as one DECLARE of a SELECT with sums, and every FETCH
+// returns no more rows than the statement has groups (a streamed scan
+// declares a cursor over the rows and fetches them a hundred at a time).
+func (c *Cluster) CheckOneAggregate(t testing.TB, runs int, maxGroups int64) {
+	t.Helper()
+	for i := range c.Shards {
+		aggs, fetched := int64(0), int64(0)
+		for _, s := range c.Statements(t, i) {
+			q := strings.ToUpper(s.Query)
+			switch {
+			case strings.HasPrefix(q, "DECLARE"):
+				if !strings.Contains(q, "SUM(") && !strings.Contains(q, "REGR_SXY(") {
+					t.Errorf("shard %d: a cursor over rows, not an aggregate: %.200s", i, s.Query)
+					continue
+				}
+				aggs += s.Calls
+			case strings.HasPrefix(q, "FETCH"):
+				fetched += s.Rows
+			}
+		}
+		if aggs != int64(runs) {
+			t.Errorf("shard %d: %d aggregate statements, want %d (one per run)", i, aggs, runs)
+		}
+		if fetched > maxGroups*int64(runs) {
+			t.Errorf("shard %d: %d rows fetched, want at most %d (the groups)", i, fetched, maxGroups*int64(runs))
+		}
+	}
+}
