@@ -55,10 +55,12 @@ type fixedClock struct{ t time.Time }
 
 func (c fixedClock) Now() time.Time { return c.t }
 
-// TestDemoDashboard runs the whole chain on the demo scenario: the demo
-// database, the agent's backfill into a real SQLite state store, this
-// view, the HTTP server, and chromium reading the pages.
-func TestDemoDashboard(t *testing.T) {
+// backfillDemo writes the demo scenario's database, opens a SQLite state
+// store for the configuration configYAML (a format with the store's and
+// the database's paths, in that order) and backfills every watch as of
+// the morning after the scenario's last day, which it returns.
+func backfillDemo(t *testing.T, configYAML string) (*config.Config, *sqlstore.Store, time.Time) {
+	t.Helper()
 	ctx := context.Background()
 	dir := t.TempDir()
 	sc := demo.Default
@@ -66,7 +68,7 @@ func TestDemoDashboard(t *testing.T) {
 	if err := sc.WriteSQLite(ctx, dbPath); err != nil {
 		t.Fatal(err)
 	}
-	cfg, err := config.Parse([]byte(fmt.Sprintf(demoConfig, filepath.Join(dir, "state.db"), dbPath)))
+	cfg, err := config.Parse([]byte(fmt.Sprintf(configYAML, filepath.Join(dir, "state.db"), dbPath)))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -77,7 +79,7 @@ func TestDemoDashboard(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	defer st.Close()
+	t.Cleanup(func() { st.Close() })
 	now := sc.Start.AddDate(0, 0, sc.Days).Add(3 * time.Hour)
 	run := &agent.Runner{Store: st, Config: cfg, Clock: fixedClock{now}}
 	for _, w := range cfg.Watches {
@@ -86,6 +88,16 @@ func TestDemoDashboard(t *testing.T) {
 			t.Fatalf("backfill %s: %v / %v", w.Name, err, out.Err)
 		}
 	}
+	return cfg, st, now
+}
+
+// TestDemoDashboard runs the whole chain on the demo scenario: the demo
+// database, the agent's backfill into a real SQLite state store, this
+// view, the HTTP server, and chromium reading the pages.
+func TestDemoDashboard(t *testing.T) {
+	ctx := context.Background()
+	sc := demo.Default
+	cfg, st, now := backfillDemo(t, demoConfig)
 
 	// The exact dependency the agent stored for the whole table.
 	ps, err := st.Points(ctx, "district_daily", agent.PointQuery{Segment: "", Limit: 1})

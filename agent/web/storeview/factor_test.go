@@ -3,12 +3,10 @@ package storeview
 import (
 	"context"
 	"encoding/json"
-	"fmt"
 	"io"
 	"math"
 	"net/http"
 	"net/http/httptest"
-	"path/filepath"
 	"slices"
 	"strings"
 	"testing"
@@ -19,9 +17,7 @@ import (
 	"github.com/prometheus/common/model"
 
 	"plumb/agent"
-	"plumb/agent/config"
 	"plumb/agent/demo"
-	"plumb/agent/sqlstore"
 	"plumb/agent/web"
 	"plumb/agent/web/webtest"
 	"plumb/connectors"
@@ -70,29 +66,8 @@ func supplyFactor(t *testing.T, p agent.Point) diagnostics.GroupReport {
 // chromium shows the panel and the note.
 func TestFactorDashboard(t *testing.T) {
 	ctx := context.Background()
-	dir := t.TempDir()
 	sc := demo.Default
-	dbPath := filepath.Join(dir, "districts.db")
-	if err := sc.WriteSQLite(ctx, dbPath); err != nil {
-		t.Fatal(err)
-	}
-	cfg, err := config.Parse([]byte(fmt.Sprintf(supplyConfig, filepath.Join(dir, "state.db"), dbPath)))
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := cfg.Resolve(config.Resolver{Env: func(string) (string, bool) { return "", false }}); err != nil {
-		t.Fatal(err)
-	}
-	st, err := sqlstore.Open(ctx, cfg.StoreURL(), sqlstore.Options{Migrate: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer st.Close()
-	now := sc.Start.AddDate(0, 0, sc.Days).Add(3 * time.Hour)
-	run := &agent.Runner{Store: st, Config: cfg, Clock: fixedClock{now}}
-	if out, err := run.Run(ctx, cfg.Watches[0], agent.RunOptions{Kind: agent.RunBackfill}); err != nil || out.Err != nil {
-		t.Fatalf("backfill: %v / %v", err, out.Err)
-	}
+	cfg, st, now := backfillDemo(t, supplyConfig)
 	v := New(st, cfg)
 	v.Now = func() time.Time { return now }
 	d, err := v.Watch(ctx, "supply")
