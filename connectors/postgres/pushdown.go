@@ -41,7 +41,23 @@ const (
 	// more than the bare sums of products; the updating aggregates cost
 	// half as much again.
 	pushShifted
+	// pushPaired: pushShifted for a whole unweighted table on PostgreSQL
+	// 12+, with the columns taken two by two, (x0, x1), (x2, x3), …:
+	// regr_avgx, regr_avgy, regr_sxx, regr_syy and regr_sxy of a pair
+	// share one transition state (PostgreSQL runs an aggregate's
+	// transition once for every aggregate with the same function and
+	// arguments), so one updating step per pair yields both columns'
+	// means and centred sums of squares and their co-moment, in place of
+	// two sums, two squares and a product; the other pairs are the
+	// shifted products. Measured on 20 columns, a tenth of the bare sums
+	// of products less than pushShifted.
+	pushPaired
 )
+
+// String names the strategy, for messages and test names.
+func (s pushStrategy) String() string {
+	return [...]string{"auto", "regr", "shifted", "paired"}[s]
+}
 
 // DefaultPushParallel is how many partitions a pushdown aggregates at once
 // when Options.Parallel does not say.
@@ -211,9 +227,15 @@ func (s *Source) preparePush(ctx context.Context, tx pgx.Tx, req connectors.Requ
 	strategy := s.push
 	if strategy == pushAuto {
 		strategy = pushShifted
-		if s.version >= 120000 && plan.Weight == nil && (plan.Time != nil || plan.Segment != nil || len(facs) > 0) {
-			strategy = pushRegr
+		if s.version >= 120000 && plan.Weight == nil {
+			strategy = pushPaired
+			if plan.Time != nil || plan.Segment != nil || len(facs) > 0 {
+				strategy = pushRegr
+			}
 		}
+	}
+	if strategy == pushPaired && plan.Weight != nil {
+		strategy = pushShifted
 	}
 	if strategy == pushRegr && plan.Weight != nil {
 		return nil, nil, nil, fmt.Errorf("%s: weighted pushdown needs the shifted sums: %w", t.source, connectors.ErrUnsupported)
@@ -660,7 +682,7 @@ type push struct {
 
 func (s *Source) newPush(t *target, l leaf, plan *connectors.Plan, facs []connectors.Column, where string, req connectors.Request, strategy pushStrategy) (*push, error) {
 	pd := &push{source: t.source, plan: plan, strategy: strategy, p: len(plan.Values), ship: l.relkind == "f", facs: facs, maxCells: maxCells(req)}
-	pd.hopeful = !pd.ship && strategy == pushShifted && plan.Weight == nil && pd.p > 0
+	pd.hopeful = !pd.ship && (strategy == pushShifted || strategy == pushPaired) && plan.Weight == nil && pd.p > 0
 	lt := *t
 	if !l.self {
 		lt.table = &l.name
@@ -1032,6 +1054,8 @@ func (pd *push) aggSQL() string {
 				list = append(list, "regr_sxy("+d[i]+", "+d[j]+")")
 			}
 		}
+	case pushPaired:
+		list = append(list, pd.pairedExprs(d)...)
 	default:
 		if pd.plan.Weight != nil {
 			list = append(list, "sum(w)")
@@ -1058,6 +1082,84 @@ func (pd *push) aggSQL() string {
 		q += fmt.Sprintf(" LIMIT %d", pd.maxCells+1)
 	}
 	return q
+}
+
+// pairs are pushPaired's pairs of columns (a, b), whose means, centred
+// sums of squares and co-moment one regr state computes: (0, 1), (2, 3),
+// …, and for an odd number of columns (p−1, 0), of which only column
+// p−1's mean and square and the co-moment are read; one column is the
+// pair (0, 0).
+func (pd *push) pairs() [][2]int {
+	var out [][2]int
+	for a := 0; a+1 < pd.p; a += 2 {
+		out = append(out, [2]int{a, a + 1})
+	}
+	if pd.p%2 == 1 {
+		out = append(out, [2]int{pd.p - 1, 0})
+	}
+	return out
+}
+
+// paired reports whether the co-moment of columns i < j comes from a
+// pair's regr state.
+func (pd *push) paired(i, j int) bool {
+	return (i%2 == 0 && j == i+1) || (pd.p%2 == 1 && pd.p > 1 && i == 0 && j == pd.p-1)
+}
+
+// pairedExprs are pushPaired's moment aggregates over the aggregated
+// columns d: per pair (a, b) regr_avgx, regr_sxx (of a), then, unless b
+// was read in an earlier pair, regr_avgy, regr_syy (of b), and, for two
+// columns, regr_sxy; then Σ d_i·d_j for every other i < j.
+func (pd *push) pairedExprs(d []string) []string {
+	var list []string
+	for _, pr := range pd.pairs() {
+		a, b := pr[0], pr[1]
+		args := "(" + d[b] + ", " + d[a] + ")"
+		list = append(list, "regr_avgx"+args, "regr_sxx"+args)
+		if b > a {
+			list = append(list, "regr_avgy"+args, "regr_syy"+args)
+		}
+		if a != b {
+			list = append(list, "regr_sxy"+args)
+		}
+	}
+	for i := 0; i < pd.p; i++ {
+		for j := i + 1; j < pd.p; j++ {
+			if !pd.paired(i, j) {
+				list = append(list, "sum("+d[i]+" * "+d[j]+")")
+			}
+		}
+	}
+	return list
+}
+
+// nMoments is how many moment aggregates (sums, cross-products, or their
+// paired form; weights' sum) a group's row carries before the extremes.
+func (pd *push) nMoments() int {
+	n := pd.p + pd.p*(pd.p+1)/2
+	if pd.strategy != pushRegr && pd.strategy != pushPaired && pd.plan.Weight != nil {
+		n++
+	}
+	if pd.strategy == pushPaired {
+		n = 0
+		for _, pr := range pd.pairs() {
+			n += 2
+			if pr[1] > pr[0] {
+				n += 2
+			}
+			if pr[0] != pr[1] {
+				n++
+			}
+		}
+		for i := 0; i < pd.p; i++ {
+			for j := i + 1; j < pd.p; j++ {
+				if !pd.paired(i, j) {
+					n++
+				}
+			}
+		}
+	}
+	return n
 }
 
 // groupBy is "GROUP BY 1, …, n" by output position, which postgres_fdw
@@ -1284,7 +1386,10 @@ func (pd *push) fill(st *connectors.Stats, n int64, v []any) {
 	copy(st.Origin, pd.shiftBy)
 	copy(st.Scale, pd.scaleBy)
 	i := 0
-	if pd.strategy == pushRegr {
+	if pd.strategy == pushPaired {
+		pd.fillPaired(st, n, v)
+		i = pd.nMoments()
+	} else if pd.strategy == pushRegr {
 		st.SumWeights = float64(n)
 		st.Centered = true
 		for j := 0; j < p; j++ {
@@ -1302,9 +1407,11 @@ func (pd *push) fill(st *connectors.Stats, n int64, v []any) {
 			i++
 		}
 	}
-	for k := range st.Cross {
-		st.Cross[k] = num(v[i])
-		i++
+	if pd.strategy != pushPaired {
+		for k := range st.Cross {
+			st.Cross[k] = num(v[i])
+			i++
+		}
 	}
 	for j := 0; j < p; j++ {
 		st.Min[j], st.Max[j] = num(v[i]), num(v[i+1])
@@ -1312,10 +1419,48 @@ func (pd *push) fill(st *connectors.Stats, n int64, v []any) {
 	}
 }
 
+// fillPaired sets the means and co-moments from pushPaired's aggregates
+// (pairedExprs) over n rows: centred as the regr states are, and the
+// shifted products Σd_i·d_j made co-moments Σd_i·d_j − n·m_i·m_j with
+// the pairs' means m, as Stats.Moments would.
+func (pd *push) fillPaired(st *connectors.Stats, n int64, v []any) {
+	p := pd.p
+	st.SumWeights = float64(n)
+	st.Centered = true
+	at := func(i, j int) int { return i*p - i*(i-1)/2 + (j - i) }
+	mean := make([]float64, p)
+	i := 0
+	for _, pr := range pd.pairs() {
+		a, b := pr[0], pr[1]
+		mean[a], st.Cross[at(a, a)] = num(v[i]), num(v[i+1])
+		i += 2
+		if b > a {
+			mean[b], st.Cross[at(b, b)] = num(v[i]), num(v[i+1])
+			i += 2
+		}
+		if a != b {
+			st.Cross[at(min(a, b), max(a, b))] = num(v[i])
+			i++
+		}
+	}
+	w := st.SumWeights
+	for j := range mean {
+		st.Sum[j] = mean[j] * w
+	}
+	for a := 0; a < p; a++ {
+		for b := a + 1; b < p; b++ {
+			if !pd.paired(a, b) {
+				st.Cross[at(a, b)] = num(v[i]) - w*mean[a]*mean[b]
+				i++
+			}
+		}
+	}
+}
+
 // finite reports whether a group's sums and cross-products (the
 // aggregates fill reads) are all finite.
 func (pd *push) finite(v []any) bool {
-	for _, x := range v[:pd.p+pd.p*(pd.p+1)/2] {
+	for _, x := range v[:pd.nMoments()] {
 		if f := num(x); math.IsNaN(f) || math.IsInf(f, 0) {
 			return false
 		}

@@ -2,6 +2,7 @@ package postgres
 
 import (
 	"context"
+	"fmt"
 	"strings"
 	"testing"
 
@@ -38,42 +39,45 @@ func TestPushdownHopeful(t *testing.T) {
 	ctx := context.Background()
 	stream := openPG(t, u, connectors.Options{})
 	cols := []string{"metered_volume", "temperature", "pressure"}
-	for _, tc := range []struct {
-		table    string
-		complete bool // every row complete: the first statement stands
-	}{{"demand_clean", true}, {"demand_stale", false}, {"demand_nulls", false}, {"demand_nonfinite", false}} {
-		for _, r := range []struct {
-			name string
-			req  connectors.Request
-			tol  float64
-		}{
-			{"whole table", connectors.Request{Table: tc.table, Columns: cols}, 1e-12},
-			{"by district", connectors.Request{Table: tc.table, Columns: cols, Segment: "district"}, 1e-9},
-		} {
-			t.Run(tc.table+"/"+r.name, func(t *testing.T) {
-				push := openPG(t, u, connectors.Options{Pushdown: true})
-				push.push = pushShifted
-				hopeful, after := hopefulRun(t, push, r.req)
-				if !hopeful {
-					t.Fatal("statistics without NULLs: the first statement should leave out the completeness test")
-				}
-				if after != tc.complete {
-					t.Errorf("after the run hopeful = %v, want %v (aggregated again only for incomplete rows)", after, tc.complete)
-				}
-				want, err := stream.Scan(ctx, r.req)
-				if err != nil {
-					t.Fatal(err)
-				}
-				got, err := push.Scan(ctx, r.req)
-				if err != nil {
-					t.Fatal(err)
-				}
-				demand.SameResult(t, r.name, want, got, r.tol)
-				if dropped := want.Merged().Moments.Counts().Dropped; (dropped == 0) != tc.complete {
-					t.Errorf("streaming dropped %d rows: the table is not as built", dropped)
-				}
-			})
+	for _, strategy := range []pushStrategy{pushShifted, pushPaired} {
+		for _, tc := range []struct {
+			table    string
+			complete bool // every row complete: the first statement stands
+		}{{"demand_clean", true}, {"demand_stale", false}, {"demand_nulls", false}, {"demand_nonfinite", false}} {
+			for _, r := range []struct {
+				name string
+				req  connectors.Request
+				tol  float64
+			}{
+				{"whole table", connectors.Request{Table: tc.table, Columns: cols}, 1e-12},
+				{"by district", connectors.Request{Table: tc.table, Columns: cols, Segment: "district"}, 1e-9},
+			} {
+				t.Run(fmt.Sprint(strategy)+"/"+tc.table+"/"+r.name, func(t *testing.T) {
+					push := openPG(t, u, connectors.Options{Pushdown: true})
+					push.push = strategy
+					hopeful, after := hopefulRun(t, push, r.req)
+					if !hopeful {
+						t.Fatal("statistics without NULLs: the first statement should leave out the completeness test")
+					}
+					if after != tc.complete {
+						t.Errorf("after the run hopeful = %v, want %v (aggregated again only for incomplete rows)", after, tc.complete)
+					}
+					want, err := stream.Scan(ctx, r.req)
+					if err != nil {
+						t.Fatal(err)
+					}
+					got, err := push.Scan(ctx, r.req)
+					if err != nil {
+						t.Fatal(err)
+					}
+					demand.SameResult(t, r.name, want, got, r.tol)
+					if dropped := want.Merged().Moments.Counts().Dropped; (dropped == 0) != tc.complete {
+						t.Errorf("streaming dropped %d rows: the table is not as built", dropped)
+					}
+				})
+			}
 		}
+
 	}
 
 	// Statistics that show NULLs: the completeness test from the start.
@@ -146,7 +150,7 @@ func TestPushdownConstantInSegment(t *testing.T) {
 	for _, s := range []struct {
 		name     string
 		strategy pushStrategy
-	}{{"auto", pushAuto}, {"regr", pushRegr}, {"shifted", pushShifted}} {
+	}{{"auto", pushAuto}, {"regr", pushRegr}, {"shifted", pushShifted}, {"paired", pushPaired}} {
 		t.Run(s.name, func(t *testing.T) {
 			push := openPG(t, u, connectors.Options{Pushdown: true})
 			push.push = s.strategy
@@ -155,7 +159,7 @@ func TestPushdownConstantInSegment(t *testing.T) {
 				t.Fatal(err)
 			}
 			tol := 1e-12
-			if s.strategy == pushShifted {
+			if s.strategy == pushShifted || s.strategy == pushPaired {
 				tol = 1e-9 // shifted sums in groups, as TestPushdownNonFinite
 			}
 			demand.SameResult(t, s.name, want, got, tol)

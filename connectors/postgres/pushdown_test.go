@@ -44,7 +44,7 @@ func TestPushdownNonFinite(t *testing.T) {
 	strategies := []struct {
 		name     string
 		strategy pushStrategy
-	}{{"auto", pushAuto}, {"regr", pushRegr}, {"shifted", pushShifted}}
+	}{{"auto", pushAuto}, {"regr", pushRegr}, {"shifted", pushShifted}, {"paired", pushPaired}}
 	for _, s := range strategies {
 		push := openPG(t, u, connectors.Options{Pushdown: true})
 		push.push = s.strategy
@@ -64,7 +64,7 @@ func TestPushdownNonFinite(t *testing.T) {
 				// sums in groups whose means lie far from the table's
 				// shift lose a few more digits, within the required 1e-9.
 				tol := 1e-12
-				if s.strategy == pushShifted && r.grouped {
+				if (s.strategy == pushShifted || s.strategy == pushPaired) && r.grouped {
 					tol = 1e-9
 				}
 				demand.SameResult(t, s.name+" "+r.name, want, got, tol)
@@ -109,7 +109,7 @@ func TestPushdownMagnitudes(t *testing.T) {
 	for _, s := range []struct {
 		name     string
 		strategy pushStrategy
-	}{{"auto", pushAuto}, {"regr", pushRegr}, {"shifted", pushShifted}} {
+	}{{"auto", pushAuto}, {"regr", pushRegr}, {"shifted", pushShifted}, {"paired", pushPaired}} {
 		push := openPG(t, u, connectors.Options{Pushdown: true})
 		push.push = s.strategy
 		for _, r := range reqs {
@@ -126,7 +126,7 @@ func TestPushdownMagnitudes(t *testing.T) {
 					t.Fatal(err)
 				}
 				tol := 1e-12
-				if s.strategy == pushShifted && r.grouped {
+				if (s.strategy == pushShifted || s.strategy == pushPaired) && r.grouped {
 					tol = 1e-9
 				}
 				demand.SameResult(t, s.name+" "+r.name, want, got, tol)

@@ -43,6 +43,9 @@ func TestModesAgree(t *testing.T) {
 		// ~5e-12 in the monthly groups, within the required 1e-9 for
 		// pushdown.
 		{"pushdown shifted", connectors.Options{Pushdown: true}, func(s *Source) { s.push = pushShifted }, 1e-10},
+		// The same products beside one updating state per pair of
+		// columns, which centres each group on its own means.
+		{"pushdown paired", connectors.Options{Pushdown: true}, func(s *Source) { s.push = pushPaired }, 1e-10},
 	}
 	for _, m := range modes {
 		src := openPG(t, url, m.opts)
