@@ -25,9 +25,9 @@ import (
 type pushStrategy int
 
 const (
-	// pushAuto: pushShifted for a whole table (and for weights and engines
-	// without the updating aggregates), pushRegr for buckets and segments
-	// on PostgreSQL 12+.
+	// pushAuto: on PostgreSQL 12+, pushPaired for a whole table and
+	// pushRegr for buckets, segments and factor cells; pushShifted for
+	// weights and for engines without the updating aggregates.
 	pushAuto pushStrategy = iota
 	// pushRegr: regr_sxy and avg of the shifted values, which PostgreSQL
 	// 12 and later compute by the Youngs–Cramer updating algorithm per
@@ -955,7 +955,7 @@ func (pd *push) valueExpr(j int) string {
 // aggSQL is the leaf's one statement: per key and completeness, the rows,
 // the inexact values, the missing counts, and the aggregates (the sums
 // Σ(x−c)/s, or avg for pushRegr; the cross-products Σ(x−c)(y−c′)/(s·s′),
-// or regr_sxy; each column's min and max). A hopeful statement groups by
+// or regr_sxy; for pushPaired, pairedExprs; each column's min and max). A hopeful statement groups by
 // the keys alone and has no missing counts: NULL becomes NaN in the
 // subquery, so that an incomplete row shows in its group's sums.
 //

@@ -63,7 +63,8 @@ func (c countingWriter) Write(p []byte) (int, error) {
 // BenchmarkShardPushdown measures, in one run, on PLUMB_BENCH_SHARD_ROWS
 // rows (default 500 000) × PLUMB_BENCH_SHARD_COLS float8 columns (default
 // 20; one with mean 1e9 and spread 1): on one instance the bare
-// sums-of-products SELECT (the floor) and plumb --pushdown on the same
+// sums-of-products SELECT (the floor), the same with each column's min
+// and max, and plumb --pushdown on the same
 // rows in a plain table; through a coordinator whose table is two foreign
 // partitions on two shards (three servers on this machine), plumb
 // --pushdown and, for contrast, plumb streaming. It reports the times,
@@ -128,6 +129,13 @@ func BenchmarkShardPushdown(b *testing.B) {
 		}
 	}
 	bare := "SELECT count(*), " + strings.Join(pairs, ", ") + " FROM readings_local"
+	// The floor with each column's min and max beside the sums: what the
+	// extremes alone cost, which no statement that reports them can save.
+	var ext []string
+	for _, c := range cols {
+		ext = append(ext, "min("+c+")", "max("+c+")")
+	}
+	bareExt := "SELECT count(*), " + strings.Join(append(pairs, ext...), ", ") + " FROM readings_local"
 	conn, err := pgx.Connect(ctx, c.URL)
 	if err != nil {
 		b.Fatal(err)
@@ -175,6 +183,7 @@ func BenchmarkShardPushdown(b *testing.B) {
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
 		timed("bare_sums", func() error { _, err := conn.Exec(ctx, bare); return err })
+		timed("bare_extremes", func() error { _, err := conn.Exec(ctx, bareExt); return err })
 		before := plumbBytes.Load()
 		timed("push_one", scan(push, local))
 		m["push_one_bytes_to_plumb"] += float64(plumbBytes.Load() - before)
@@ -192,10 +201,13 @@ func BenchmarkShardPushdown(b *testing.B) {
 	}
 	m["push_one_vs_bare"] = m["push_one_s"] / m["bare_sums_s"]
 	m["push_one_cpu_vs_bare"] = m["push_one_cpu_s"] / m["bare_sums_cpu_s"]
+	m["bare_extremes_vs_bare"] = m["bare_extremes_s"] / m["bare_sums_s"]
+	m["bare_extremes_cpu_vs_bare"] = m["bare_extremes_cpu_s"] / m["bare_sums_cpu_s"]
+	m["push_one_cpu_vs_bare_extremes"] = m["push_one_cpu_s"] / m["bare_extremes_cpu_s"]
 	m["push_shards_cpu_all_vs_push_one"] = (m["push_shards_cpu_s"] + m["push_shards_shard0_cpu_s"] + m["push_shards_shard1_cpu_s"]) / m["push_one_cpu_s"]
 	for k := range m {
 		// Only the coordinator works for the local table.
-		if strings.HasPrefix(k, "bare_sums_shard") || strings.HasPrefix(k, "push_one_shard") {
+		if strings.HasPrefix(k, "bare_sums_shard") || strings.HasPrefix(k, "bare_extremes_shard") || strings.HasPrefix(k, "push_one_shard") {
 			delete(m, k)
 		}
 	}
