@@ -63,3 +63,18 @@ func openPG(t testing.TB, url string, opts connectors.Options) *Source {
 	t.Cleanup(func() { src.Close() })
 	return src.(*Source)
 }
+
+// scanBoth scans req by streaming and by pushdown, failing on either
+// error.
+func scanBoth(t testing.TB, stream, push *Source, req connectors.Request) (want, got *connectors.Result) {
+	t.Helper()
+	ctx := context.Background()
+	want, err := stream.Scan(ctx, req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got, err = push.Scan(ctx, req); err != nil {
+		t.Fatal(err)
+	}
+	return want, got
+}

@@ -36,7 +36,6 @@ func TestPushdownHopeful(t *testing.T) {
 		"CREATE TABLE demand_nonfinite AS "+gen,
 		`UPDATE demand_nonfinite SET pressure = CASE WHEN i % 2 = 0 THEN 'NaN'::float8 ELSE '-Infinity'::float8 END WHERE i % 257 = 0`,
 		"ANALYZE demand_nonfinite")
-	ctx := context.Background()
 	stream := openPG(t, u, connectors.Options{})
 	cols := []string{"metered_volume", "temperature", "pressure"}
 	for _, strategy := range []pushStrategy{pushShifted, pushPaired} {
@@ -62,14 +61,7 @@ func TestPushdownHopeful(t *testing.T) {
 					if after != tc.complete {
 						t.Errorf("after the run hopeful = %v, want %v (aggregated again only for incomplete rows)", after, tc.complete)
 					}
-					want, err := stream.Scan(ctx, r.req)
-					if err != nil {
-						t.Fatal(err)
-					}
-					got, err := push.Scan(ctx, r.req)
-					if err != nil {
-						t.Fatal(err)
-					}
+					want, got := scanBoth(t, stream, push, r.req)
 					demand.SameResult(t, r.name, want, got, r.tol)
 					if dropped := want.Merged().Moments.Counts().Dropped; (dropped == 0) != tc.complete {
 						t.Errorf("streaming dropped %d rows: the table is not as built", dropped)

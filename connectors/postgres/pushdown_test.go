@@ -1,7 +1,6 @@
 package postgres
 
 import (
-	"context"
 	"math"
 	"testing"
 
@@ -26,7 +25,6 @@ func TestPushdownNonFinite(t *testing.T) {
 				ELSE 3.2 + (i % 17) * 0.05 + sin(i) * 0.01 END AS pressure
 		FROM generate_series(1, 6000) AS i`,
 		`ANALYZE pressure_log`)
-	ctx := context.Background()
 	stream := openPG(t, u, connectors.Options{})
 	cols := []string{"meter_reading", "temperature", "pressure"}
 	reqs := []struct {
@@ -50,14 +48,7 @@ func TestPushdownNonFinite(t *testing.T) {
 		push.push = s.strategy
 		for _, r := range reqs {
 			t.Run(s.name+"/"+r.name, func(t *testing.T) {
-				want, err := stream.Scan(ctx, r.req)
-				if err != nil {
-					t.Fatal(err)
-				}
-				got, err := push.Scan(ctx, r.req)
-				if err != nil {
-					t.Fatal(err)
-				}
+				want, got := scanBoth(t, stream, push, r.req)
 				// Updating aggregates per group, or plain shifted sums over
 				// the whole table: as close as the streaming merge order
 				// allows (the bound the other pushdown tests use). Shifted
@@ -94,7 +85,6 @@ func TestPushdownMagnitudes(t *testing.T) {
 			CASE WHEN i <= 3000 THEN 0 ELSE (2 + sin(i * 0.7)) * 1e250::float8 END AS late_huge
 		FROM generate_series(1, 6000) AS i`,
 		`ANALYZE gauge_log`)
-	ctx := context.Background()
 	stream := openPG(t, u, connectors.Options{})
 	cols := []string{"flow_tiny", "leak_tiny", "volume_huge", "late_huge"}
 	reqs := []struct {
@@ -117,14 +107,7 @@ func TestPushdownMagnitudes(t *testing.T) {
 				continue // the updating aggregates are unweighted
 			}
 			t.Run(s.name+"/"+r.name, func(t *testing.T) {
-				want, err := stream.Scan(ctx, r.req)
-				if err != nil {
-					t.Fatal(err)
-				}
-				got, err := push.Scan(ctx, r.req)
-				if err != nil {
-					t.Fatal(err)
-				}
+				want, got := scanBoth(t, stream, push, r.req)
 				tol := 1e-12
 				if (s.strategy == pushShifted || s.strategy == pushPaired) && r.grouped {
 					tol = 1e-9
