@@ -60,9 +60,54 @@ func (d *Deliverer) Backoff(attempts int) time.Duration {
 	return min(w, limit)
 }
 
-// DeliverResult counts what one pass did.
+// DeliverResult counts what one pass did. Withheld entries were
+// openings, escalations or snooze ends that an owner acknowledged after
+// they were queued (a receiver was down, say): they are not sent.
 type DeliverResult struct {
-	Delivered, Failed, GaveUp int
+	Delivered, Failed, GaveUp, Withheld int
+}
+
+// withheldPrefix starts the last error of an entry withheld by an
+// acknowledgement.
+const withheldPrefix = "withheld: "
+
+// pages reports whether an event pages the owner, so that an
+// acknowledgement can hold it back (a resolution is always sent).
+func pages(event string) bool {
+	return event == EventOpened || event == EventEscalated || event == EventSnoozeEnded
+}
+
+// withholding returns, for the entries of due that page the owner, why
+// each one that an acknowledgement recorded after it was queued now
+// holds back is not to be sent, by entry id.
+func (p *pass) withholding(ctx context.Context, due []Delivery) (map[int64]string, error) {
+	need := false
+	for _, e := range due {
+		need = need || pages(e.Event)
+	}
+	if !need {
+		return nil, nil
+	}
+	open, err := p.d.Store.Alerts(ctx, AlertQuery{OpenOnly: true})
+	if err != nil {
+		return nil, err
+	}
+	byID := make(map[string]*Alert, len(open))
+	for i := range open {
+		byID[open[i].ID] = &open[i]
+	}
+	now := p.clock.Now()
+	out := map[int64]string{}
+	for _, e := range due {
+		a := byID[e.AlertID]
+		if !pages(e.Event) || a == nil || a.Ack == nil || a.Ack.At.Before(e.CreatedAt) || !AckHolds(a.Ack, a.Severity, now) {
+			continue
+		}
+		why := fmt.Sprintf("%sacknowledged by %s at %s, after this %s was queued", withheldPrefix, cmp.Or(a.Ack.By, "an owner"),
+			a.Ack.At.UTC().Format(time.RFC3339), e.Event)
+		out[e.ID] = why
+	}
+	return out, nil
 }
 
 // pass is the shared state of one Once.
@@ -95,6 +140,26 @@ func (d *Deliverer) Once(ctx context.Context) (DeliverResult, error) {
 		due, err := d.Store.Due(ctx, p.clock.Now(), 100)
 		if err != nil {
 			return p.res, err
+		}
+		hold, err := p.withholding(ctx, due)
+		if err != nil {
+			return p.res, err
+		}
+		if len(hold) > 0 {
+			kept := due[:0:0]
+			for _, e := range due {
+				why, ok := hold[e.ID]
+				if !ok {
+					kept = append(kept, e)
+					continue
+				}
+				if err := d.Store.Failed(ctx, e.ID, e.Attempts, p.clock.Now(), why, true); err != nil {
+					return p.res, err
+				}
+				p.res.Withheld++
+				p.log.Info("notification withheld", "notifier", e.Notifier, "event", e.EventID, "reason", why)
+			}
+			due = kept
 		}
 		// Lanes: the entries of one alert and notifier, in order.
 		var lanes [][]Delivery

@@ -6,6 +6,7 @@ import (
 	"io"
 	"net/http"
 	"net/http/httptest"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -191,6 +192,72 @@ func TestDaemonRunsWhileReceiverHangs(t *testing.T) {
 	for _, e := range ob {
 		if !e.DeliveredAt.IsZero() || e.Attempts != 0 || !e.GivenUpAt.IsZero() {
 			t.Fatalf("entry %s: delivered %v, attempts %d, given up %v; want it untouched", e.EventID, e.DeliveredAt, e.Attempts, e.GivenUpAt)
+		}
+	}
+}
+
+// TestAckWithholdsQueuedOpening: an alert opens while the receiver is
+// down, so its opening waits in the outbox; the owner acknowledges it
+// (from the dashboard, say) before the receiver is back. The opening
+// is then withheld, not sent late, and says why; without the
+// acknowledgement the same opening is delivered.
+func TestAckWithholdsQueuedOpening(t *testing.T) {
+	ctx := context.Background()
+	for _, ack := range []bool{false, true} {
+		h := newHarness(t)
+		h.recv.mu.Lock()
+		h.recv.down = true
+		h.recv.mu.Unlock()
+		var opened *agent.Alert
+		for d := 0; d < 100 && opened == nil; d++ {
+			if out := h.liveDay(d); len(out.Open) > 0 {
+				opened = &out.Open[0]
+			}
+		}
+		if opened == nil {
+			t.Fatal("no alert opened")
+		}
+		if ack {
+			if _, err := h.store.Acknowledge(ctx, opened.ID, agent.Ack{By: "hydro-analyst", At: h.clock.Now(), Note: "known: meter swap"}); err != nil {
+				t.Fatal(err)
+			}
+		}
+		h.recv.mu.Lock()
+		h.recv.down = false
+		h.recv.mu.Unlock()
+		h.clock.Set(h.clock.Now().Add(2 * time.Hour)) // past the backoff
+		res, err := h.del.Once(ctx)
+		if err != nil {
+			t.Fatal(err)
+		}
+		heard := 0
+		for _, n := range h.recv.notifications() {
+			if n.AlertID == opened.ID {
+				heard++
+			}
+		}
+		ob, err := h.store.Outbox(ctx, opened.ID)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(ob) != 1 || ob[0].Event != agent.EventOpened {
+			t.Fatalf("ack %v: outbox of the alert %+v, want its one opening", ack, ob)
+		}
+		e := ob[0]
+		if !ack {
+			if heard != 1 || res.Withheld != 0 || e.DeliveredAt.IsZero() {
+				t.Fatalf("not acknowledged: heard %d times, pass %+v, entry delivered %v, last error %q; want the opening delivered", heard, res, e.DeliveredAt, e.LastError)
+			}
+			continue
+		}
+		if heard != 0 || res.Withheld != 1 || e.GivenUpAt.IsZero() || !e.DeliveredAt.IsZero() ||
+			!strings.HasPrefix(e.LastError, "withheld: acknowledged by hydro-analyst at ") {
+			t.Fatalf("acknowledged: heard %d times, pass %+v, entry delivered %v, given up %v, last error %q; want the opening withheld", heard, res, e.DeliveredAt, e.GivenUpAt, e.LastError)
+		}
+		// Withheld once: the next pass finds nothing of it due.
+		h.clock.Set(h.clock.Now().Add(2 * time.Hour))
+		if res, err := h.del.Once(ctx); err != nil || res.Withheld != 0 || res.Delivered != 0 {
+			t.Fatalf("second pass %+v, %v: want nothing to do", res, err)
 		}
 	}
 }
