@@ -3,6 +3,7 @@ package agent_test
 import (
 	"context"
 	"errors"
+	"fmt"
 	"strings"
 	"sync"
 	"testing"
@@ -68,10 +69,14 @@ func (f *fakeTime) Advance(d time.Duration) {
 // gatedSource wraps a real source; Scan waits for the gate when it is set.
 type gatedSource struct {
 	connectors.Source
-	gate chan struct{}
+	gate    chan struct{}
+	entered chan struct{} // told of each Scan that reaches the gate, when set
 }
 
 func (g *gatedSource) Scan(ctx context.Context, req connectors.Request) (*connectors.Result, error) {
+	if g.entered != nil {
+		g.entered <- struct{}{}
+	}
 	if g.gate != nil {
 		select {
 		case <-g.gate:
@@ -83,13 +88,14 @@ func (g *gatedSource) Scan(ctx context.Context, req connectors.Request) (*connec
 }
 
 type daemonRig struct {
-	h     *harness
-	ft    *fakeTime
-	runs  chan *agent.Outcome
-	errs  chan error
-	gate  chan struct{}
-	gated bool
-	d     *agent.Daemon
+	h       *harness
+	ft      *fakeTime
+	runs    chan *agent.Outcome
+	errs    chan error
+	gate    chan struct{}
+	gated   bool
+	entered chan struct{}
+	d       *agent.Daemon
 }
 
 func newDaemonRig(t *testing.T, at time.Time) *daemonRig {
@@ -107,7 +113,7 @@ func newDaemonRig(t *testing.T, at time.Time) *daemonRig {
 		if err != nil {
 			return nil, err
 		}
-		g := &gatedSource{Source: src}
+		g := &gatedSource{Source: src, entered: r.entered}
 		if r.gated {
 			g.gate = r.gate
 		}
@@ -284,3 +290,62 @@ func TestDaemonBacksOffFailingSource(t *testing.T) {
 }
 
 var errDown = errors.New("source is down")
+
+// TestDaemonBoundsRunsInFlight: five watches due at once with MaxRuns 2:
+// two scans start, the third waits for a slot and starts when one ends,
+// and all five run, never more than two at a time.
+func TestDaemonBoundsRunsInFlight(t *testing.T) {
+	r := newDaemonRig(t, start.AddDate(0, 0, 5).Add(5*time.Hour))
+	for d := 0; d < 5; d++ {
+		r.h.src.addDay(t, d)
+	}
+	base := r.h.cfg.Watches[0]
+	var ws []*config.Watch
+	for i := range 5 {
+		w := *base
+		w.Name = fmt.Sprintf("billing_%d", i)
+		ws = append(ws, &w)
+	}
+	r.d.Watches = ws
+	r.d.MaxRuns = 2
+	r.gate = make(chan struct{})
+	r.gated = true
+	r.entered = make(chan struct{}, 10)
+	ctx, cancel := context.WithCancel(context.Background())
+	stopped := make(chan error, 1)
+	go func() { stopped <- r.d.Run(ctx) }()
+	enter := func() {
+		t.Helper()
+		select {
+		case <-r.entered:
+		case <-time.After(20 * time.Second):
+			t.Fatal("no scan started")
+		}
+	}
+	// quiet checks that no further scan has started by the time the
+	// daemon sleeps again.
+	quiet := func(what string) {
+		t.Helper()
+		settle(r.ft)
+		select {
+		case <-r.entered:
+			t.Fatalf("%s: a scan started beyond MaxRuns", what)
+		default:
+		}
+	}
+	enter()
+	enter()
+	quiet("at start")
+	for done := 0; done < 5; done++ {
+		r.gate <- struct{}{}
+		r.expectRun(t)
+		if done+2 < 5 {
+			enter() // the freed slot goes to a waiting watch
+		}
+		quiet(fmt.Sprintf("after %d runs", done+1))
+	}
+	cancel()
+	if err := <-stopped; err != nil {
+		t.Fatal(err)
+	}
+}
