@@ -151,7 +151,7 @@ func checkShipped(t *testing.T, conn *pgx.Conn, src *Source, req connectors.Requ
 	}
 }
 
-// TestShardedPushdownWide: with 30 columns (465 products) the aggregate
+// TestShardedPushdownWide: with 30 columns (465 co-moments) the aggregate
 // is still sent to the shards (PostgreSQL 15's postgres_fdw would fetch the
 // rows instead, costing the products twice; see planFor).
 func TestShardedPushdownWide(t *testing.T) {
