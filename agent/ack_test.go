@@ -122,6 +122,48 @@ func TestAckHoldsAndLapses(t *testing.T) {
 	}
 }
 
+// TestAckHoldsInBackfill: a backfill that notifies replays each alert's
+// events as they happened, but not the openings and escalations an
+// owner's acknowledgement holds back, as a live run would not send them;
+// the resolution is sent, and without the acknowledgement everything is.
+func TestAckHoldsInBackfill(t *testing.T) {
+	day := func(d int) time.Time { return time.Date(2026, 8, 10+d, 6, 0, 0, 0, time.UTC) }
+	base := Alert{ID: "a1", Watch: "district_daily", Rule: RuleLevel, Subject: MetricMaxVIF, Severity: Warning,
+		AsOf: day(-1), OpenedAt: day(0), UpdatedAsOf: day(-1), UpdatedAt: day(0), NotifyState: NotifySent,
+		Message: "max VIF 6.1 is at or above the warning level 5", Detail: AlertDetail{Metric: MetricMaxVIF, Value: 6.1, Limit: 5}}
+	escalated := base
+	escalated.Severity, escalated.UpdatedAsOf = Critical, day(1)
+	resolved := escalated
+	resolved.ResolvedAsOf, resolved.ResolvedAt = day(3), day(4)
+	run := func(stored Alert, changes []Change) []string {
+		w := &config.Watch{Name: "district_daily", Source: "districts", Table: "district_daily", Notify: []string{"oncall"}}
+		r := &Runner{Config: &config.Config{PublicURL: "https://plumb.example.org"}}
+		e := newEvaluation(r, w, RunOptions{Kind: RunBackfill, Notify: true}, []Alert{stored}, nil)
+		e.apply(changes)
+		res := &RunResult{}
+		e.finish(res, day(5))
+		return outboxEvents(res)
+	}
+	esc := []Change{{Alert: base, Event: EventOpened}, {Alert: escalated, Event: EventEscalated}}
+	if got := strings.Join(run(base, esc), " "); got != "escalated" {
+		t.Fatalf("not acknowledged: %q, want the escalation (the opening was sent before)", got)
+	}
+	acked := base
+	acked.Ack = &Ack{By: "hydro-analyst", At: day(0), Severity: Critical}
+	if got := run(acked, esc); len(got) != 0 {
+		t.Fatalf("acknowledged at critical: %v, want nothing", got)
+	}
+	withEnd := append(esc, Change{Alert: resolved, Event: EventResolved})
+	if got := strings.Join(run(acked, withEnd), " "); got != "resolved" {
+		t.Fatalf("acknowledged, then resolved: %q, want the resolution alone", got)
+	}
+	// Acknowledged at warning: the escalation past it is news.
+	acked.Ack = &Ack{By: "hydro-analyst", At: day(0), Severity: Warning}
+	if got := strings.Join(run(acked, esc), " "); got != "escalated" {
+		t.Fatalf("escalation past the acknowledged severity: %q", got)
+	}
+}
+
 func itoa(v int64) string { b, _ := json.Marshal(v); return string(b) }
 
 func TestAckHolds(t *testing.T) {

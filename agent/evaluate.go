@@ -301,11 +301,16 @@ func (e *evaluation) finish(res *RunResult, now time.Time) {
 			if ev.event == EventOpened && existed && b.NotifyState == NotifySent {
 				continue // delivered before the backfill
 			}
+			if ev.event != EventResolved && e.quiet(e.alerts[ev.id], now) {
+				// Acknowledged: held, as in a live run (an opening
+				// waits until the acknowledgement lapses).
+				continue
+			}
 			enqueue(&a, ev.event)
 			e.alerts[ev.id].NotifyState = NotifySent
 		}
 		for _, id := range ids {
-			if a := e.alerts[id]; a.Open() && a.NotifyState == NotifyPending {
+			if a := e.alerts[id]; a.Open() && a.NotifyState == NotifyPending && !e.quiet(a, now) {
 				enqueue(a, EventOpened)
 				a.NotifyState = NotifySent
 			}
