@@ -75,7 +75,8 @@ type ExactDependency struct {
 // ConstantColumn is a column that does not vary in the window.
 type ConstantColumn struct {
 	Name  string
-	Value float64
+	Value float64   // the value; for a nearly constant column, its mean
+	Near  bool      // nearly constant: its spread is rounding of its magnitude
 	Onset time.Time // first bucket of its constant run
 }
 
@@ -288,7 +289,7 @@ func Observe(at time.Time, rep *diagnostics.Report, x *pointExtra, basis string)
 			if c.Constant {
 				v = c.Min
 			}
-			o.Constant = append(o.Constant, ConstantColumn{Name: c.Name, Value: v, Onset: x.Onsets[constantKey(c.Name)]})
+			o.Constant = append(o.Constant, ConstantColumn{Name: c.Name, Value: v, Near: !c.Constant, Onset: x.Onsets[constantKey(c.Name)]})
 		}
 	}
 	for _, d := range append(slices.Clone(rep.Dependencies), x.Recent...) {

@@ -644,7 +644,7 @@ func (r *Rules) findings(st *RuleState, open map[string]*Alert, o Observation) m
 			onset = o.Day
 		}
 		add(finding{rule: RuleConstant, subject: c.Name, severity: Critical, onset: onset, columns: []string{c.Name},
-			message: fmt.Sprintf("%s is constant at %s in %s since %s: its coefficient cannot be estimated", c.Name, num(c.Value), r.every(), r.day(onset)),
+			message: fmt.Sprintf("%s is %s in %s since %s: its coefficient cannot be estimated", c.Name, constantWords(c), r.every(), r.day(onset)),
 			detail: AlertDetail{Values: values, Columns: []string{c.Name},
 				Remedy: "check what feeds " + c.Name + " (a stuck sensor, a default value?); widen the window so that it varies, or leave it out of the model until it does"}})
 	}
@@ -1130,6 +1130,19 @@ func num(v float64) string {
 		return strconv.FormatFloat(v, 'f', 0, 64)
 	}
 	return strconv.FormatFloat(v, 'g', 3, 64)
+}
+
+// constantWords says at what value a column stays: the stored value
+// exactly (3.415, not 3.42, so that an owner finds it in the table), or,
+// for a column constant but for rounding, about its mean.
+func constantWords(c ConstantColumn) string {
+	if c.Near {
+		return "constant but for rounding, at about " + strconv.FormatFloat(c.Value, 'g', 6, 64)
+	}
+	if a := math.Abs(c.Value); c.Value == 0 || a >= 1e-4 && a < 1e15 {
+		return "constant at " + strconv.FormatFloat(c.Value, 'f', -1, 64)
+	}
+	return "constant at " + strconv.FormatFloat(c.Value, 'g', -1, 64)
 }
 
 func pct(rate float64) string {

@@ -162,7 +162,7 @@ func TestExactAndConstantAtOnce(t *testing.T) {
 				t.Errorf("exact message %q", c.Alert.Message)
 			}
 		case RuleConstant:
-			if !strings.Contains(c.Alert.Message, "pressure_bar is constant at 3.42 in every day since 2026-06-01") || c.Alert.Detail.Remedy == "" {
+			if !strings.Contains(c.Alert.Message, "pressure_bar is constant at 3.415 in every day since 2026-06-01") || c.Alert.Detail.Remedy == "" {
 				t.Errorf("constant message %q", c.Alert.Message)
 			}
 		}
@@ -506,5 +506,27 @@ func TestExpectedDependency(t *testing.T) {
 	o.Exact = []ExactDependency{{Dependent: "billed_volume_m3", Columns: []string{"billed_volume_m3", "metered_volume_m3"}, Equation: "billed_volume_m3 = 1·metered_volume_m3 + 0"}}
 	if ch := s.step(o); !strings.Contains(events(ch), "exact:billed_volume_m3+metered_volume_m3:opened:critical") {
 		t.Fatalf("undeclared: %s", events(ch))
+	}
+}
+
+// TestConstantWords: a constant column's value is said as stored, so
+// that an owner finds it in the table; a column constant but for
+// rounding is said about its mean.
+func TestConstantWords(t *testing.T) {
+	for _, c := range []struct {
+		col  ConstantColumn
+		want string
+	}{
+		{ConstantColumn{Value: 3.415}, "constant at 3.415"},
+		{ConstantColumn{Value: 1e9 + 0.1}, "constant at 1000000000.1"},
+		{ConstantColumn{Value: -0.0625}, "constant at -0.0625"},
+		{ConstantColumn{Value: 0}, "constant at 0"},
+		{ConstantColumn{Value: 1e-7}, "constant at 1e-07"},
+		{ConstantColumn{Value: 2.5e300}, "constant at 2.5e+300"},
+		{ConstantColumn{Value: 3.4150000000000023, Near: true}, "constant but for rounding, at about 3.415"},
+	} {
+		if got := constantWords(c.col); got != c.want {
+			t.Errorf("%+v: %q, want %q", c.col, got, c.want)
+		}
 	}
 }
