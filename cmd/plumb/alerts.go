@@ -28,11 +28,14 @@ type alertOutput struct {
 	// The series: "whole_table": true, or "segment" with the value (the
 	// empty string included) or null for NULL.
 	connectors.SegmentJSON
-	Rule         string               `json:"rule"`
-	Subject      string               `json:"subject,omitempty"`
-	Severity     string               `json:"severity"`
-	Onset        time.Time            `json:"onset"`
-	AsOf         time.Time            `json:"as_of"`
+	Rule     string    `json:"rule"`
+	Subject  string    `json:"subject,omitempty"`
+	Severity string    `json:"severity"`
+	Onset    time.Time `json:"onset"`
+	AsOf     time.Time `json:"as_of"`
+	// UpdatedAsOf is the last data day of the latest window that changed
+	// the alert (still found, escalated, clearing or resolved).
+	UpdatedAsOf  time.Time            `json:"updated_as_of"`
 	ResolvedAsOf *time.Time           `json:"resolved_as_of"`
 	OpenedAt     time.Time            `json:"opened_at"`
 	ResolvedAt   *time.Time           `json:"resolved_at"`
@@ -51,7 +54,7 @@ type alertOutput struct {
 func toAlertOutput(a agent.Alert) alertOutput {
 	o := alertOutput{ID: a.ID, Watch: a.Watch, SegmentJSON: connectors.SegmentJSONOf(a.Segment), segment: a.Segment,
 		Rule: string(a.Rule), Subject: a.Subject,
-		Severity: string(a.Severity), Onset: a.Onset.UTC(), AsOf: a.AsOf.UTC(), OpenedAt: a.OpenedAt.UTC(),
+		Severity: string(a.Severity), Onset: a.Onset.UTC(), AsOf: a.AsOf.UTC(), UpdatedAsOf: a.UpdatedAsOf.UTC(), OpenedAt: a.OpenedAt.UTC(),
 		Columns: a.Columns, Equation: a.Detail.Equation, Message: a.Message, Remedy: a.Detail.Remedy,
 		Acknowledged: a.Ack}
 	if o.Columns == nil {
@@ -142,6 +145,11 @@ func runAlerts(cmd *cobra.Command, stdout io.Writer, path string, q agent.AlertQ
 	}
 	for _, a := range out {
 		state := "open"
+		if a.UpdatedAsOf.After(a.AsOf) {
+			// The message speaks of the latest window, not of the one
+			// that raised the alert.
+			state = "open, updated on data through " + connectors.DataThrough(a.UpdatedAsOf)
+		}
 		if a.ResolvedAsOf != nil {
 			state = "resolved, data through " + connectors.DataThrough(*a.ResolvedAsOf)
 		}
