@@ -292,6 +292,9 @@ type Alert struct {
 	Onset        time.Time  `json:"onset"`
 	AsOf         time.Time  `json:"as_of"`
 	ResolvedAsOf *time.Time `json:"resolved_as_of"`
+	// UpdatedAsOf: the window end that last changed the alert; the
+	// message gives that window's figures.
+	UpdatedAsOf time.Time `json:"updated_as_of"`
 	// Wall-clock times: when plumb recorded the opening and resolution.
 	OpenedAt   time.Time  `json:"opened_at"`
 	ResolvedAt *time.Time `json:"resolved_at"`

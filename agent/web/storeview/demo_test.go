@@ -7,6 +7,7 @@ import (
 	"net/http/httptest"
 	"path/filepath"
 	"slices"
+	"strings"
 	"testing"
 	"time"
 
@@ -16,6 +17,7 @@ import (
 	"plumb/agent/sqlstore"
 	"plumb/agent/web"
 	"plumb/agent/web/webtest"
+	"plumb/connectors"
 	"plumb/diagnostics"
 
 	_ "plumb/connectors/sqlite"
@@ -126,6 +128,26 @@ func TestDemoDashboard(t *testing.T) {
 	}
 	ts := httptest.NewServer(srv.Handler())
 	defer ts.Close()
+
+	// An open alert whose message speaks of a later window than the one
+	// that raised it says, on the alerts page, on what data it was
+	// updated.
+	open, err := st.Alerts(ctx, agent.AlertQuery{OpenOnly: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	page, later := get(t, ts.URL+"/alerts"), 0
+	for _, a := range open {
+		if a.UpdatedAsOf.After(a.AsOf) {
+			later++
+			if want := "updated on data through " + connectors.DataThrough(a.UpdatedAsOf); !strings.Contains(page, want) {
+				t.Errorf("alert %s: the alerts page does not say %q", a.ID, want)
+			}
+		}
+	}
+	if later == 0 {
+		t.Errorf("none of the demo's %d open alerts was updated after it was raised", len(open))
+	}
 
 	b := webtest.NewBrowser(t)
 	b.Visit(ts.URL + "/")

@@ -257,7 +257,7 @@ func (v *View) detail(ctx context.Context, w *config.Watch, full bool) (*web.Wat
 	}
 	for _, a := range alerts {
 		wa := web.Alert{ID: a.ID, Watch: a.Watch, Rule: string(a.Rule), Severity: string(a.Severity), Onset: a.Onset, AsOf: a.AsOf,
-			OpenedAt: a.OpenedAt, Message: a.Message, Segment: a.Segment,
+			UpdatedAsOf: a.UpdatedAsOf, OpenedAt: a.OpenedAt, Message: a.Message, Segment: a.Segment,
 			Columns: a.Columns, Equation: a.Detail.Equation, Remedy: a.Detail.Remedy, Metric: a.Detail.Metric}
 		if wa.Columns == nil {
 			wa.Columns = []string{}
