@@ -1,11 +1,8 @@
 package main
 
 import (
-	"context"
 	"strings"
 	"testing"
-
-	"github.com/jackc/pgx/v5"
 
 	"plumb/connectors/postgres/pgtest"
 )
@@ -16,17 +13,9 @@ import (
 func TestScanStatementTimeout(t *testing.T) {
 	srv := pgtest.NewServer(t)
 	u := srv.NewDatabase(t)
-	ctx := context.Background()
-	conn, err := pgx.Connect(ctx, u)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer conn.Close(ctx)
-	if _, err := conn.Exec(ctx, `CREATE TABLE district_daily AS
+	pgtest.Exec(t, u, `CREATE TABLE district_daily AS
 		SELECT 12 + sin(i) * 6 AS temperature_c, (i % 7) * 0.8 AS rainfall_mm, 3.2 + cos(i * 0.3) * 0.2 AS pressure_bar
-		FROM generate_series(1, 50) AS i`); err != nil {
-		t.Fatal(err)
-	}
+		FROM generate_series(1, 50) AS i`)
 	// pg_sleep(0.5) once per scan: the streaming statement takes at least
 	// half a second.
 	slow := "SELECT temperature_c, rainfall_mm, pressure_bar FROM district_daily, (SELECT pg_sleep(0.5)) AS pause"

@@ -51,7 +51,7 @@ func createBenchTable(b testing.TB, u string, rows int) {
 			list = append(list, fmt.Sprintf("random() * %d + %d AS sensor_%02d", i, 10*i, i))
 		}
 	}
-	exec(b, u,
+	pgtest.Exec(b, u,
 		"CREATE TABLE "+benchTable+" AS SELECT "+strings.Join(list, ", ")+
 			" FROM (SELECT random() * 40 + 10 AS r1, random() * 900 + 4000 AS r2 FROM generate_series(1, "+strconv.Itoa(rows)+")) AS g",
 		"VACUUM ANALYZE "+benchTable)

@@ -18,7 +18,7 @@ import (
 
 func TestBadInputs(t *testing.T) {
 	u := loadDemand(t, demand.Generate(200, 5))
-	exec(t, u,
+	pgtest.Exec(t, u,
 		`CREATE TABLE empty (a float8, b float8)`,
 		`CREATE TABLE blank (a float8, b float8)`,
 		`INSERT INTO blank VALUES (1, NULL), (2, NULL), (3, NULL)`,
@@ -184,7 +184,7 @@ func TestConnectionErrors(t *testing.T) {
 	u := loadDemand(t, demand.Generate(40, 5))
 	pu, _ := url.Parse(u)
 	password, _ := pu.User.Password()
-	exec(t, u,
+	pgtest.Exec(t, u,
 		`DO $$ BEGIN IF NOT EXISTS (SELECT FROM pg_roles WHERE rolname = 'meter_reader') THEN CREATE ROLE meter_reader LOGIN PASSWORD 'reader-pw'; END IF; END $$`,
 		`REVOKE ALL ON district_daily FROM PUBLIC`)
 	ctx := context.Background()
@@ -250,7 +250,7 @@ func TestServerKilledMidScan(t *testing.T) {
 			srv := pgtest.NewServer(t)
 			u := srv.NewDatabase(t)
 			// Enough rows that the scan is still running when the server dies.
-			exec(t, u, `CREATE TABLE readings AS SELECT random() AS a, random() AS b, random() AS c FROM generate_series(1, 3000000)`)
+			pgtest.Exec(t, u, `CREATE TABLE readings AS SELECT random() AS a, random() AS b, random() AS c FROM generate_series(1, 3000000)`)
 			src := openPG(t, u, mode.opts)
 			mode.set(src)
 			killed := make(chan struct{})

@@ -14,6 +14,7 @@ import (
 
 	"plumb/connectors"
 	"plumb/connectors/internal/demand"
+	"plumb/connectors/postgres/pgtest"
 )
 
 // dummySQL selects district as hand-built 0/1 columns named as the
@@ -35,7 +36,7 @@ func dummySQL(table, extra string) string {
 // (the table is clustered by district, so each TID range holds one or two).
 func TestFactorEqualsDummies(t *testing.T) {
 	u := loadDemand(t, demand.Generate(4001, 3))
-	exec(t, u, `CREATE TABLE clustered AS SELECT * FROM district_daily ORDER BY district, day`, `ANALYZE clustered`)
+	pgtest.Exec(t, u, `CREATE TABLE clustered AS SELECT * FROM district_daily ORDER BY district, day`, `ANALYZE clustered`)
 	wantCols := []string{"temperature", "district[harbour]", "district[hillside]", "district[north]", "district[riverside]", "rainfall"}
 	modes := []struct {
 		name string
@@ -90,7 +91,7 @@ func TestFactorEqualsDummies(t *testing.T) {
 // rows used, counted by PostgreSQL itself.
 func TestFactorTypes(t *testing.T) {
 	u := pgtestStart(t)
-	exec(t, u,
+	pgtest.Exec(t, u,
 		`CREATE TYPE supply_source AS ENUM ('river', 'borehole', 'reservoir')`,
 		`CREATE TABLE intake (flow float8, source supply_source, band varchar(20), day_type char(8), pump_on boolean)`,
 		`INSERT INTO intake SELECT 100 + (i * 37 % 101), CASE WHEN i % 23 = 5 THEN NULL

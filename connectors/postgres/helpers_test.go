@@ -37,21 +37,6 @@ func loadDemand(t testing.TB, rows []demand.Row) string {
 	return url
 }
 
-func exec(t testing.TB, url string, sql ...string) {
-	t.Helper()
-	ctx := context.Background()
-	conn, err := pgx.Connect(ctx, url)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer conn.Close(ctx)
-	for _, q := range sql {
-		if _, err := conn.Exec(ctx, q); err != nil {
-			t.Fatalf("%s: %v", q, err)
-		}
-	}
-}
-
 func pgtestStart(t testing.TB) string { return pgtest.Start(t) }
 
 func openPG(t testing.TB, url string, opts connectors.Options) *Source {

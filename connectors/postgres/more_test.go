@@ -13,6 +13,7 @@ import (
 
 	"plumb/connectors"
 	"plumb/connectors/internal/demand"
+	"plumb/connectors/postgres/pgtest"
 	_ "plumb/connectors/sqlite"
 	"plumb/stream"
 )
@@ -125,7 +126,7 @@ func TestLongley(t *testing.T) {
 // timestamp columns in a named zone agree between streaming and pushdown.
 func TestWeightsAndTimeZones(t *testing.T) {
 	u := pgtestStart(t)
-	exec(t, u, `CREATE TABLE hourly AS
+	pgtest.Exec(t, u, `CREATE TABLE hourly AS
 		SELECT ts, ts AT TIME ZONE 'Europe/Amsterdam' AS local_ts,
 			(i % 3)::text AS zone_id,
 			(i % 7)::float8 / 3 AS w,

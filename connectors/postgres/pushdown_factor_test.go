@@ -92,7 +92,7 @@ func TestPushdownFactors(t *testing.T) {
 // streams the rows instead, says so, and gives streaming's result.
 func TestPushdownFactorCells(t *testing.T) {
 	u := pgtestStart(t)
-	exec(t, u, "CREATE TABLE supply ("+supplyDDL+")", supplyInsert("supply", 3000), "ANALYZE supply")
+	pgtest.Exec(t, u, "CREATE TABLE supply ("+supplyDDL+")", supplyInsert("supply", 3000), "ANALYZE supply")
 	ctx := context.Background()
 	req := connectors.Request{Table: "supply", Columns: supplyColumns, TimeColumn: "day", Bucket: "day", MaxCells: 50}
 	want, err := openPG(t, u, connectors.Options{}).Scan(ctx, req)

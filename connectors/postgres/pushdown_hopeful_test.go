@@ -10,6 +10,7 @@ import (
 
 	"plumb/connectors"
 	"plumb/connectors/internal/demand"
+	"plumb/connectors/postgres/pgtest"
 )
 
 // TestPushdownHopeful: a leaf whose statistics show no NULLs is first
@@ -26,7 +27,7 @@ func TestPushdownHopeful(t *testing.T) {
 			15 + 8 * cos(i * 0.11) AS temperature,
 			3.2 + (i % 17) * 0.05 + sin(i) * 0.01 AS pressure
 		FROM generate_series(1, 6000) AS i`
-	exec(t, u, "CREATE TABLE demand_clean AS "+gen, "ANALYZE demand_clean",
+	pgtest.Exec(t, u, "CREATE TABLE demand_clean AS "+gen, "ANALYZE demand_clean",
 		"CREATE TABLE demand_stale AS "+gen, "ANALYZE demand_stale",
 		// Written after ANALYZE: the statistics still show no NULLs.
 		`UPDATE demand_stale SET temperature = CASE WHEN i % 3 = 0 THEN NULL WHEN i % 3 = 1 THEN 'NaN'::float8 ELSE 'Infinity'::float8 END
@@ -73,7 +74,7 @@ func TestPushdownHopeful(t *testing.T) {
 	}
 
 	// Statistics that show NULLs: the completeness test from the start.
-	exec(t, u, "UPDATE demand_clean SET pressure = NULL WHERE i % 7 = 0", "ANALYZE demand_clean")
+	pgtest.Exec(t, u, "UPDATE demand_clean SET pressure = NULL WHERE i % 7 = 0", "ANALYZE demand_clean")
 	push := openPG(t, u, connectors.Options{Pushdown: true})
 	push.push = pushShifted
 	if hopeful, _ := hopefulRun(t, push, connectors.Request{Table: "demand_clean", Columns: cols}); hopeful {
@@ -118,7 +119,7 @@ func hopefulRun(t *testing.T, s *Source, req connectors.Request) (before, after 
 // the strategy; the other segments agree with streaming.
 func TestPushdownConstantInSegment(t *testing.T) {
 	u := pgtestStart(t)
-	exec(t, u, `CREATE TABLE district_pressure AS
+	pgtest.Exec(t, u, `CREATE TABLE district_pressure AS
 		SELECT 'district ' || (i % 3) AS district, i,
 			CASE WHEN i % 3 = 1 THEN 1e9 + 0.1 ELSE 1e9 + sin(i * 0.37) END AS metered_volume,
 			15 + 8 * cos(i * 0.11) AS temperature,

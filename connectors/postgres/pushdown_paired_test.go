@@ -9,6 +9,7 @@ import (
 
 	"plumb/connectors"
 	"plumb/connectors/internal/demand"
+	"plumb/connectors/postgres/pgtest"
 )
 
 // TestPushdownPairedWidths: the paired statement, the default for a whole
@@ -21,7 +22,7 @@ import (
 // columns.
 func TestPushdownPairedWidths(t *testing.T) {
 	u := pgtestStart(t)
-	exec(t, u, `CREATE TABLE district_flow AS
+	pgtest.Exec(t, u, `CREATE TABLE district_flow AS
 		SELECT i,
 			1e9 + sin(i * 0.37) AS meter_reading,
 			15 + 8 * cos(i * 0.11) AS temperature,

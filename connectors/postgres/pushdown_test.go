@@ -6,6 +6,7 @@ import (
 
 	"plumb/connectors"
 	"plumb/connectors/internal/demand"
+	"plumb/connectors/postgres/pgtest"
 )
 
 // TestPushdownNonFinite: NULL, NaN and ±Infinity scattered over a table
@@ -16,7 +17,7 @@ import (
 // the non-finite rows checks the first pass alone.
 func TestPushdownNonFinite(t *testing.T) {
 	u := pgtestStart(t)
-	exec(t, u, `CREATE TABLE pressure_log AS
+	pgtest.Exec(t, u, `CREATE TABLE pressure_log AS
 		SELECT date '2024-05-01' + (i % 40) AS day, 'zone ' || (i % 4) AS zone, i,
 			CASE WHEN i % 97 = 0 THEN 'NaN'::float8 WHEN i % 89 = 0 THEN NULL
 				ELSE 1e9 + sin(i * 0.37) END AS meter_reading,
@@ -77,7 +78,7 @@ func TestPushdownNonFinite(t *testing.T) {
 // TestPushdownNonFinite).
 func TestPushdownMagnitudes(t *testing.T) {
 	u := pgtestStart(t)
-	exec(t, u, `CREATE TABLE gauge_log AS
+	pgtest.Exec(t, u, `CREATE TABLE gauge_log AS
 		SELECT date '2024-05-01' + (i % 30) AS day, 'zone ' || (i % 3) AS zone, i,
 			(3 + sin(i * 0.37)) * 1e-200::float8 AS flow_tiny,
 			(1.5 + 0.5 * sin(i * 0.37) + 0.1 * cos(i * 0.13)) * 1e-200::float8 AS leak_tiny,

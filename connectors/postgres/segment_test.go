@@ -7,6 +7,7 @@ import (
 	"testing"
 
 	"plumb/connectors"
+	"plumb/connectors/postgres/pgtest"
 )
 
 // The empty string, NULL, the text old stores used for NULL and values
@@ -32,7 +33,7 @@ func TestSegmentsDistinct(t *testing.T) {
 			vals = append(vals, fmt.Sprintf("(%s, %d, %d)", s.value, i*10+k, k*k%5))
 		}
 	}
-	exec(t, u, `CREATE TABLE pressure_log (zone text, pressure_bar float8, pipe_age_years float8)`,
+	pgtest.Exec(t, u, `CREATE TABLE pressure_log (zone text, pressure_bar float8, pipe_age_years float8)`,
 		`INSERT INTO pressure_log VALUES `+strings.Join(vals, ", "))
 	for _, opts := range []connectors.Options{{}, {Parallel: 2}, {Pushdown: true}} {
 		src := openPG(t, u, opts)

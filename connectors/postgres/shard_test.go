@@ -269,7 +269,7 @@ func TestShardedPushdownNoStatistics(t *testing.T) {
 // results equal streaming (identity of two computations, to 1e-12).
 func TestPushdownCentresFromStatistics(t *testing.T) {
 	u := pgtestStart(t)
-	exec(t, u, `CREATE TABLE meter_events AS
+	pgtest.Exec(t, u, `CREATE TABLE meter_events AS
 		SELECT i % 3 = 0 AS leak_flag, (i % 1000)::int8 * 1000000007 AS meter_serial, (i * 0.001)::numeric(12,3) AS flow_m3,
 			CASE WHEN i % 97 = 0 THEN 'NaN'::float8 WHEN i % 89 = 0 THEN 'Infinity'::float8 ELSE 1e9 + sin(i) END AS reading
 		FROM generate_series(1, 5000) AS i`, `ANALYZE meter_events`)
@@ -364,7 +364,7 @@ func TestShardedPushdownTimes(t *testing.T) {
 // equal streaming's (identity of two computations, to 1e-12).
 func TestPushdownNestedPartitions(t *testing.T) {
 	u := pgtestStart(t)
-	exec(t, u, `CREATE TABLE meter_daily (id int, day date, district text, temperature float8, metered_volume float8, billed_volume float8) PARTITION BY RANGE (day)`,
+	pgtest.Exec(t, u, `CREATE TABLE meter_daily (id int, day date, district text, temperature float8, metered_volume float8, billed_volume float8) PARTITION BY RANGE (day)`,
 		`CREATE TABLE meter_daily_spring PARTITION OF meter_daily FOR VALUES FROM ('2025-03-01') TO ('2025-06-01') PARTITION BY HASH (id)`,
 		`CREATE TABLE meter_daily_spring_0 PARTITION OF meter_daily_spring FOR VALUES WITH (MODULUS 2, REMAINDER 0)`,
 		`CREATE TABLE meter_daily_spring_1 PARTITION OF meter_daily_spring FOR VALUES WITH (MODULUS 2, REMAINDER 1)`,
