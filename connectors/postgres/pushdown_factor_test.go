@@ -60,11 +60,7 @@ func TestPushdownFactors(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			c.ResetStatements(t)
-			got, err := push.Scan(ctx, req)
-			if err != nil {
-				t.Fatal(err)
-			}
+			got := pushOnShards(t, c, push, req)
 			if got.Fallback != "" || !got.Pushdown {
 				t.Fatalf("%s: not pushed down: %s", what, got.Fallback)
 			}

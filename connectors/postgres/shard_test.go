@@ -69,11 +69,7 @@ func TestShardedPushdown(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			c.ResetStatements(t)
-			got, err := push.Scan(ctx, r.req)
-			if err != nil {
-				t.Fatal(err)
-			}
+			got := pushOnShards(t, c, push, r.req)
 			c.CheckOneAggregate(t, 1, r.groups)
 			if got.Partitions != 2 || !got.Pushdown {
 				t.Errorf("partitions %d pushdown %v, want 2 true", got.Partitions, got.Pushdown)
@@ -178,11 +174,7 @@ func TestShardedPushdownWide(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	c.ResetStatements(t)
-	got, err := src.Scan(ctx, connectors.Request{Table: "sensors", Columns: cols})
-	if err != nil {
-		t.Fatal(err)
-	}
+	got := pushOnShards(t, c, src, connectors.Request{Table: "sensors", Columns: cols})
 	c.CheckOneAggregate(t, 1, 1)
 	demand.SameResult(t, "30 columns", want, got, 1e-12)
 }
@@ -248,11 +240,7 @@ func TestShardedPushdownNoStatistics(t *testing.T) {
 	for j, name := range m.Names() {
 		req.Centres[name] = m.Mean(j)
 	}
-	c.ResetStatements(t)
-	got, err := push.Scan(ctx, req)
-	if err != nil {
-		t.Fatal(err)
-	}
+	got := pushOnShards(t, c, push, req)
 	c.CheckOneAggregate(t, 1, 1)
 	demand.SameResult(t, "given centres", want, got, 1e-12)
 
@@ -346,11 +334,7 @@ func TestShardedPushdownTimes(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			c.ResetStatements(t)
-			got, err := push.Scan(ctx, r.req)
-			if err != nil {
-				t.Fatal(err)
-			}
+			got := pushOnShards(t, c, push, r.req)
 			c.CheckOneAggregate(t, 1, r.groups)
 			demand.SameResult(t, r.name, want, got, 1e-12)
 		})
@@ -408,11 +392,7 @@ func TestShardedPushdownSample(t *testing.T) {
 	ctx := context.Background()
 	push := openPG(t, c.URL, connectors.Options{Pushdown: true})
 	req := connectors.Request{Table: "readings", Columns: shardColumns, SamplePct: 25, Seed: 3}
-	c.ResetStatements(t)
-	a, err := push.Scan(ctx, req)
-	if err != nil {
-		t.Fatal(err)
-	}
+	a := pushOnShards(t, c, push, req)
 	c.CheckOneAggregate(t, 1, 1)
 	b, err := push.Scan(ctx, req)
 	if err != nil {
@@ -423,4 +403,16 @@ func TestShardedPushdownSample(t *testing.T) {
 		t.Errorf("25%% sample: %d of 20000 rows, sampled %v", a.Read, a.Sampled)
 	}
 	demand.SameResult(t, "the same sample twice", a, b, 0)
+}
+
+// pushOnShards runs req's pushdown with the shards' statement counts
+// reset just before, so that CheckOneAggregate sees this scan alone.
+func pushOnShards(t *testing.T, c *pgtest.Cluster, push *Source, req connectors.Request) *connectors.Result {
+	t.Helper()
+	c.ResetStatements(t)
+	got, err := push.Scan(context.Background(), req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return got
 }
