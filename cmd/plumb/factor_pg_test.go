@@ -35,8 +35,8 @@ func TestScanFactorPostgres(t *testing.T) {
 	}
 	path, _ := factorTable(t, 300)
 	args := []string{"--table", "district_daily", "--columns", "temperature_c,supply_source,population_served,district_code", "--target", "demand_m3"}
-	pg := factorScan(t, append([]string{"--db", u}, args...)...)
-	lite := factorScan(t, append([]string{"--db", "sqlite:" + path}, args...)...)
+	pg := scanAs[factorScanJSON](t, append([]string{"--db", u}, args...)...)
+	lite := scanAs[factorScanJSON](t, append([]string{"--db", "sqlite:" + path}, args...)...)
 	if len(pg.Groups) != 2 || len(lite.Groups) != 2 || pg.RowsUsed != lite.RowsUsed || pg.RowsDropped != lite.RowsDropped {
 		t.Fatalf("PostgreSQL %+v rows %d/%d, SQLite %+v rows %d/%d", pg.Groups, pg.RowsUsed, pg.RowsDropped, lite.Groups, lite.RowsUsed, lite.RowsDropped)
 	}

@@ -91,17 +91,6 @@ type factorScanJSON struct {
 	} `json:"skipped_columns"`
 }
 
-func factorScan(t *testing.T, args ...string) factorScanJSON {
-	t.Helper()
-	code, out, errs := runCLI(t, append([]string{"scan", "--format", "json", "--quiet"}, args...)...)
-	if code != 0 {
-		t.Fatalf("plumb scan %v: exit %d: %s", args, code, errs)
-	}
-	var s factorScanJSON
-	decode(t, out, &s)
-	return s
-}
-
 // A text column named in --columns is a factor: groups[] has its entry
 // (the contract: name, df, gvif, gvif_adjusted, levels, base), equal to
 // the generalized VIF of hand-built dummies declared with --group
@@ -109,7 +98,7 @@ func factorScan(t *testing.T, args ...string) factorScanJSON {
 func TestScanFactor(t *testing.T) {
 	path, count := factorTable(t, 400)
 	db := "sqlite:" + path
-	got := factorScan(t, "--db", db, "--table", "district_daily", "--columns", "temperature_c,supply_source,population_served")
+	got := scanAs[factorScanJSON](t, "--db", db, "--table", "district_daily", "--columns", "temperature_c,supply_source,population_served")
 	if len(got.Groups) != 1 {
 		t.Fatalf("groups %+v", got.Groups)
 	}
@@ -151,7 +140,7 @@ func TestScanFactor(t *testing.T) {
 			dummies = append(dummies, "src_"+l)
 		}
 	}
-	hand := factorScan(t, "--db", db, "--table", "district_daily",
+	hand := scanAs[factorScanJSON](t, "--db", db, "--table", "district_daily",
 		"--columns", "temperature_c,"+strings.Join(dummies, ",")+",population_served",
 		"--group", "supply="+strings.Join(dummies, ","))
 	h := hand.Groups[0]
@@ -169,7 +158,7 @@ func TestScanFactor(t *testing.T) {
 
 	// Every other base gives the same GVIF (Fox & Monette 1992).
 	for _, l := range g.Levels {
-		o := factorScan(t, "--db", db, "--table", "district_daily", "--columns", "temperature_c,supply_source,population_served", "--base", "supply_source="+l)
+		o := scanAs[factorScanJSON](t, "--db", db, "--table", "district_daily", "--columns", "temperature_c,supply_source,population_served", "--base", "supply_source="+l)
 		og := o.Groups[0]
 		if og.Base != l || relDiff(*og.GVIF, *g.GVIF) > 1e-10 {
 			t.Errorf("--base supply_source=%s: base %q GVIF %.15g, default base %.15g", l, og.Base, *og.GVIF, *g.GVIF)
@@ -224,7 +213,7 @@ func TestScanFactorText(t *testing.T) {
 		t.Errorf("output:\n%s", out)
 	}
 	// JSON: the words beside the equation.
-	j := factorScan(t, "--db", db, "--table", "district_daily", "--columns", "district_code,district,temperature_c")
+	j := scanAs[factorScanJSON](t, "--db", db, "--table", "district_daily", "--columns", "district_code,district,temperature_c")
 	found := false
 	for _, d := range j.Dependencies {
 		if d.Kind == "exact" {
@@ -271,7 +260,7 @@ func TestScanFactorOneLevel(t *testing.T) {
 	path, _ := factorTable(t, 200)
 	db := "sqlite:" + path
 	args := []string{"--db", db, "--table", "district_daily", "--where", "supply_source = 'river'", "--columns", "temperature_c,supply_source,population_served"}
-	j := factorScan(t, args...)
+	j := scanAs[factorScanJSON](t, args...)
 	if len(j.Groups) != 1 || j.Groups[0].DF != 0 || j.Groups[0].GVIF != nil || j.Groups[0].Base != "river" || len(j.Columns) != 2 {
 		t.Fatalf("groups %+v columns %+v", j.Groups, j.Columns)
 	}

@@ -37,19 +37,6 @@ type extremeJSON struct {
 	} `json:"numerical_trust"`
 }
 
-// scanExtreme runs plumb scan --format json and decodes its report; the
-// scan must succeed and its output be JSON (no NaN or infinity).
-func scanExtreme(t *testing.T, args ...string) extremeJSON {
-	t.Helper()
-	code, out, errs := runCLI(t, append([]string{"scan", "--format", "json", "--quiet"}, args...)...)
-	if code != 0 {
-		t.Fatalf("plumb scan %v: exit %d: %s", args, code, errs)
-	}
-	var s extremeJSON
-	decode(t, out, &s)
-	return s
-}
-
 // connectionsRows is a day per row of one supply district: residential and
 // commercial connections and their exact total, the temperature, and
 // metered and billed volume (billed a near copy of metered), every value
@@ -89,7 +76,7 @@ func TestScanExtremeMagnitudes(t *testing.T) {
 		path := sqliteTable(t, connectionsDDL, connectionsRows(k))
 		for _, precision := range []string{"auto", "exact", "precise"} {
 			what := fmt.Sprintf("2^%d, --precision %s", k, precision)
-			s := scanExtreme(t, "--db", "sqlite:"+path, "--table", "district_daily", "--precision", precision)
+			s := scanAs[extremeJSON](t, "--db", "sqlite:"+path, "--table", "district_daily", "--precision", precision)
 			if k == 0 {
 				ref[precision] = s
 				if s.Rank != 6 || len(s.Dependencies) == 0 || s.Dependencies[0].Kind != "exact" {
@@ -161,7 +148,7 @@ func TestScanUniformHuge(t *testing.T) {
 	}
 	path := sqliteTable(t, "CREATE TABLE district_daily (leakage_index REAL, temperature_c REAL)", rows)
 	for _, precision := range []string{"auto", "fast", "exact", "precise"} {
-		s := scanExtreme(t, "--db", "sqlite:"+path, "--table", "district_daily", "--precision", precision)
+		s := scanAs[extremeJSON](t, "--db", "sqlite:"+path, "--table", "district_daily", "--precision", precision)
 		if len(s.Dependencies) != 0 || s.Rank != 3 {
 			t.Errorf("--precision %s: rank %d, dependencies %+v: want full rank, none", precision, s.Rank, s.Dependencies)
 		}
@@ -182,7 +169,7 @@ func TestScanUniformHuge(t *testing.T) {
 // those of the data at ordinary scale, and the text report says so too.
 func TestScanTinyNotConstant(t *testing.T) {
 	path := sqliteTable(t, connectionsDDL, connectionsRows(-664))
-	s := scanExtreme(t, "--db", "sqlite:"+path, "--table", "district_daily",
+	s := scanAs[extremeJSON](t, "--db", "sqlite:"+path, "--table", "district_daily",
 		"--columns", "residential_connections,temperature_c,metered_volume_m3,billed_volume_m3")
 	for _, c := range s.Columns {
 		if c.Constant || c.NearConstant || !(c.SD > 0) || c.VIF == nil {

@@ -94,13 +94,15 @@ type scanJSON struct {
 	Skipped []struct{ Name, Type string } `json:"skipped_columns"`
 }
 
-func scanJSONOf(t *testing.T, args ...string) scanJSON {
+// scanAs runs plumb scan --format json with args and decodes its report
+// into a T; the scan must succeed and its output be JSON.
+func scanAs[T any](t *testing.T, args ...string) T {
 	t.Helper()
 	code, out, errs := runCLI(t, append([]string{"scan", "--format", "json", "--quiet"}, args...)...)
 	if code != 0 {
 		t.Fatalf("plumb scan %v: exit %d: %s", args, code, errs)
 	}
-	var s scanJSON
+	var s T
 	decode(t, out, &s)
 	return s
 }
@@ -129,7 +131,7 @@ func TestScanSampleJSONContract(t *testing.T) {
 	if err := demo.Default.WriteSQLite(context.Background(), path); err != nil {
 		t.Fatal(err)
 	}
-	s := scanJSONOf(t, "--db", "sqlite:"+path, "--table", demo.Table, "--target", demo.Target)
+	s := scanAs[scanJSON](t, "--db", "sqlite:"+path, "--table", demo.Table, "--target", demo.Target)
 	if s.RowsUsed != int64(demo.Default.Days*len(demo.Default.Districts)) || s.RowsDropped != 0 {
 		t.Errorf("rows used %d dropped %d", s.RowsUsed, s.RowsDropped)
 	}
@@ -181,7 +183,7 @@ func TestScanExactDependencyEquation(t *testing.T) {
 		t.Fatal(err)
 	}
 	from := demo.Default.Start.AddDate(0, 0, demo.Default.ChangeDay).Format("2006-01-02")
-	s := scanJSONOf(t, "--db", "sqlite:"+path, "--table", demo.Table, "--where", "day >= '"+from+"'",
+	s := scanAs[scanJSON](t, "--db", "sqlite:"+path, "--table", demo.Table, "--where", "day >= '"+from+"'",
 		"--columns", "residential_connections,commercial_connections,total_connections,temperature_c")
 	var found bool
 	for _, d := range s.Dependencies {
@@ -222,7 +224,7 @@ func TestScanDropsMissingRows(t *testing.T) {
 		rows = append(rows, []any{a, b, c})
 	}
 	path := sqliteTable(t, "CREATE TABLE readings (a REAL, b REAL, c REAL)", rows)
-	s := scanJSONOf(t, "--db", "sqlite:"+path, "--table", "readings")
+	s := scanAs[scanJSON](t, "--db", "sqlite:"+path, "--table", "readings")
 	if s.RowsUsed != 45 || s.RowsDropped != 5 {
 		t.Errorf("used %d dropped %d, want 45 and 5", s.RowsUsed, s.RowsDropped)
 	}
@@ -275,7 +277,7 @@ func TestScanErrors(t *testing.T) {
 		})
 	}
 	// The table survives the identifier with DROP TABLE in it.
-	s := scanJSONOf(t, "--db", "sqlite:"+good, "--table", "district_daily", "--columns", "temperature_c")
+	s := scanAs[scanJSON](t, "--db", "sqlite:"+good, "--table", "district_daily", "--columns", "temperature_c")
 	if s.RowsUsed != 3 {
 		t.Errorf("after the hostile identifier the table has %d rows, want 3", s.RowsUsed)
 	}
@@ -332,7 +334,7 @@ func TestScanRegressionPrintout(t *testing.T) {
 		rows = append(rows, []any{x, z, 2*x + z + float64(i%3)})
 	}
 	path := sqliteTable(t, "CREATE TABLE meters (intercept REAL, z REAL, y REAL)", rows)
-	s := scanJSONOf(t, "--db", "sqlite:"+path, "--table", "meters", "--target", "y")
+	s := scanAs[scanJSON](t, "--db", "sqlite:"+path, "--table", "meters", "--target", "y")
 	if s.Regression == nil || len(s.Regression.Coefficients) != 3 {
 		t.Fatalf("regression %+v", s.Regression)
 	}

@@ -20,9 +20,9 @@ func TestScanPushdownPartitioned(t *testing.T) {
 	pgtest.Exec(t, c.URL, `INSERT INTO district_daily SELECT i, 15 + 8 * cos(i * 0.11), abs(sin(i * 0.05)) * 12,
 			400 + 50 * sin(i * 0.013) + 3 * cos(i), 400 + 50 * sin(i * 0.013) + 3 * cos(i) + 0.5 * sin(i * 7)
 		FROM generate_series(1, 4000) AS i`, "ANALYZE district_daily")
-	want := scanJSONOf(t, "--db", c.URL, "--table", "district_daily", "--columns", "temperature_c,rainfall_mm,metered_volume_m3,billed_volume_m3")
+	want := scanAs[scanJSON](t, "--db", c.URL, "--table", "district_daily", "--columns", "temperature_c,rainfall_mm,metered_volume_m3,billed_volume_m3")
 	c.ResetStatements(t)
-	got := scanJSONOf(t, "--db", c.URL, "--pushdown", "--table", "district_daily", "--columns", "temperature_c,rainfall_mm,metered_volume_m3,billed_volume_m3")
+	got := scanAs[scanJSON](t, "--db", c.URL, "--pushdown", "--table", "district_daily", "--columns", "temperature_c,rainfall_mm,metered_volume_m3,billed_volume_m3")
 	for i := range c.Shards {
 		aggs := int64(0)
 		for _, s := range c.Statements(t, i) {
