@@ -103,11 +103,7 @@ func newWatcherWith(t *testing.T, dir, url, notifiers, watches string) *watcher 
 	if err := cfg.Resolve(config.Resolver{Env: func(k string) (string, bool) { return "hook-secret", k == "PLUMB_TEST_SECRET" }}); err != nil {
 		t.Fatal(err)
 	}
-	st, err := sqlstore.Open(context.Background(), cfg.StoreURL(), sqlstore.Options{Migrate: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { st.Close() })
+	st := openTestStore(t, cfg)
 	w := &watcher{cfg: cfg, store: st, clock: &fakeClock{t: start}}
 	w.run = &agent.Runner{Store: st, Config: cfg, Clock: w.clock}
 	return w

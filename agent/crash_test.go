@@ -124,11 +124,7 @@ func TestCrashLeavesNoPartialRun(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	st, err := sqlstore.Open(ctx, cfg.StoreURL(), sqlstore.Options{Migrate: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer st.Close()
+	st := openTestStore(t, cfg)
 	checkStoreConsistent(t, st, 40)
 	// The next run completes and leaves the store consistent.
 	out, err := (&agent.Runner{Store: st, Config: cfg}).Run(ctx, cfg.Watches[0], agent.RunOptions{})

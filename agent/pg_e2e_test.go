@@ -82,11 +82,7 @@ watches:
 		return cfg
 	}
 	cfg := cfgFor(storeURL)
-	st, err := sqlstore.Open(ctx, cfg.StoreURL(), sqlstore.Options{Migrate: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer st.Close()
+	st := openTestStore(t, cfg)
 	clock := &fakeClock{}
 	r := &agent.Runner{Store: st, Config: cfg, Clock: clock}
 	const days = 50

@@ -193,11 +193,7 @@ func newHarness(t *testing.T) *harness {
 		t.Fatal(err)
 	}
 	h.cfg = cfg
-	h.store, err = sqlstore.Open(context.Background(), cfg.StoreURL(), sqlstore.Options{Migrate: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { h.store.Close() })
+	h.store = openTestStore(t, cfg)
 	h.run = &agent.Runner{Store: h.store, Config: cfg, Clock: h.clock}
 	h.del = &agent.Deliverer{Store: h.store, Clock: h.clock, Notifiers: map[string]agent.NotifierConfig{
 		"oncall": {Notifier: &notify.Webhook{URL: h.recv.srv.URL, Secrets: []string{"hook-secret"}, Now: h.clock.Now}, Timeout: 5 * time.Second, MaxAge: 7 * 24 * time.Hour},
@@ -496,4 +492,16 @@ func TestFailingSourceGoesBlind(t *testing.T) {
 	if failed != 4 {
 		t.Fatalf("%d failed runs recorded, want 4", failed)
 	}
+}
+
+// openTestStore opens and migrates cfg's state store, closed when the
+// test ends.
+func openTestStore(t *testing.T, cfg *config.Config) *sqlstore.Store {
+	t.Helper()
+	st, err := sqlstore.Open(context.Background(), cfg.StoreURL(), sqlstore.Options{Migrate: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { st.Close() })
+	return st
 }

@@ -10,7 +10,6 @@ import (
 
 	"plumb/agent"
 	"plumb/agent/config"
-	"plumb/agent/sqlstore"
 	"plumb/connectors/postgres/pgtest"
 	"plumb/stream"
 )
@@ -60,11 +59,7 @@ watches:
 	if err != nil {
 		t.Fatal(err)
 	}
-	st, err := sqlstore.Open(ctx, cfg.StoreURL(), sqlstore.Options{Migrate: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer st.Close()
+	st := openTestStore(t, cfg)
 	clock := &fakeClock{}
 	r := &agent.Runner{Store: st, Config: cfg, Clock: clock}
 	day0 := time.Date(2025, 3, 1, 0, 0, 0, 0, time.UTC)
