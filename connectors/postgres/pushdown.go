@@ -836,7 +836,7 @@ func (pd *push) expand(st *connectors.Stats, levels []string) *connectors.Stats 
 		}
 		for b := a; b < q; b++ {
 			if j := src[b]; i >= 0 && j >= 0 {
-				out.Cross[k] = st.Cross[i*pd.p-i*(i-1)/2+(j-i)]
+				out.Cross[k] = st.Cross[triIndex(pd.p, i, j)]
 			}
 			k++
 		}
@@ -1136,31 +1136,19 @@ func (pd *push) pairedExprs(d []string) []string {
 // nMoments is how many moment aggregates (sums, cross-products, or their
 // paired form; weights' sum) a group's row carries before the extremes.
 func (pd *push) nMoments() int {
-	n := pd.p + pd.p*(pd.p+1)/2
-	if pd.strategy != pushRegr && pd.strategy != pushPaired && pd.plan.Weight != nil {
-		n++
-	}
 	if pd.strategy == pushPaired {
-		n = 0
-		for _, pr := range pd.pairs() {
-			n += 2
-			if pr[1] > pr[0] {
-				n += 2
-			}
-			if pr[0] != pr[1] {
-				n++
-			}
-		}
-		for i := 0; i < pd.p; i++ {
-			for j := i + 1; j < pd.p; j++ {
-				if !pd.paired(i, j) {
-					n++
-				}
-			}
-		}
+		return len(pd.pairedExprs(make([]string, pd.p)))
+	}
+	n := pd.p + pd.p*(pd.p+1)/2
+	if pd.strategy != pushRegr && pd.plan.Weight != nil {
+		n++
 	}
 	return n
 }
+
+// triIndex is the position of (i, j), i ≤ j, in the row-major upper
+// triangle of a p×p matrix (connectors.Stats.Cross).
+func triIndex(p, i, j int) int { return i*p - i*(i-1)/2 + (j - i) }
 
 // groupBy is "GROUP BY 1, …, n" by output position, which postgres_fdw
 // sends as it is.
@@ -1427,7 +1415,7 @@ func (pd *push) fillPaired(st *connectors.Stats, n int64, v []any) {
 	p := pd.p
 	st.SumWeights = float64(n)
 	st.Centered = true
-	at := func(i, j int) int { return i*p - i*(i-1)/2 + (j - i) }
+	at := func(i, j int) int { return triIndex(p, i, j) }
 	mean := make([]float64, p)
 	i := 0
 	for _, pr := range pd.pairs() {
