@@ -301,7 +301,7 @@ func (e *evaluation) finish(res *RunResult, now time.Time) {
 			if ev.event == EventOpened && existed && b.NotifyState == NotifySent {
 				continue // delivered before the backfill
 			}
-			if ev.event != EventResolved && e.quiet(e.alerts[ev.id], now) {
+			if pages(ev.event) && e.quiet(e.alerts[ev.id], now) {
 				// Acknowledged: held, as in a live run (an opening
 				// waits until the acknowledgement lapses).
 				continue
