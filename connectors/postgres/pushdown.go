@@ -1329,21 +1329,11 @@ func segKey(v any, raw bool) string {
 		s, _ := v.(string)
 		return s
 	}
-	switch x := v.(type) {
-	case nil:
+	s, ok := levelOf(v) // text as it is, integers and booleans as PostgreSQL writes them
+	if !ok {
 		return connectors.NullSegment
-	case string:
-		return connectors.SegmentKey(x)
-	case bool:
-		return connectors.SegmentKey(strconv.FormatBool(x))
-	case int16:
-		return connectors.SegmentKey(strconv.FormatInt(int64(x), 10))
-	case int32:
-		return connectors.SegmentKey(strconv.FormatInt(int64(x), 10))
-	case int64:
-		return connectors.SegmentKey(strconv.FormatInt(x, 10))
 	}
-	return connectors.SegmentKey(fmt.Sprint(v))
+	return connectors.SegmentKey(s)
 }
 
 func (pd *push) newStats() *connectors.Stats {
